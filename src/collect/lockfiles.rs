@@ -1,0 +1,158 @@
+//! Finds every supported lockfile under the repository root and parses it.
+//!
+//! The walk respects `.gitignore` (the `ignore` crate, as ripgrep does) and skips folders that
+//! hold installed or built code rather than the project's own: `.git`, `node_modules`,
+//! `target`, virtual environments and caches. A file that cannot be read or parsed becomes a
+//! warning; the others are still recorded.
+
+use std::path::{Path, PathBuf};
+use std::process::Command;
+
+use sha2::{Digest, Sha256};
+
+use crate::lockfile::{cargo, Format};
+use crate::manifest::{hex, Lockfile};
+
+/// Folder names never descended into.
+const SKIPPED_DIRS: &[&str] = &[
+    ".git",
+    "node_modules",
+    "target",
+    ".venv",
+    "venv",
+    "__pycache__",
+    "site-packages",
+    ".tox",
+    ".nox",
+    ".mypy_cache",
+    ".pytest_cache",
+];
+
+/// Lockfiles found under `root`, as paths relative to it, sorted.
+pub fn discover(root: &Path) -> Vec<PathBuf> {
+    let mut found: Vec<PathBuf> = ignore::WalkBuilder::new(root)
+        .hidden(false)
+        .git_ignore(true)
+        .git_exclude(true)
+        .require_git(false)
+        .filter_entry(|e| {
+            !(e.file_type().is_some_and(|t| t.is_dir())
+                && e.file_name()
+                    .to_str()
+                    .is_some_and(|n| SKIPPED_DIRS.contains(&n)))
+        })
+        .build()
+        .filter_map(Result::ok)
+        .filter(|e| e.file_type().is_some_and(|t| t.is_file()))
+        .filter(|e| e.file_name().to_str().and_then(Format::detect).is_some())
+        .filter_map(|e| e.path().strip_prefix(root).ok().map(Path::to_path_buf))
+        .collect();
+    found.sort();
+    found
+}
+
+/// Reads and parses every lockfile under `root`. Problems are pushed to `warnings`.
+pub fn collect(root: &Path, warnings: &mut Vec<String>) -> Vec<Lockfile> {
+    let mut out = Vec::new();
+    for rel in discover(root) {
+        let shown = rel.to_string_lossy().replace('\\', "/");
+        let Some(format) = rel
+            .file_name()
+            .and_then(|n| n.to_str())
+            .and_then(Format::detect)
+        else {
+            continue;
+        };
+        let abs = root.join(&rel);
+        let bytes = match std::fs::read(&abs) {
+            Ok(b) => b,
+            Err(e) => {
+                warnings.push(format!("lockfile `{shown}`: cannot read: {e}"));
+                continue;
+            }
+        };
+        let text = match std::str::from_utf8(&bytes) {
+            Ok(t) => t,
+            Err(e) => {
+                warnings.push(format!(
+                    "lockfile `{shown}`: not UTF-8 text (invalid byte at offset {})",
+                    e.valid_up_to()
+                ));
+                continue;
+            }
+        };
+        let mut parsed = match format.parse(text, &shown) {
+            Ok(p) => p,
+            Err(e) => {
+                warnings.push(format!("lockfile {e}"));
+                continue;
+            }
+        };
+        warnings.append(&mut parsed.warnings);
+        if format == Format::CargoLock {
+            if let Some(dir) = abs.parent() {
+                match cargo_features(dir) {
+                    Ok(Some(metadata)) => cargo::apply_features(&mut parsed.packages, &metadata),
+                    Ok(None) => {}
+                    Err(e) => warnings.push(format!(
+                        "lockfile `{shown}`: enabled features not recorded: {e}"
+                    )),
+                }
+            }
+        }
+        out.push(Lockfile {
+            path: shown,
+            ecosystem: format.ecosystem().to_string(),
+            format_version: parsed.format_version,
+            sha256: hex(&Sha256::digest(&bytes)),
+            packages: parsed.packages,
+        });
+    }
+    out
+}
+
+/// Runs `cargo metadata` for the workspace beside a `Cargo.lock`, when `cargo` is on PATH and a
+/// `Cargo.toml` is there. `--locked --offline` keep it from changing the lockfile or reaching
+/// the network in the middle of a training job.
+fn cargo_features(dir: &Path) -> Result<Option<cargo_metadata::Metadata>, String> {
+    let manifest = dir.join("Cargo.toml");
+    if !manifest.is_file() {
+        return Ok(None);
+    }
+    let Some(host) = cargo_host_triple() else {
+        return Ok(None);
+    };
+    // Only the host platform's packages: those for other platforms may never have been
+    // downloaded, and `--offline` would fail on them.
+    cargo_metadata::MetadataCommand::new()
+        .manifest_path(&manifest)
+        .other_options(vec![
+            "--locked".to_string(),
+            "--offline".to_string(),
+            "--filter-platform".to_string(),
+            host,
+        ])
+        .exec()
+        .map(Some)
+        .map_err(|e| {
+            let msg = e.to_string();
+            crate::redact::scrub_url_credentials(
+                msg.lines().next().unwrap_or("cargo metadata failed"),
+            )
+        })
+}
+
+/// The host triple from `cargo -vV`, or `None` when cargo is not on PATH.
+fn cargo_host_triple() -> Option<String> {
+    let cargo = std::env::var_os("CARGO").unwrap_or_else(|| "cargo".into());
+    let out = Command::new(cargo)
+        .arg("-vV")
+        .stderr(std::process::Stdio::null())
+        .output()
+        .ok()
+        .filter(|o| o.status.success())?;
+    String::from_utf8_lossy(&out.stdout)
+        .lines()
+        .find_map(|l| l.strip_prefix("host:"))
+        .map(|h| h.trim().to_string())
+}

@@ -1,0 +1,458 @@
+//! The manifest: one versioned, typed record of everything outside the training code that can
+//! change a run's results.
+//!
+//! The on-disk form is TOML (JSON on request) with kebab-case keys. Two parts matter for the
+//! contract:
+//!
+//! * [`RunInfo`] (`[run]`) describes *this* stamping — time, label, host name, tool version,
+//!   warnings. It never enters the fingerprint.
+//! * Everything else is [`Content`]: facts that can change results. The [`Manifest::fingerprint`]
+//!   is the SHA-256 of a canonical JSON serialization of the content, so two stamps of the same
+//!   state share it and a hand edit of any content field is detectable on read.
+//!
+//! Version policy: adding an optional field keeps `schema-version`; changing the meaning or type
+//! of a field bumps it. Unknown fields are tolerated on read (and ignored), empty fields are
+//! omitted on write.
+
+use std::collections::BTreeMap;
+use std::path::Path;
+
+use serde::{Deserialize, Serialize};
+use sha2::{Digest, Sha256};
+
+use crate::error::ManifestError;
+
+/// The schema version this build writes and the highest it reads.
+pub const SCHEMA_VERSION: u32 = 1;
+
+/// A whole manifest.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct Manifest {
+    /// Version of this file's structure (see the module docs for the policy).
+    pub schema_version: u32,
+    /// `sha256:` + hex digest of the canonical content (see [`Content::fingerprint`]).
+    pub fingerprint: String,
+    /// Facts about this stamping; not part of the fingerprint.
+    pub run: RunInfo,
+    /// The result-relevant facts.
+    #[serde(flatten)]
+    pub content: Content,
+}
+
+/// Facts about the act of stamping, excluded from the fingerprint.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct RunInfo {
+    /// runprint's version.
+    pub tool_version: String,
+    /// UTC time of the stamp, RFC 3339.
+    pub created: String,
+    /// Free text given with `--label`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub label: Option<String>,
+    /// The machine's host name (left out with `--private`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub hostname: Option<String>,
+    /// Collectors that failed, one sentence each, naming the file where there is one.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub warnings: Vec<String>,
+}
+
+/// Everything that enters the fingerprint.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct Content {
+    /// Source control state.
+    #[serde(default)]
+    pub git: GitInfo,
+    /// Operating system, C library and memory.
+    #[serde(default)]
+    pub system: SystemInfo,
+    /// Processor and the instruction-set features kernels dispatch on.
+    #[serde(default)]
+    pub cpu: CpuInfo,
+    /// Environment variables that steer numerics or threading.
+    #[serde(default)]
+    pub env: EnvInfo,
+    /// Every lockfile found, with its resolved packages.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub lockfiles: Vec<Lockfile>,
+}
+
+/// Source-control facts.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct GitInfo {
+    /// False when the folder is not inside a git repository.
+    pub present: bool,
+    /// Full commit id of HEAD (absent in a repository with no commit yet).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub commit: Option<String>,
+    /// Branch name; absent when HEAD is detached.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub branch: Option<String>,
+    /// True when HEAD points at a commit rather than a branch.
+    #[serde(default, skip_serializing_if = "is_false")]
+    pub detached: bool,
+    /// True when tracked files differ from HEAD or untracked, not-ignored files exist.
+    #[serde(default, skip_serializing_if = "is_false")]
+    pub dirty: bool,
+    /// SHA-256 over the uncommitted change (paths, states and contents), so two dirty runs can
+    /// be told apart.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub dirty_digest: Option<String>,
+    /// Paths that differ from HEAD, relative to the repository root, sorted.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub changed_paths: Vec<String>,
+    /// The `origin` remote (or the first one) with any credentials removed.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub remote: Option<String>,
+    /// Submodules and the commit each is checked out at.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub submodules: Vec<Submodule>,
+}
+
+/// One submodule.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct Submodule {
+    /// Path inside the superproject.
+    pub path: String,
+    /// Commit checked out in the submodule's work tree (or recorded in the index when it is
+    /// not checked out).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub commit: Option<String>,
+}
+
+/// Operating-system facts.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct SystemInfo {
+    /// `linux`, `macos`, `windows`…
+    #[serde(default)]
+    pub os: String,
+    /// Distribution name and version where known.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub os_version: Option<String>,
+    /// Kernel release.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub kernel: Option<String>,
+    /// C library name (`glibc`, `musl`…).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub libc: Option<String>,
+    /// C library version.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub libc_version: Option<String>,
+    /// Total physical memory in bytes.
+    #[serde(default)]
+    pub memory_bytes: u64,
+}
+
+/// Processor facts.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct CpuInfo {
+    /// `x86_64`, `aarch64`…
+    #[serde(default)]
+    pub arch: String,
+    /// `GenuineIntel`, `AuthenticAMD`, an ARM implementer…
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub vendor: Option<String>,
+    /// Marketing model name.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub model_name: Option<String>,
+    /// CPU family number (x86).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub family: Option<String>,
+    /// CPU model number.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub model: Option<String>,
+    /// CPU stepping.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub stepping: Option<String>,
+    /// Physical cores, where the OS tells.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub physical_cores: Option<u32>,
+    /// Logical processors online.
+    #[serde(default)]
+    pub logical_cores: u32,
+    /// The CPUs this process may run on, as a list such as `0-3,8`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub allowed_cpus: Option<String>,
+    /// How many CPUs this process may run on.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub allowed_cpu_count: Option<u32>,
+    /// Instruction-set features numerical kernels dispatch on, lower case, sorted.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub features: Vec<String>,
+}
+
+/// Environment variables.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct EnvInfo {
+    /// Relevant variables and their values.
+    #[serde(default, skip_serializing_if = "BTreeMap::is_empty")]
+    pub vars: BTreeMap<String, String>,
+    /// Relevant variables that are set but whose value looks secret: only the name is kept.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub redacted: Vec<String>,
+}
+
+/// One lockfile (or pinned requirements file) and its resolved packages.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct Lockfile {
+    /// Path relative to the repository root (or as given, for files outside it).
+    pub path: String,
+    /// Which ecosystem: `cargo`, `pypi`…
+    pub ecosystem: String,
+    /// The format's own version marker, where it has one.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub format_version: Option<String>,
+    /// SHA-256 of the file's bytes.
+    pub sha256: String,
+    /// Packages, sorted by name then version.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub packages: Vec<Package>,
+}
+
+/// One resolved package.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct Package {
+    /// Name normalized by the ecosystem's own rule (PEP 503 for Python).
+    pub name: String,
+    /// Exact version as written.
+    pub version: String,
+    /// Where it comes from: `registry+…`, `git+URL#rev`, `path+…`, a URL (credentials removed).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub source: Option<String>,
+    /// Integrity hashes as written (`sha256:…`), sorted.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub hashes: Vec<String>,
+    /// Enabled features (Cargo), sorted.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub features: Vec<String>,
+    /// Only needed for development or tests.
+    #[serde(default, skip_serializing_if = "is_false")]
+    pub dev: bool,
+    /// Direct dependency of the project (`Some(false)` for transitive) where the format says.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub direct: Option<bool>,
+}
+
+fn is_false(b: &bool) -> bool {
+    !*b
+}
+
+/// Output format of a manifest.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum ManifestFormat {
+    /// TOML, the default.
+    Toml,
+    /// JSON, one object.
+    Json,
+}
+
+impl Content {
+    /// `sha256:` + the hex SHA-256 of this content's canonical JSON: struct fields in declaration
+    /// order, maps sorted by key, lists sorted by the collectors, no whitespace.
+    pub fn fingerprint(&self) -> String {
+        let canonical = serde_json::to_vec(self).expect("manifest content always serializes");
+        format!("sha256:{}", hex(&Sha256::digest(&canonical)))
+    }
+}
+
+impl Manifest {
+    /// Builds a manifest and computes its fingerprint.
+    pub fn new(run: RunInfo, content: Content) -> Manifest {
+        Manifest {
+            schema_version: SCHEMA_VERSION,
+            fingerprint: content.fingerprint(),
+            run,
+            content,
+        }
+    }
+
+    /// The first 12 hex digits of the fingerprint, for people.
+    pub fn short_fingerprint(&self) -> &str {
+        let hexpart = self
+            .fingerprint
+            .strip_prefix("sha256:")
+            .unwrap_or(&self.fingerprint);
+        &hexpart[..hexpart.len().min(12)]
+    }
+
+    /// True when the stored fingerprint no longer matches the content: the file was edited
+    /// after stamping.
+    pub fn is_modified(&self) -> bool {
+        self.fingerprint != self.content.fingerprint()
+    }
+
+    /// Serializes in the given format, with a trailing newline.
+    pub fn render(&self, format: ManifestFormat) -> String {
+        match format {
+            ManifestFormat::Toml => {
+                toml::to_string_pretty(self).expect("manifest always serializes to TOML")
+            }
+            ManifestFormat::Json => {
+                let mut s = serde_json::to_string_pretty(self).expect("manifest always serializes");
+                s.push('\n');
+                s
+            }
+        }
+    }
+
+    /// Parses a manifest from text; `path` only names the file in errors. JSON is recognised by
+    /// a leading `{`, anything else is read as TOML.
+    pub fn parse(text: &str, path: &Path) -> Result<Manifest, ManifestError> {
+        let text = text.strip_prefix('\u{feff}').unwrap_or(text);
+        let manifest: Manifest = if text.trim_start().starts_with('{') {
+            serde_json::from_str(text).map_err(|e| ManifestError::Syntax {
+                path: path.to_path_buf(),
+                line: Some(e.line()),
+                message: e.to_string(),
+            })?
+        } else {
+            toml::from_str(text).map_err(|e| {
+                let line = e
+                    .span()
+                    .map(|span| text[..span.start.min(text.len())].matches('\n').count() + 1);
+                ManifestError::Syntax {
+                    path: path.to_path_buf(),
+                    line,
+                    message: e.message().to_string(),
+                }
+            })?
+        };
+        if manifest.schema_version == 0 || manifest.schema_version > SCHEMA_VERSION {
+            return Err(ManifestError::UnsupportedVersion {
+                path: path.to_path_buf(),
+                found: manifest.schema_version,
+                supported: SCHEMA_VERSION,
+            });
+        }
+        Ok(manifest)
+    }
+
+    /// Reads and parses a manifest file.
+    pub fn load(path: &Path) -> Result<Manifest, ManifestError> {
+        let bytes = std::fs::read(path).map_err(|source| ManifestError::Read {
+            path: path.to_path_buf(),
+            source,
+        })?;
+        let text = String::from_utf8(bytes).map_err(|e| ManifestError::Syntax {
+            path: path.to_path_buf(),
+            line: None,
+            message: format!(
+                "not UTF-8 text (invalid byte at offset {})",
+                e.utf8_error().valid_up_to()
+            ),
+        })?;
+        Manifest::parse(&text, path)
+    }
+}
+
+/// Lower-case hex of bytes.
+pub fn hex(bytes: &[u8]) -> String {
+    use std::fmt::Write;
+    bytes
+        .iter()
+        .fold(String::with_capacity(bytes.len() * 2), |mut s, b| {
+            let _ = write!(s, "{b:02x}");
+            s
+        })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn sample() -> Manifest {
+        let mut content = Content::default();
+        content.git.present = true;
+        content.git.commit = Some("0123456789abcdef0123456789abcdef01234567".into());
+        content.cpu.arch = "x86_64".into();
+        content.cpu.features = vec!["avx2".into(), "fma".into()];
+        content
+            .env
+            .vars
+            .insert("OMP_NUM_THREADS".into(), "4".into());
+        content.lockfiles.push(Lockfile {
+            path: "Cargo.lock".into(),
+            ecosystem: "cargo".into(),
+            format_version: Some("4".into()),
+            sha256: "ab".into(),
+            packages: vec![Package {
+                name: "ndarray".into(),
+                version: "0.16.1".into(),
+                features: vec!["std".into()],
+                ..Package::default()
+            }],
+        });
+        Manifest::new(
+            RunInfo {
+                tool_version: "0.1.0".into(),
+                created: "2026-01-01T00:00:00Z".into(),
+                label: Some("demo".into()),
+                hostname: Some("node-1".into()),
+                warnings: vec![],
+            },
+            content,
+        )
+    }
+
+    #[test]
+    fn toml_and_json_round_trip_keep_the_fingerprint_valid() {
+        let m = sample();
+        for format in [ManifestFormat::Toml, ManifestFormat::Json] {
+            let text = m.render(format);
+            let back = Manifest::parse(&text, Path::new("m")).unwrap();
+            assert_eq!(back, m);
+            assert!(!back.is_modified());
+        }
+    }
+
+    #[test]
+    fn run_info_does_not_enter_the_fingerprint() {
+        let a = sample();
+        let mut b = sample();
+        b.run.created = "2027-01-01T00:00:00Z".into();
+        b.run.hostname = Some("other".into());
+        b.run.label = None;
+        b = Manifest::new(b.run, b.content);
+        assert_eq!(a.fingerprint, b.fingerprint);
+    }
+
+    #[test]
+    fn an_edited_value_is_detected() {
+        let text = sample()
+            .render(ManifestFormat::Toml)
+            .replace("\"4\"", "\"8\"");
+        let back = Manifest::parse(&text, Path::new("m")).unwrap();
+        assert!(back.is_modified());
+    }
+
+    #[test]
+    fn syntax_errors_name_file_and_line() {
+        let err = Manifest::parse(
+            "schema-version = 1\nfingerprint = \n",
+            Path::new("bad.toml"),
+        )
+        .unwrap_err()
+        .to_string();
+        assert!(err.contains("bad.toml"), "{err}");
+        assert!(err.contains("line 2"), "{err}");
+    }
+
+    #[test]
+    fn newer_schema_is_refused() {
+        let text = sample()
+            .render(ManifestFormat::Toml)
+            .replace("schema-version = 1", "schema-version = 99");
+        let err = Manifest::parse(&text, Path::new("m.toml")).unwrap_err();
+        assert!(err.to_string().contains("99"));
+    }
+}
