@@ -238,9 +238,16 @@ pub struct Package {
     /// Only needed for development or tests.
     #[serde(default, skip_serializing_if = "is_false")]
     pub dev: bool,
+    /// Installed only when an optional feature or extra asks for it.
+    #[serde(default, skip_serializing_if = "is_false")]
+    pub optional: bool,
     /// Direct dependency of the project (`Some(false)` for transitive) where the format says.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub direct: Option<bool>,
+    /// The platform, target framework or environment marker the entry is limited to, where
+    /// the format says.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub platform: Option<String>,
 }
 
 fn is_false(b: &bool) -> bool {
