@@ -90,6 +90,9 @@ struct DiffArgs {
     /// (default: the current folder's repository).
     #[arg(long, value_name = "DIR")]
     repo: Option<PathBuf>,
+    /// Also show a compact diff of each changed lockfile's package list.
+    #[arg(long, short)]
+    verbose: bool,
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -173,15 +176,15 @@ fn run_diff(args: DiffArgs) -> ExitCode {
         Ok(m) => m,
         Err(e) => return fail(e),
     };
-    let report = compare(
+    let mut report = compare(
         &args.old.display().to_string(),
         &old,
         &args.new.display().to_string(),
         &new,
         args.repo.as_deref(),
     );
-    for note in &report.notes {
-        eprintln!("note: {note}");
+    if args.verbose {
+        report.details = crate::diff::package_list_diffs(&old, &new);
     }
     let format = match args.format {
         DiffFormat::Text => ReportFormat::Text,

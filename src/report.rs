@@ -110,6 +110,9 @@ fn text(report: &Report, color: bool) -> String {
     for note in &report.notes {
         let _ = writeln!(out, "\nnote: {note}");
     }
+    for d in &report.details {
+        let _ = write!(out, "\npackages in {}:\n{}", d.subject, d.diff);
+    }
     out
 }
 
@@ -144,6 +147,14 @@ fn markdown(report: &Report) -> String {
             md_cell(&c.subject),
             md_cell(&value_change(c)),
             md_cell(&c.reason)
+        );
+    }
+    for d in &report.details {
+        let _ = write!(
+            out,
+            "\n<details><summary>Packages in <code>{}</code></summary>\n\n```diff\n{}```\n</details>\n",
+            md_cell(&d.subject),
+            d.diff
         );
     }
     out

@@ -14,6 +14,7 @@ use serde::{Deserialize, Serialize};
 
 use crate::collect::git;
 use crate::manifest::{Content, Lockfile, Manifest, Package};
+use crate::version::{self, VersionChange};
 
 /// How much a change matters, in increasing order.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize, Deserialize)]
@@ -115,6 +116,50 @@ pub struct Report {
     /// Remarks about the comparison itself (edited manifests, missing commits).
     #[serde(skip_serializing_if = "Vec::is_empty")]
     pub notes: Vec<String>,
+    /// Compact diffs of changed package lists, one per lockfile (filled on request, see
+    /// [`package_list_diffs`]).
+    #[serde(skip_serializing_if = "Vec::is_empty", default)]
+    pub details: Vec<Detail>,
+}
+
+/// A compact textual diff of one lockfile's package list.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct Detail {
+    /// The lockfile's path.
+    pub subject: String,
+    /// Unified diff of `name version` lines, with three lines of context.
+    pub diff: String,
+}
+
+/// For every lockfile present in both manifests whose packages differ, a unified diff of its
+/// package list (the `similar` crate), for `--verbose` reports.
+pub fn package_list_diffs(old: &Manifest, new: &Manifest) -> Vec<Detail> {
+    let lines = |l: &Lockfile| -> String {
+        l.packages
+            .iter()
+            .map(|p| format!("{} {}\n", p.name, p.version))
+            .collect()
+    };
+    let mut out = Vec::new();
+    for a in &old.content.lockfiles {
+        let Some(b) = new.content.lockfiles.iter().find(|b| b.path == a.path) else {
+            continue;
+        };
+        let (ta, tb) = (lines(a), lines(b));
+        if ta == tb {
+            continue;
+        }
+        let diff = similar::TextDiff::from_lines(&ta, &tb)
+            .unified_diff()
+            .context_radius(3)
+            .header(&format!("old/{}", a.path), &format!("new/{}", b.path))
+            .to_string();
+        out.push(Detail {
+            subject: a.path.clone(),
+            diff,
+        });
+    }
+    out
 }
 
 /// Compares two manifests. `repo` is a folder inside a git repository that may hold both
@@ -152,6 +197,7 @@ pub fn compare(
         old: Side::of(old_path, old),
         new: Side::of(new_path, new),
         notes,
+        details: Vec::new(),
     }
 }
 
@@ -312,8 +358,8 @@ fn compare_git(
             "git",
             "uncommitted changes",
             reason,
-            o.dirty_digest.as_ref().map(|d| digest_short(d)),
-            n.dirty_digest.as_ref().map(|d| digest_short(d)),
+            Some(o.dirty_digest.as_deref().map_or("clean".into(), digest_short)),
+            Some(n.dirty_digest.as_deref().map_or("clean".into(), digest_short)),
         ));
     }
     if o.branch != n.branch {
@@ -384,7 +430,7 @@ fn compare_lockfiles(old: &[Lockfile], new: &[Lockfile], out: &mut Vec<Change>) 
         ) {
             (Some(a), Some(b)) => {
                 if a.sha256 != b.sha256 || a.packages != b.packages {
-                    compare_packages(path, &a.packages, &b.packages, out);
+                    compare_packages(path, &b.ecosystem, &a.packages, &b.packages, out);
                 }
             }
             (Some(a), None) => out.push(whole_lockfile(a, false)),
@@ -454,6 +500,25 @@ fn versions(ps: &[&Package]) -> String {
         .join(", ")
 }
 
+/// The kind of change between two sets of versions of one package (a lockfile may hold several
+/// versions of one name): the highest old version against the highest new one.
+fn version_kind(
+    ecosystem: &str,
+    old: &BTreeSet<&String>,
+    new: &BTreeSet<&String>,
+) -> VersionChange {
+    let highest = |vs: &BTreeSet<&String>| -> Option<String> {
+        vs.iter()
+            .copied()
+            .max_by(|x, y| version::compare(ecosystem, x, y).unwrap_or(std::cmp::Ordering::Equal))
+            .cloned()
+    };
+    match (highest(old), highest(new)) {
+        (Some(a), Some(b)) => version::classify(ecosystem, &a, &b),
+        _ => VersionChange::Unknown,
+    }
+}
+
 fn group_by_name(ps: &[Package]) -> BTreeMap<String, Vec<&Package>> {
     let mut m: BTreeMap<String, Vec<&Package>> = BTreeMap::new();
     for p in ps {
@@ -462,7 +527,13 @@ fn group_by_name(ps: &[Package]) -> BTreeMap<String, Vec<&Package>> {
     m
 }
 
-fn compare_packages(path: &str, old: &[Package], new: &[Package], out: &mut Vec<Change>) {
+fn compare_packages(
+    path: &str,
+    ecosystem: &str,
+    old: &[Package],
+    new: &[Package],
+    out: &mut Vec<Change>,
+) {
     let (og, ng) = (group_by_name(old), group_by_name(new));
     for name in og.keys().chain(ng.keys()).collect::<BTreeSet<_>>() {
         let subject = format!("{path}: {name}");
@@ -487,14 +558,20 @@ fn compare_packages(path: &str, old: &[Package], new: &[Package], out: &mut Vec<
         let (ak, bk): (BTreeSet<_>, BTreeSet<_>) =
             (a.iter().map(key).collect(), b.iter().map(key).collect());
         if ak != bk {
-            let what = if a.iter().map(|p| &p.version).collect::<BTreeSet<_>>()
-                == b.iter().map(|p| &p.version).collect::<BTreeSet<_>>()
-            {
-                "change of source (registry, URL or git revision)"
+            let (av, bv): (BTreeSet<&String>, BTreeSet<&String>) = (
+                a.iter().map(|p| &p.version).collect(),
+                b.iter().map(|p| &p.version).collect(),
+            );
+            let (impact, reason) = if av == bv {
+                rules::package_impact(
+                    name,
+                    dev,
+                    "change of source (registry, URL or git revision)",
+                )
             } else {
-                "version change"
+                let kind = version_kind(ecosystem, &av, &bv);
+                rules::version_change_impact(name, dev, kind)
             };
-            let (impact, reason) = rules::package_impact(name, dev, what);
             out.push(change(
                 impact,
                 "lockfiles",
@@ -618,7 +695,13 @@ fn compare_cpu(old: &Content, new: &Content, out: &mut Vec<Change>) {
         if !gone.is_empty() {
             parts.push(format!("lost {}", gone.join(" ")));
         }
-        out.push(change(Impact::Verify, "cpu", "cpu features", format!("the processor {}; numerical libraries dispatch to different code paths (e.g. AVX-512 or FMA kernels), which changes the last digits", parts.join(" and ")), Some(gone.join(" ")), Some(came.join(" "))));
+        let summary = came
+            .iter()
+            .map(|f| format!("+{f}"))
+            .chain(gone.iter().map(|f| format!("-{f}")))
+            .collect::<Vec<_>>()
+            .join(" ");
+        out.push(change(Impact::Verify, "cpu", "cpu features", format!("the processor {}; numerical libraries dispatch to different code paths (e.g. AVX-512 or FMA kernels), which changes the last digits", parts.join(" and ")), Some(format!("{} features", o.features.len())), Some(format!("{} features ({summary})", n.features.len()))));
     }
     let counts =
         |c: &crate::manifest::CpuInfo| (c.logical_cores, c.physical_cores, c.allowed_cpu_count);

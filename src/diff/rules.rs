@@ -4,6 +4,7 @@
 //! with sources in `docs/rules.md`.
 
 use super::Impact;
+use crate::version::VersionChange;
 
 /// Packages whose code does the arithmetic of training or preprocessing, by ecosystem-neutral
 /// normalized name. A version change of one is a retrain.
@@ -158,6 +159,18 @@ pub fn package_impact(name: &str, dev: bool, what: &str) -> (Impact, String) {
             format!("{name} is not a known numerical library, but it is loaded with the training code; rerun and compare metrics"),
         )
     }
+}
+
+/// Impact and reason of a version change of a package, by the kind of change.
+pub fn version_change_impact(name: &str, dev: bool, kind: VersionChange) -> (Impact, String) {
+    let (impact, reason) = package_impact(name, dev, kind.phrase());
+    if impact == Impact::Verify && kind == VersionChange::Patch {
+        return (
+            Impact::None,
+            format!("{name} is not a known numerical library and this is a patch-level release, which by convention only fixes bugs"),
+        );
+    }
+    (impact, reason)
 }
 
 /// The class of a relevant environment variable.

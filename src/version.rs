@@ -1,0 +1,253 @@
+//! Version ordering and the kind of a version change, by each ecosystem's own rules:
+//! PEP 440 for Python (`pypi`, `conda`), SemVer 2.0.0 for Cargo, npm, Go and NuGet, and a
+//! dotted-number fallback for everything else or for versions the strict rules reject.
+
+use std::cmp::Ordering;
+
+use serde::{Deserialize, Serialize};
+
+/// What kind of change a version bump is.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum VersionChange {
+    /// The first release number grew (for `0.x`, the second: SemVer's initial-development rule).
+    Major,
+    /// The minor number grew.
+    Minor,
+    /// A smaller step: patch, post-release, build or local label.
+    Patch,
+    /// One side is a pre-release (alpha, beta, rc, dev).
+    PreRelease,
+    /// The new version is lower than the old one.
+    Downgrade,
+    /// The versions could not be ordered (not versions, or unparsable).
+    Unknown,
+}
+
+impl VersionChange {
+    /// A short phrase for reports.
+    pub fn phrase(self) -> &'static str {
+        match self {
+            VersionChange::Major => "major version change",
+            VersionChange::Minor => "minor version change",
+            VersionChange::Patch => "patch-level version change",
+            VersionChange::PreRelease => "change to or from a pre-release",
+            VersionChange::Downgrade => "downgrade",
+            VersionChange::Unknown => "version change",
+        }
+    }
+}
+
+/// A parsed version: its release numbers, whether it is a pre-release, and an ordering key.
+enum Parsed {
+    Pep440(pep440_rs::Version),
+    Semver(semver::Version),
+    Dotted(Vec<u64>, bool),
+}
+
+impl Parsed {
+    fn release(&self) -> Vec<u64> {
+        match self {
+            Parsed::Pep440(v) => v.release().to_vec(),
+            Parsed::Semver(v) => vec![v.major, v.minor, v.patch],
+            Parsed::Dotted(r, _) => r.clone(),
+        }
+    }
+
+    fn is_pre(&self) -> bool {
+        match self {
+            Parsed::Pep440(v) => v.any_prerelease(),
+            Parsed::Semver(v) => !v.pre.is_empty(),
+            Parsed::Dotted(_, pre) => *pre,
+        }
+    }
+
+    fn cmp(&self, other: &Parsed) -> Option<Ordering> {
+        match (self, other) {
+            (Parsed::Pep440(a), Parsed::Pep440(b)) => Some(a.cmp(b)),
+            (Parsed::Semver(a), Parsed::Semver(b)) => Some(a.cmp_precedence(b)),
+            _ => {
+                let (a, b) = (self.release(), other.release());
+                let n = a.len().max(b.len());
+                let pad = |v: &[u64]| {
+                    (0..n)
+                        .map(|i| v.get(i).copied().unwrap_or(0))
+                        .collect::<Vec<_>>()
+                };
+                Some(
+                    pad(&a)
+                        .cmp(&pad(&b))
+                        .then(other.is_pre().cmp(&self.is_pre())),
+                )
+            }
+        }
+    }
+}
+
+fn is_pep440(ecosystem: &str) -> bool {
+    matches!(ecosystem, "pypi" | "conda")
+}
+
+fn parse(ecosystem: &str, text: &str) -> Option<Parsed> {
+    let text = text.trim();
+    if is_pep440(ecosystem) {
+        if let Ok(v) = text.parse::<pep440_rs::Version>() {
+            return Some(Parsed::Pep440(v));
+        }
+    } else if let Ok(v) = semver::Version::parse(text.strip_prefix('v').unwrap_or(text)) {
+        return Some(Parsed::Semver(v));
+    }
+    dotted(text)
+}
+
+/// Leading dotted numbers (`1.2.3.4`, `v2.0`, `2.36-rc1`); a non-numeric tail marks a
+/// pre-release.
+fn dotted(text: &str) -> Option<Parsed> {
+    let text = text.strip_prefix('v').unwrap_or(text);
+    let end = text
+        .find(|c: char| !(c.is_ascii_digit() || c == '.'))
+        .unwrap_or(text.len());
+    let release: Vec<u64> = text[..end]
+        .split('.')
+        .filter(|s| !s.is_empty())
+        .map(|s| s.parse().ok())
+        .collect::<Option<_>>()?;
+    if release.is_empty() {
+        return None;
+    }
+    let tail = &text[end..];
+    let pre = !tail.is_empty() && !tail.starts_with('+');
+    Some(Parsed::Dotted(release, pre))
+}
+
+/// Orders two versions by the ecosystem's rules; `None` when either is not a version.
+pub fn compare(ecosystem: &str, a: &str, b: &str) -> Option<Ordering> {
+    parse(ecosystem, a)?.cmp(&parse(ecosystem, b)?)
+}
+
+/// Classifies the change from `old` to `new`.
+pub fn classify(ecosystem: &str, old: &str, new: &str) -> VersionChange {
+    let (Some(a), Some(b)) = (parse(ecosystem, old), parse(ecosystem, new)) else {
+        return VersionChange::Unknown;
+    };
+    match a.cmp(&b) {
+        None => return VersionChange::Unknown,
+        Some(Ordering::Greater) => return VersionChange::Downgrade,
+        _ => {}
+    }
+    if a.is_pre() || b.is_pre() {
+        return VersionChange::PreRelease;
+    }
+    let (ra, rb) = (a.release(), b.release());
+    let at = |r: &[u64], i: usize| r.get(i).copied().unwrap_or(0);
+    if at(&ra, 0) != at(&rb, 0) {
+        VersionChange::Major
+    } else if at(&ra, 1) != at(&rb, 1) {
+        // SemVer 2.0.0 item 4: in 0.y.z anything may change, so a 0.x minor step is breaking.
+        if at(&ra, 0) == 0 && !is_pep440(ecosystem) {
+            VersionChange::Major
+        } else {
+            VersionChange::Minor
+        }
+    } else {
+        VersionChange::Patch
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn ascending(ecosystem: &str, list: &[&str]) {
+        for pair in list.windows(2) {
+            assert_eq!(
+                compare(ecosystem, pair[0], pair[1]),
+                Some(Ordering::Less),
+                "{} < {}",
+                pair[0],
+                pair[1]
+            );
+        }
+    }
+
+    #[test]
+    fn semver_spec_precedence_examples() {
+        // SemVer 2.0.0, item 11 (precedence), the two example chains given there.
+        ascending("cargo", &["1.0.0", "2.0.0", "2.1.0", "2.1.1"]);
+        ascending(
+            "npm",
+            &[
+                "1.0.0-alpha",
+                "1.0.0-alpha.1",
+                "1.0.0-alpha.beta",
+                "1.0.0-beta",
+                "1.0.0-beta.2",
+                "1.0.0-beta.11",
+                "1.0.0-rc.1",
+                "1.0.0",
+            ],
+        );
+        // SemVer 2.0.0, item 10: build metadata does not take part in precedence.
+        assert_eq!(
+            compare("cargo", "1.0.0+build.1", "1.0.0+build.2"),
+            Some(Ordering::Equal)
+        );
+    }
+
+    #[test]
+    fn pep440_summary_ordering_example() {
+        // PEP 440, "Summary of permitted suffixes and relative ordering": the example list.
+        ascending(
+            "pypi",
+            &[
+                "1.dev0",
+                "1.0.dev456",
+                "1.0a1",
+                "1.0a2.dev456",
+                "1.0a12.dev456",
+                "1.0a12",
+                "1.0b1.dev456",
+                "1.0b2",
+                "1.0b2.post345.dev456",
+                "1.0b2.post345",
+                "1.0rc1.dev456",
+                "1.0rc1",
+                "1.0",
+                "1.0+abc.5",
+                "1.0+abc.7",
+                "1.0+5",
+                "1.0.post456.dev34",
+                "1.0.post456",
+                "1.0.15",
+                "1.1.dev1",
+            ],
+        );
+        // PEP 440, "Release segment": 1.0 and 1.0.0 are equal.
+        assert_eq!(compare("pypi", "1.0", "1.0.0"), Some(Ordering::Equal));
+    }
+
+    #[test]
+    fn kinds() {
+        assert_eq!(classify("pypi", "1.26.4", "2.1.3"), VersionChange::Major);
+        assert_eq!(classify("pypi", "1.5.1", "1.6.0"), VersionChange::Minor);
+        assert_eq!(classify("pypi", "4.66.4", "4.67.1"), VersionChange::Minor);
+        assert_eq!(classify("pypi", "2.2.2", "2.2.3"), VersionChange::Patch);
+        assert_eq!(
+            classify("pypi", "2.2.2", "2.2.2.post1"),
+            VersionChange::Patch
+        );
+        assert_eq!(
+            classify("pypi", "2.0.0", "2.1.0rc1"),
+            VersionChange::PreRelease
+        );
+        assert_eq!(classify("pypi", "2.0", "1.9"), VersionChange::Downgrade);
+        assert_eq!(classify("cargo", "0.15.6", "0.16.1"), VersionChange::Major);
+        assert_eq!(classify("cargo", "1.0.0", "1.0.1"), VersionChange::Patch);
+        assert_eq!(classify("go", "v1.2.3", "v1.3.0"), VersionChange::Minor);
+        assert_eq!(
+            classify("nuget", "4.7.0.1", "4.7.0.2"),
+            VersionChange::Patch
+        );
+        assert_eq!(classify("pypi", "", "1.0"), VersionChange::Unknown);
+    }
+}

@@ -1,0 +1,85 @@
+//! Shared harness for the integration tests: temporary git repositories driven by the real
+//! `git` executable (the reference the collector is checked against) and a hermetic
+//! `runprint` command.
+
+#![allow(dead_code)]
+
+use std::path::{Path, PathBuf};
+use std::process::Command;
+
+use assert_cmd::cargo::CommandCargoExt;
+
+/// Runs `git` in `dir` and returns its trimmed stdout; panics with stderr on failure.
+pub fn git(dir: &Path, args: &[&str]) -> String {
+    let out = Command::new("git")
+        .args(args)
+        .current_dir(dir)
+        .env("GIT_AUTHOR_NAME", "Test")
+        .env("GIT_AUTHOR_EMAIL", "test@example.invalid")
+        .env("GIT_COMMITTER_NAME", "Test")
+        .env("GIT_COMMITTER_EMAIL", "test@example.invalid")
+        .output()
+        .expect("git is installed");
+    assert!(
+        out.status.success(),
+        "git {args:?} failed: {}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    String::from_utf8(out.stdout)
+        .unwrap()
+        .trim_end()
+        .to_string()
+}
+
+/// A fresh repository with one commit holding `files`.
+pub fn repo_with(files: &[(&str, &str)]) -> tempfile::TempDir {
+    let dir = tempfile::tempdir().unwrap();
+    git(dir.path(), &["init", "-q", "-b", "main"]);
+    write_files(dir.path(), files);
+    git(dir.path(), &["add", "-A"]);
+    git(dir.path(), &["commit", "-q", "-m", "initial"]);
+    dir
+}
+
+/// Writes files, creating folders.
+pub fn write_files(root: &Path, files: &[(&str, &str)]) {
+    for (path, text) in files {
+        let p = root.join(path);
+        std::fs::create_dir_all(p.parent().unwrap()).unwrap();
+        std::fs::write(p, text).unwrap();
+    }
+}
+
+/// `runprint` with an empty environment apart from what it needs to find tools, so that the
+/// manifest's environment section holds only what a test sets.
+pub fn runprint() -> Command {
+    let mut cmd = Command::cargo_bin("runprint").unwrap();
+    cmd.env_clear();
+    for keep in ["PATH", "HOME", "CARGO_HOME", "RUSTUP_HOME"] {
+        if let Some(v) = std::env::var_os(keep) {
+            cmd.env(keep, v);
+        }
+    }
+    cmd
+}
+
+/// Stamps `dir` into `out` with extra environment variables; returns the parsed manifest.
+pub fn stamp_to(dir: &Path, out: &Path, vars: &[(&str, &str)]) -> runprint::manifest::Manifest {
+    let mut cmd = runprint();
+    cmd.args(["stamp", "--repo"]).arg(dir).arg("--out").arg(out);
+    for (k, v) in vars {
+        cmd.env(k, v);
+    }
+    let result = cmd.output().unwrap();
+    assert!(
+        result.status.success(),
+        "stamp failed: {}",
+        String::from_utf8_lossy(&result.stderr)
+    );
+    runprint::manifest::Manifest::load(out).unwrap()
+}
+
+/// Path of a file in the crate's folder.
+pub fn crate_path(rel: &str) -> PathBuf {
+    Path::new(env!("CARGO_MANIFEST_DIR")).join(rel)
+}
