@@ -69,6 +69,12 @@ struct StampArgs {
     /// Leave out the host name and the remote URL, and hash values that hold paths.
     #[arg(long)]
     private: bool,
+    /// Also read this lockfile (repeatable), e.g. one outside the repository.
+    #[arg(long, value_name = "PATH")]
+    lockfile: Vec<PathBuf>,
+    /// Do not look for or read lockfiles.
+    #[arg(long, conflicts_with = "lockfile")]
+    no_lockfiles: bool,
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -132,6 +138,8 @@ fn run_stamp(args: StampArgs) -> ExitCode {
     let mut opts = StampOptions::new(&args.repo);
     opts.label = args.label;
     opts.private = args.private;
+    opts.extra_lockfiles = args.lockfile;
+    opts.no_lockfiles = args.no_lockfiles;
     let manifest = stamp(&opts);
     for w in &manifest.run.warnings {
         eprintln!("warning: {w}");

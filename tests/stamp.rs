@@ -470,3 +470,45 @@ fn lockfile_digest_matches_sha256sum() {
     let names: Vec<&str> = lock.packages.iter().map(|p| p.name.as_str()).collect();
     assert_eq!(names, ["numpy", "torch"]);
 }
+
+#[test]
+fn extra_lockfiles_and_no_lockfiles() {
+    let repo = repo_with(&[("requirements.txt", "numpy==1.26.4\n")]);
+    let outside = tempfile::tempdir().unwrap();
+    let extra = outside.path().join("requirements-serving.txt");
+    std::fs::write(&extra, "scipy==1.13.1\n").unwrap();
+    let out = runprint()
+        .args(["stamp", "--repo"])
+        .arg(repo.path())
+        .arg("--lockfile")
+        .arg(&extra)
+        .arg("--lockfile")
+        .arg(repo.path().join("requirements.txt"))
+        .output()
+        .unwrap();
+    let m = runprint::manifest::Manifest::parse(
+        &String::from_utf8(out.stdout).unwrap(),
+        std::path::Path::new("-"),
+    )
+    .unwrap();
+    let paths: Vec<&str> = m
+        .content
+        .lockfiles
+        .iter()
+        .map(|l| l.path.as_str())
+        .collect();
+    assert_eq!(paths, ["requirements.txt", extra.to_str().unwrap()]);
+    assert_eq!(m.content.lockfiles[1].packages[0].name, "scipy");
+
+    let out = runprint()
+        .args(["stamp", "--no-lockfiles", "--repo"])
+        .arg(repo.path())
+        .output()
+        .unwrap();
+    let m = runprint::manifest::Manifest::parse(
+        &String::from_utf8(out.stdout).unwrap(),
+        std::path::Path::new("-"),
+    )
+    .unwrap();
+    assert!(m.content.lockfiles.is_empty());
+}

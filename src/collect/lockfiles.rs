@@ -51,64 +51,85 @@ pub fn discover(root: &Path) -> Vec<PathBuf> {
     found
 }
 
-/// Reads and parses every lockfile under `root`. Problems are pushed to `warnings`.
-pub fn collect(root: &Path, warnings: &mut Vec<String>) -> Vec<Lockfile> {
-    let mut out = Vec::new();
-    for rel in discover(root) {
-        let shown = rel.to_string_lossy().replace('\\', "/");
-        let Some(format) = rel
-            .file_name()
-            .and_then(|n| n.to_str())
-            .and_then(Format::detect)
-        else {
-            continue;
+/// Reads and parses every lockfile under `root`, plus `extra` files named by the user (which
+/// may lie outside it). Problems are pushed to `warnings`; duplicates are read once.
+pub fn collect(root: &Path, extra: &[PathBuf], warnings: &mut Vec<String>) -> Vec<Lockfile> {
+    let mut files: Vec<(PathBuf, String)> = discover(root)
+        .into_iter()
+        .map(|rel| (root.join(&rel), rel.to_string_lossy().replace('\\', "/")))
+        .collect();
+    for path in extra {
+        let abs = std::path::absolute(path).unwrap_or_else(|_| path.clone());
+        let root_abs = std::path::absolute(root).unwrap_or_else(|_| root.to_path_buf());
+        let shown = match abs.strip_prefix(&root_abs) {
+            Ok(rel) => rel.to_string_lossy().replace('\\', "/"),
+            Err(_) => path.to_string_lossy().into_owned(),
         };
-        let abs = root.join(&rel);
-        let bytes = match std::fs::read(&abs) {
-            Ok(b) => b,
-            Err(e) => {
-                warnings.push(format!("lockfile `{shown}`: cannot read: {e}"));
-                continue;
-            }
-        };
-        let text = match std::str::from_utf8(&bytes) {
-            Ok(t) => t,
-            Err(e) => {
-                warnings.push(format!(
-                    "lockfile `{shown}`: not UTF-8 text (invalid byte at offset {})",
-                    e.valid_up_to()
-                ));
-                continue;
-            }
-        };
-        let mut parsed = match format.parse(text, &shown) {
-            Ok(p) => p,
-            Err(e) => {
-                warnings.push(format!("lockfile {e}"));
-                continue;
-            }
-        };
-        warnings.append(&mut parsed.warnings);
-        if format == Format::CargoLock {
-            if let Some(dir) = abs.parent() {
-                match cargo_features(dir) {
-                    Ok(Some(metadata)) => cargo::apply_features(&mut parsed.packages, &metadata),
-                    Ok(None) => {}
-                    Err(e) => warnings.push(format!(
-                        "lockfile `{shown}`: enabled features not recorded: {e}"
-                    )),
-                }
+        if !files.iter().any(|(_, s)| *s == shown) {
+            files.push((abs, shown));
+        }
+    }
+    files
+        .iter()
+        .filter_map(|(abs, shown)| read_one(abs, shown, warnings))
+        .collect()
+}
+
+/// Reads and parses one lockfile; `shown` is the path written to the manifest.
+fn read_one(abs: &Path, shown: &str, warnings: &mut Vec<String>) -> Option<Lockfile> {
+    let Some(format) = abs
+        .file_name()
+        .and_then(|n| n.to_str())
+        .and_then(Format::detect)
+    else {
+        warnings.push(format!(
+            "lockfile `{shown}`: not a lockfile format runprint reads"
+        ));
+        return None;
+    };
+    let bytes = match std::fs::read(abs) {
+        Ok(b) => b,
+        Err(e) => {
+            warnings.push(format!("lockfile `{shown}`: cannot read: {e}"));
+            return None;
+        }
+    };
+    let text = match std::str::from_utf8(&bytes) {
+        Ok(t) => t,
+        Err(e) => {
+            warnings.push(format!(
+                "lockfile `{shown}`: not UTF-8 text (invalid byte at offset {})",
+                e.valid_up_to()
+            ));
+            return None;
+        }
+    };
+    let mut parsed = match format.parse(text, shown) {
+        Ok(p) => p,
+        Err(e) => {
+            warnings.push(format!("lockfile {e}"));
+            return None;
+        }
+    };
+    warnings.append(&mut parsed.warnings);
+    if format == Format::CargoLock {
+        if let Some(dir) = abs.parent() {
+            match cargo_features(dir) {
+                Ok(Some(metadata)) => cargo::apply_features(&mut parsed.packages, &metadata),
+                Ok(None) => {}
+                Err(e) => warnings.push(format!(
+                    "lockfile `{shown}`: enabled features not recorded: {e}"
+                )),
             }
         }
-        out.push(Lockfile {
-            path: shown,
-            ecosystem: format.ecosystem().to_string(),
-            format_version: parsed.format_version,
-            sha256: hex(&Sha256::digest(&bytes)),
-            packages: parsed.packages,
-        });
     }
-    out
+    Some(Lockfile {
+        path: shown.to_string(),
+        ecosystem: format.ecosystem().to_string(),
+        format_version: parsed.format_version,
+        sha256: hex(&Sha256::digest(&bytes)),
+        packages: parsed.packages,
+    })
 }
 
 /// Runs `cargo metadata` for the workspace beside a `Cargo.lock`, when `cargo` is on PATH and a

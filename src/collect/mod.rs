@@ -29,6 +29,10 @@ pub struct StampOptions {
     pub private: bool,
     /// The environment to read variables from (normally the process's own).
     pub env: BTreeMap<String, String>,
+    /// Lockfiles to read besides those found in the repository.
+    pub extra_lockfiles: Vec<PathBuf>,
+    /// Skip lockfiles altogether.
+    pub no_lockfiles: bool,
 }
 
 impl StampOptions {
@@ -46,6 +50,8 @@ impl StampOptions {
                     )
                 })
                 .collect(),
+            extra_lockfiles: Vec::new(),
+            no_lockfiles: false,
         }
     }
 }
@@ -71,7 +77,9 @@ pub fn stamp(opts: &StampOptions) -> Manifest {
         Err(e) => warnings.push(format!("cpu: {e}")),
     }
     content.env = env::collect(&opts.env, opts.private);
-    content.lockfiles = lockfiles::collect(&root, &mut warnings);
+    if !opts.no_lockfiles {
+        content.lockfiles = lockfiles::collect(&root, &opts.extra_lockfiles, &mut warnings);
+    }
 
     let run = RunInfo {
         tool_version: env!("CARGO_PKG_VERSION").to_string(),

@@ -358,8 +358,16 @@ fn compare_git(
             "git",
             "uncommitted changes",
             reason,
-            Some(o.dirty_digest.as_deref().map_or("clean".into(), digest_short)),
-            Some(n.dirty_digest.as_deref().map_or("clean".into(), digest_short)),
+            Some(
+                o.dirty_digest
+                    .as_deref()
+                    .map_or("clean".into(), digest_short),
+            ),
+            Some(
+                n.dirty_digest
+                    .as_deref()
+                    .map_or("clean".into(), digest_short),
+            ),
         ));
     }
     if o.branch != n.branch {
