@@ -75,6 +75,7 @@ fn base() -> Content {
                 pkg("tqdm", "4.66.4", "aa04"),
             ],
         }],
+        ..Content::default()
     }
 }
 

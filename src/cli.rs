@@ -75,6 +75,18 @@ struct StampArgs {
     /// Do not look for or read lockfiles.
     #[arg(long, conflicts_with = "lockfile")]
     no_lockfiles: bool,
+    /// A data input to digest: a file or a folder (repeatable).
+    #[arg(long, value_name = "PATH")]
+    data: Vec<PathBuf>,
+    /// Folder of the digest cache (default: $XDG_CACHE_HOME/runprint or ~/.cache/runprint).
+    #[arg(long, value_name = "DIR")]
+    cache: Option<PathBuf>,
+    /// Hash every data input again instead of trusting the digest cache.
+    #[arg(long)]
+    rehash: bool,
+    /// No progress bar.
+    #[arg(long, short)]
+    quiet: bool,
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -140,6 +152,14 @@ fn run_stamp(args: StampArgs) -> ExitCode {
     opts.private = args.private;
     opts.extra_lockfiles = args.lockfile;
     opts.no_lockfiles = args.no_lockfiles;
+    opts.data = crate::collect::data::DataOptions {
+        cache_dir: args
+            .cache
+            .or_else(|| crate::cache::DigestCache::default_dir(&opts.env)),
+        paths: args.data,
+        rehash: args.rehash,
+        progress: !args.quiet && std::io::stderr().is_terminal(),
+    };
     let manifest = stamp(&opts);
     for w in &manifest.run.warnings {
         eprintln!("warning: {w}");

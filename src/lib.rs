@@ -23,10 +23,12 @@
 #![warn(missing_docs)]
 
 pub mod atomic;
+pub mod cache;
 pub mod cli;
 pub mod collect;
 pub mod diff;
 pub mod error;
+pub mod hashing;
 pub mod lockfile;
 pub mod manifest;
 pub mod redact;

@@ -78,6 +78,46 @@ pub struct Content {
     /// Every lockfile found, with its resolved packages.
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub lockfiles: Vec<Lockfile>,
+    /// Declared data inputs (`stamp --data`) and their digests.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub data: Vec<DataInput>,
+}
+
+/// One declared data input: a file or a folder.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct DataInput {
+    /// The path as given (relative to the repository when inside it).
+    pub path: String,
+    /// `file` or `folder`.
+    pub kind: String,
+    /// `sha256:` + hex. A file's content digest; a folder's digest over the sorted lines
+    /// `RELATIVE-PATH NUL HEX-DIGEST LF` of every file in it, so a rename, an added or a removed
+    /// file changes it.
+    pub sha256: String,
+    /// Total size in bytes.
+    pub size: u64,
+    /// Number of files.
+    pub files: u64,
+    /// Per-file digests of a folder (omitted above [`DATA_ENTRY_LIMIT`] files), so that `diff`
+    /// can name which files changed.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub entries: Vec<DataEntry>,
+}
+
+/// The most per-file entries a folder input records.
+pub const DATA_ENTRY_LIMIT: usize = 2000;
+
+/// One file inside a folder input.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct DataEntry {
+    /// Path relative to the folder, `/`-separated.
+    pub path: String,
+    /// Hex SHA-256 of the content.
+    pub sha256: String,
+    /// Size in bytes.
+    pub size: u64,
 }
 
 /// Source-control facts.

@@ -7,6 +7,7 @@
 //! [`crate::manifest::Content`], call it here, and teach [`crate::diff`] to compare it.
 
 pub mod cpu;
+pub mod data;
 pub mod env;
 pub mod git;
 pub mod lockfiles;
@@ -33,6 +34,8 @@ pub struct StampOptions {
     pub extra_lockfiles: Vec<PathBuf>,
     /// Skip lockfiles altogether.
     pub no_lockfiles: bool,
+    /// Declared data inputs and how to digest them.
+    pub data: data::DataOptions,
 }
 
 impl StampOptions {
@@ -52,6 +55,7 @@ impl StampOptions {
                 .collect(),
             extra_lockfiles: Vec::new(),
             no_lockfiles: false,
+            data: data::DataOptions::default(),
         }
     }
 }
@@ -80,6 +84,8 @@ pub fn stamp(opts: &StampOptions) -> Manifest {
     if !opts.no_lockfiles {
         content.lockfiles = lockfiles::collect(&root, &opts.extra_lockfiles, &mut warnings);
     }
+
+    content.data = data::collect(&opts.data, &root, opts.private, &mut warnings);
 
     let run = RunInfo {
         tool_version: env!("CARGO_PKG_VERSION").to_string(),

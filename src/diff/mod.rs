@@ -13,7 +13,7 @@ use std::path::Path;
 use serde::{Deserialize, Serialize};
 
 use crate::collect::git;
-use crate::manifest::{Content, Lockfile, Manifest, Package};
+use crate::manifest::{Content, DataInput, Lockfile, Manifest, Package};
 use crate::version::{self, VersionChange};
 
 /// How much a change matters, in increasing order.
@@ -182,6 +182,7 @@ pub fn compare(
     let mut changes = Vec::new();
     compare_git(&old.content, &new.content, repo, &mut changes, &mut notes);
     compare_lockfiles(&old.content.lockfiles, &new.content.lockfiles, &mut changes);
+    compare_data(&old.content, &new.content, &mut changes);
     compare_env(&old.content, &new.content, &mut changes);
     compare_cpu(&old.content, &new.content, &mut changes);
     compare_system(&old.content, &new.content, &mut changes);
@@ -205,11 +206,12 @@ pub fn compare(
 pub fn sort_changes(changes: &mut [Change]) {
     let rank = |s: &str| match s {
         "git" => 0,
-        "lockfiles" => 1,
-        "env" => 2,
-        "cpu" => 3,
-        "system" => 4,
-        _ => 5,
+        "data" => 1,
+        "lockfiles" => 2,
+        "env" => 3,
+        "cpu" => 4,
+        "system" => 5,
+        _ => 6,
     };
     changes.sort_by(|a, b| {
         b.impact
@@ -413,6 +415,77 @@ fn compare_git(
             ));
         }
     }
+}
+
+fn compare_data(old: &Content, new: &Content, out: &mut Vec<Change>) {
+    let index = |c: &Content| -> BTreeMap<String, DataInput> {
+        c.data.iter().map(|d| (d.path.clone(), d.clone())).collect()
+    };
+    let (o, n) = (index(old), index(new));
+    for path in o.keys().chain(n.keys()).collect::<BTreeSet<_>>() {
+        let subject = format!("data {path}");
+        match (o.get(path), n.get(path)) {
+            (Some(a), Some(b)) if a.sha256 != b.sha256 => {
+                let detail = changed_files(a, b).map_or_else(String::new, |d| format!(" ({d})"));
+                out.push(change(
+                    Impact::Retrain,
+                    "data",
+                    subject,
+                    format!("the training data changed{detail}; a model trained on different data is a different model"),
+                    Some(format!("{} files, {} bytes, {}", a.files, a.size, digest_short(&a.sha256))),
+                    Some(format!("{} files, {} bytes, {}", b.files, b.size, digest_short(&b.sha256))),
+                ));
+            }
+            (Some(_), Some(_)) => {}
+            (a, b) => out.push(change(
+                Impact::Verify,
+                "data",
+                subject,
+                "the data input is declared on one side only, so its content cannot be compared",
+                a.map(|d| digest_short(&d.sha256)),
+                b.map(|d| digest_short(&d.sha256)),
+            )),
+        }
+    }
+}
+
+/// Names the files that differ between two listings of one folder, when both have listings.
+fn changed_files(a: &DataInput, b: &DataInput) -> Option<String> {
+    if a.entries.is_empty() || b.entries.is_empty() {
+        return None;
+    }
+    let (ae, be): (BTreeMap<&str, &str>, BTreeMap<&str, &str>) = (
+        a.entries
+            .iter()
+            .map(|e| (e.path.as_str(), e.sha256.as_str()))
+            .collect(),
+        b.entries
+            .iter()
+            .map(|e| (e.path.as_str(), e.sha256.as_str()))
+            .collect(),
+    );
+    let mut parts = Vec::new();
+    let changed: Vec<String> = ae
+        .iter()
+        .filter(|(p, d)| be.get(*p).is_some_and(|e| e != *d))
+        .map(|(p, _)| p.to_string())
+        .collect();
+    let added: Vec<String> = be
+        .keys()
+        .filter(|p| !ae.contains_key(*p))
+        .map(|p| p.to_string())
+        .collect();
+    let removed: Vec<String> = ae
+        .keys()
+        .filter(|p| !be.contains_key(*p))
+        .map(|p| p.to_string())
+        .collect();
+    for (word, list) in [("changed", changed), ("added", added), ("removed", removed)] {
+        if !list.is_empty() {
+            parts.push(format!("{word}: {}", some_paths(&list)));
+        }
+    }
+    Some(parts.join("; "))
 }
 
 fn digest_short(d: &str) -> String {

@@ -1,0 +1,260 @@
+//! The digest cache: lets an unchanged data input skip rehashing.
+//!
+//! An entry is keyed by the file's absolute path and is valid only while the file's size,
+//! modification time, status-change time, inode and device all still match. The status-change
+//! time (`ctime`) cannot be set by a user: restoring a modification time after an edit (with
+//! `touch -d`, say) still changes it, so such an edit is detected.
+//!
+//! A file modified within [`RACY_WINDOW_NS`] of being hashed is not cached, because a second
+//! write within the file system's timestamp granularity could leave every stat field
+//! unchanged (the "racy" case git's index also guards against).
+//!
+//! The cache is one JSON file, replaced atomically. Concurrent stamps may overwrite each
+//! other's additions (costing a rehash later) but can never make an entry wrong, since every
+//! entry is re-validated against the file's metadata before use. A cache that cannot be parsed
+//! or comes from another format version is discarded with a warning.
+
+use std::collections::HashMap;
+use std::path::{Path, PathBuf};
+
+use serde::{Deserialize, Serialize};
+
+use crate::atomic::write_atomic;
+
+/// Cache format version; a file with another version is discarded.
+pub const CACHE_VERSION: u32 = 1;
+const CACHE_KIND: &str = "runprint-digest-cache";
+const CACHE_FILE: &str = "digests-v1.json";
+
+/// Files changed this recently (nanoseconds) before hashing are not cached.
+pub const RACY_WINDOW_NS: i128 = 2_000_000_000;
+
+/// What identifies one version of a file on disk.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+pub struct FileStamp {
+    /// Size in bytes.
+    pub size: u64,
+    /// Modification time, nanoseconds since the epoch.
+    pub mtime_ns: i128,
+    /// Status-change time, nanoseconds since the epoch (0 where the OS has none).
+    pub ctime_ns: i128,
+    /// Inode number (0 where the OS has none).
+    pub inode: u64,
+    /// Device number (0 where the OS has none).
+    pub dev: u64,
+}
+
+impl FileStamp {
+    /// Reads a file's stamp from its metadata.
+    pub fn of(meta: &std::fs::Metadata) -> FileStamp {
+        #[cfg(unix)]
+        {
+            use std::os::unix::fs::MetadataExt;
+            FileStamp {
+                size: meta.len(),
+                mtime_ns: meta.mtime() as i128 * 1_000_000_000 + meta.mtime_nsec() as i128,
+                ctime_ns: meta.ctime() as i128 * 1_000_000_000 + meta.ctime_nsec() as i128,
+                inode: meta.ino(),
+                dev: meta.dev(),
+            }
+        }
+        #[cfg(not(unix))]
+        {
+            let mtime_ns = meta
+                .modified()
+                .ok()
+                .and_then(|t| t.duration_since(std::time::UNIX_EPOCH).ok())
+                .map_or(0, |d| d.as_nanos() as i128);
+            FileStamp {
+                size: meta.len(),
+                mtime_ns,
+                ctime_ns: 0,
+                inode: 0,
+                dev: 0,
+            }
+        }
+    }
+}
+
+#[derive(Debug, Clone, Serialize, Deserialize)]
+struct Entry {
+    stamp: FileStamp,
+    sha256: String,
+}
+
+#[derive(Debug, Serialize, Deserialize)]
+struct CacheFile {
+    kind: String,
+    version: u32,
+    entries: HashMap<String, Entry>,
+}
+
+/// An in-memory digest cache backed by a file.
+#[derive(Debug, Default)]
+pub struct DigestCache {
+    path: Option<PathBuf>,
+    entries: HashMap<String, Entry>,
+    dirty: bool,
+}
+
+impl DigestCache {
+    /// A cache that remembers nothing (`--rehash` still records new digests in it).
+    pub fn disabled() -> DigestCache {
+        DigestCache::default()
+    }
+
+    /// The default folder: `$XDG_CACHE_HOME/runprint`, else `$HOME/.cache/runprint`.
+    pub fn default_dir(env: &std::collections::BTreeMap<String, String>) -> Option<PathBuf> {
+        if let Some(x) = env.get("XDG_CACHE_HOME").filter(|x| !x.is_empty()) {
+            return Some(Path::new(x).join("runprint"));
+        }
+        env.get("HOME")
+            .filter(|h| !h.is_empty())
+            .map(|h| Path::new(h).join(".cache").join("runprint"))
+    }
+
+    /// Opens the cache in `dir`. A missing file is an empty cache; a corrupt or foreign one is
+    /// discarded and a warning is pushed. With `ignore_existing` (`--rehash`), old entries are
+    /// not loaded but new ones are still saved.
+    pub fn open(dir: &Path, ignore_existing: bool, warnings: &mut Vec<String>) -> DigestCache {
+        let path = dir.join(CACHE_FILE);
+        let mut cache = DigestCache {
+            path: Some(path.clone()),
+            ..DigestCache::default()
+        };
+        if ignore_existing {
+            cache.dirty = true;
+            return cache;
+        }
+        match std::fs::read(&path) {
+            Ok(bytes) => match serde_json::from_slice::<CacheFile>(&bytes) {
+                Ok(f) if f.kind == CACHE_KIND && f.version == CACHE_VERSION => {
+                    cache.entries = f.entries;
+                }
+                Ok(f) => {
+                    warnings.push(format!(
+                        "digest cache `{}` has format version {} (this runprint uses {CACHE_VERSION}); discarded",
+                        path.display(),
+                        f.version
+                    ));
+                    cache.dirty = true;
+                }
+                Err(e) => {
+                    warnings.push(format!(
+                        "digest cache `{}` is corrupt ({e}); discarded",
+                        path.display()
+                    ));
+                    cache.dirty = true;
+                }
+            },
+            Err(e) if e.kind() == std::io::ErrorKind::NotFound => {}
+            Err(e) => warnings.push(format!(
+                "digest cache `{}` cannot be read ({e}); not used",
+                path.display()
+            )),
+        }
+        cache
+    }
+
+    /// The cached digest of `path`, if its stamp still matches.
+    pub fn get(&self, path: &Path, stamp: &FileStamp) -> Option<String> {
+        let e = self.entries.get(path.to_str()?)?;
+        (e.stamp == *stamp).then(|| e.sha256.clone())
+    }
+
+    /// Records a digest computed at `hashed_at_ns` (unless the file was too fresh to trust).
+    pub fn put(&mut self, path: &Path, stamp: FileStamp, sha256: String, hashed_at_ns: i128) {
+        let Some(key) = path.to_str() else { return };
+        if hashed_at_ns - stamp.mtime_ns.max(stamp.ctime_ns) < RACY_WINDOW_NS {
+            return;
+        }
+        self.entries
+            .insert(key.to_string(), Entry { stamp, sha256 });
+        self.dirty = true;
+    }
+
+    /// Writes the cache back atomically if anything changed. Entries for files that no longer
+    /// exist are dropped.
+    pub fn save(mut self) -> Result<(), String> {
+        let Some(path) = self.path.take() else {
+            return Ok(());
+        };
+        if !self.dirty {
+            return Ok(());
+        }
+        self.entries.retain(|p, _| Path::new(p).exists());
+        if let Some(dir) = path.parent() {
+            std::fs::create_dir_all(dir)
+                .map_err(|e| format!("cannot create `{}`: {e}", dir.display()))?;
+        }
+        let file = CacheFile {
+            kind: CACHE_KIND.into(),
+            version: CACHE_VERSION,
+            entries: self.entries,
+        };
+        let bytes = serde_json::to_vec(&file).map_err(|e| e.to_string())?;
+        write_atomic(&path, &bytes).map_err(|e| e.to_string())
+    }
+}
+
+/// Nanoseconds since the epoch, now.
+pub fn now_ns() -> i128 {
+    std::time::SystemTime::now()
+        .duration_since(std::time::UNIX_EPOCH)
+        .map_or(0, |d| d.as_nanos() as i128)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn stamp_of(p: &Path) -> FileStamp {
+        FileStamp::of(&std::fs::metadata(p).unwrap())
+    }
+
+    #[test]
+    fn round_trip_and_validation() {
+        let dir = tempfile::tempdir().unwrap();
+        let f = dir.path().join("data.bin");
+        std::fs::write(&f, b"abc").unwrap();
+        let s = stamp_of(&f);
+        let mut w = Vec::new();
+        let mut c = DigestCache::open(dir.path(), false, &mut w);
+        c.put(&f, s, "d1".into(), now_ns() + 10 * RACY_WINDOW_NS);
+        c.save().unwrap();
+        let c = DigestCache::open(dir.path(), false, &mut w);
+        assert!(w.is_empty());
+        assert_eq!(c.get(&f, &s).as_deref(), Some("d1"));
+        let changed = FileStamp { size: 4, ..s };
+        assert_eq!(c.get(&f, &changed), None);
+    }
+
+    #[test]
+    fn fresh_files_are_not_cached() {
+        let dir = tempfile::tempdir().unwrap();
+        let f = dir.path().join("data.bin");
+        std::fs::write(&f, b"abc").unwrap();
+        let s = stamp_of(&f);
+        let mut c = DigestCache::open(dir.path(), false, &mut Vec::new());
+        c.put(&f, s, "d1".into(), now_ns());
+        assert_eq!(c.get(&f, &s), None);
+    }
+
+    #[test]
+    fn corrupt_and_foreign_caches_are_discarded_with_a_warning() {
+        let dir = tempfile::tempdir().unwrap();
+        std::fs::write(dir.path().join(CACHE_FILE), b"{not json").unwrap();
+        let mut w = Vec::new();
+        let c = DigestCache::open(dir.path(), false, &mut w);
+        assert!(c.entries.is_empty());
+        assert!(w[0].contains("corrupt"), "{w:?}");
+        std::fs::write(
+            dir.path().join(CACHE_FILE),
+            br#"{"kind":"runprint-digest-cache","version":99,"entries":{}}"#,
+        )
+        .unwrap();
+        let mut w = Vec::new();
+        DigestCache::open(dir.path(), false, &mut w);
+        assert!(w[0].contains("version 99"), "{w:?}");
+    }
+}
