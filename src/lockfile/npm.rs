@@ -128,23 +128,22 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
             format_version.as_deref().unwrap_or("(missing)")
         ));
     }
-    let use_tree = version == Some(1) || lock.packages.is_none();
-    let mut packages = if use_tree {
-        let mut out = Vec::new();
-        if let Some(tree) = &lock.dependencies {
+    let mut packages = match (&lock.packages, &lock.dependencies) {
+        (Some(map), _) if version != Some(1) => from_packages(map),
+        (_, Some(tree)) => {
+            let mut out = Vec::new();
             walk_tree(tree, &mut out);
+            out
         }
-        out
-    } else {
-        from_packages(lock.packages.as_ref().expect("checked above"))
+        (Some(map), None) => from_packages(map),
+        (None, None) => {
+            return Err(LockfileError::at(
+                path,
+                None,
+                "neither `packages` nor `dependencies` is present; this is not an npm lockfile",
+            ))
+        }
     };
-    if lock.packages.is_none() && lock.dependencies.is_none() {
-        return Err(LockfileError::at(
-            path,
-            None,
-            "neither `packages` nor `dependencies` is present; this is not an npm lockfile",
-        ));
-    }
     sort_packages(&mut packages);
     Ok(Parsed {
         format_version,
