@@ -7,7 +7,15 @@
 //! it. Comparison and rendering need nothing more.
 
 pub mod cargo;
+pub mod golang;
+pub mod julia;
+pub mod npm;
+pub mod nuget;
+pub mod pnpm;
+pub mod renv;
 pub mod requirements;
+mod support;
+pub mod yarn;
 
 use crate::error::LockfileError;
 use crate::manifest::Package;
@@ -30,6 +38,20 @@ pub enum Format {
     CargoLock,
     /// pip's `requirements*.txt`.
     Requirements,
+    /// npm's `package-lock.json` or `npm-shrinkwrap.json`.
+    NpmLock,
+    /// `yarn.lock`, Yarn classic (v1) or Yarn 2 and later.
+    YarnLock,
+    /// `pnpm-lock.yaml`.
+    PnpmLock,
+    /// Go's `go.mod`, read with the `go.sum` beside it (see [`Format::companion`]).
+    GoMod,
+    /// NuGet's `packages.lock.json`.
+    NugetLock,
+    /// R's `renv.lock`.
+    RenvLock,
+    /// Julia's `Manifest.toml` (and `Manifest-vX.Y.toml`).
+    JuliaManifest,
 }
 
 impl Format {
@@ -40,7 +62,21 @@ impl Format {
         } else if file_name.starts_with("requirements") && file_name.ends_with(".txt") {
             Some(Format::Requirements)
         } else {
-            None
+            match file_name {
+                "package-lock.json" | "npm-shrinkwrap.json" => Some(Format::NpmLock),
+                "yarn.lock" => Some(Format::YarnLock),
+                "pnpm-lock.yaml" => Some(Format::PnpmLock),
+                "go.mod" => Some(Format::GoMod),
+                "packages.lock.json" => Some(Format::NugetLock),
+                "renv.lock" => Some(Format::RenvLock),
+                "Manifest.toml" => Some(Format::JuliaManifest),
+                // Version-specific manifests, `Manifest-v1.11.toml` (Pkg.jl documentation,
+                // "Project.toml and Manifest.toml").
+                n if n.starts_with("Manifest-v") && n.ends_with(".toml") => {
+                    Some(Format::JuliaManifest)
+                }
+                _ => None,
+            }
         }
     }
 
@@ -49,6 +85,11 @@ impl Format {
         match self {
             Format::CargoLock => "cargo",
             Format::Requirements => "pypi",
+            Format::NpmLock | Format::YarnLock | Format::PnpmLock => "npm",
+            Format::GoMod => "go",
+            Format::NugetLock => "nuget",
+            Format::RenvLock => "cran",
+            Format::JuliaManifest => "julia",
         }
     }
 
@@ -57,6 +98,36 @@ impl Format {
         match self {
             Format::CargoLock => cargo::parse(text, path),
             Format::Requirements => requirements::parse(text, path),
+            Format::NpmLock => npm::parse(text, path),
+            Format::YarnLock => yarn::parse(text, path),
+            Format::PnpmLock => pnpm::parse(text, path),
+            Format::GoMod => golang::parse(text, path, None),
+            Format::NugetLock => nuget::parse(text, path),
+            Format::RenvLock => renv::parse(text, path),
+            Format::JuliaManifest => julia::parse(text, path),
+        }
+    }
+
+    /// A second file, in the same folder, that this format reads together with the first:
+    /// `go.sum` beside `go.mod`.
+    pub fn companion(self) -> Option<&'static str> {
+        match self {
+            Format::GoMod => Some("go.sum"),
+            _ => None,
+        }
+    }
+
+    /// Parses a file of this format together with its [`companion`](Format::companion), given
+    /// as `(text, path)` when it exists. Formats without a companion ignore it.
+    pub fn parse_with_companion(
+        self,
+        text: &str,
+        path: &str,
+        companion: Option<(&str, &str)>,
+    ) -> Result<Parsed, LockfileError> {
+        match self {
+            Format::GoMod => golang::parse(text, path, companion),
+            _ => self.parse(text, path),
         }
     }
 }
