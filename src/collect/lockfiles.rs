@@ -3,14 +3,16 @@
 //! The walk respects `.gitignore` (the `ignore` crate, as ripgrep does) and skips folders that
 //! hold installed or built code rather than the project's own: `.git`, `node_modules`,
 //! `target`, virtual environments and caches. A file that cannot be read or parsed becomes a
-//! warning; the others are still recorded.
+//! warning; the others are still recorded. Files a requirements file includes (`-r`, `-c`) are
+//! read relative to it, each once, and their packages merged into the includer's.
 
+use std::collections::HashSet;
 use std::path::{Path, PathBuf};
 use std::process::Command;
 
 use sha2::{Digest, Sha256};
 
-use crate::lockfile::{cargo, Format};
+use crate::lockfile::{cargo, requirements, Format, Parsed};
 use crate::manifest::{hex, Lockfile};
 
 /// Folder names never descended into.
@@ -89,6 +91,9 @@ pub fn collect(root: &Path, warnings: &mut Vec<String>) -> Vec<Lockfile> {
             }
         };
         warnings.append(&mut parsed.warnings);
+        if !parsed.includes.is_empty() {
+            merge_includes(root, &abs, &mut parsed, warnings);
+        }
         if format == Format::CargoLock {
             if let Some(dir) = abs.parent() {
                 match cargo_features(dir) {
@@ -109,6 +114,77 @@ pub fn collect(root: &Path, warnings: &mut Vec<String>) -> Vec<Lockfile> {
         });
     }
     out
+}
+
+/// Reads the files a requirements file includes, relative to the file that names them, each
+/// at most once (so include cycles end), and adds their packages to `parsed`. Entries from
+/// constraints files (`-c`) are marked optional: they pin versions without asking for
+/// installation.
+fn merge_includes(root: &Path, file: &Path, parsed: &mut Parsed, warnings: &mut Vec<String>) {
+    let root = root.canonicalize().unwrap_or_else(|_| root.to_path_buf());
+    let mut seen: HashSet<PathBuf> = file.canonicalize().into_iter().collect();
+    let mut queue: Vec<(PathBuf, crate::lockfile::Include)> = parsed
+        .includes
+        .drain(..)
+        .map(|inc| (file.to_path_buf(), inc))
+        .collect();
+    while let Some((from, inc)) = queue.pop() {
+        let from_shown = shown_path(&root, &from);
+        if inc.target.contains("://") {
+            warnings.push(format!(
+                "lockfile `{from_shown}`: included `{}` is a URL and was not read",
+                crate::redact::scrub_url_credentials(&inc.target)
+            ));
+            continue;
+        }
+        let target = from.parent().unwrap_or(Path::new(".")).join(&inc.target);
+        let loaded = target
+            .canonicalize()
+            .and_then(|c| std::fs::read_to_string(&c).map(|text| (text, c)));
+        let (text, canonical) = match loaded {
+            Ok(v) => v,
+            Err(e) => {
+                warnings.push(format!(
+                    "lockfile `{from_shown}`: cannot read included `{}`: {e}",
+                    inc.target
+                ));
+                continue;
+            }
+        };
+        if !seen.insert(canonical.clone()) {
+            continue;
+        }
+        match requirements::parse(&text, &shown_path(&root, &canonical)) {
+            Ok(mut sub) => {
+                warnings.append(&mut sub.warnings);
+                for mut p in sub.packages {
+                    p.optional |= inc.constraints_only;
+                    parsed.packages.push(p);
+                }
+                queue.extend(sub.includes.into_iter().map(|i| {
+                    let constraints_only = i.constraints_only || inc.constraints_only;
+                    (
+                        canonical.clone(),
+                        crate::lockfile::Include {
+                            constraints_only,
+                            ..i
+                        },
+                    )
+                }));
+            }
+            Err(e) => warnings.push(format!("lockfile {e}")),
+        }
+    }
+    crate::lockfile::python::sort_packages(&mut parsed.packages);
+}
+
+/// A path as shown in warnings: relative to the root when inside it.
+fn shown_path(root: &Path, path: &Path) -> String {
+    let path = path.canonicalize().unwrap_or_else(|_| path.to_path_buf());
+    path.strip_prefix(root)
+        .unwrap_or(&path)
+        .to_string_lossy()
+        .replace('\\', "/")
 }
 
 /// Runs `cargo metadata` for the workspace beside a `Cargo.lock`, when `cargo` is on PATH and a

@@ -7,7 +7,14 @@
 //! it. Comparison and rendering need nothing more.
 
 pub mod cargo;
+pub mod conda;
+pub mod pdm;
+pub mod pipfile;
+pub mod poetry;
+pub mod pylock;
+pub(crate) mod python;
 pub mod requirements;
+pub mod uv;
 
 use crate::error::LockfileError;
 use crate::manifest::Package;
@@ -21,6 +28,19 @@ pub struct Parsed {
     pub packages: Vec<Package>,
     /// Problems that did not stop the parse (an unknown format version, say).
     pub warnings: Vec<String>,
+    /// Other files this one pulls in (`-r`/`-c` in requirements files), as written. Parsers
+    /// never read them; [`crate::collect::lockfiles`] does.
+    pub includes: Vec<Include>,
+}
+
+/// A file named inside another, whose packages belong to the includer.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Include {
+    /// The target as written (a path relative to the including file, or a URL).
+    pub target: String,
+    /// True for constraints files (`-c`): their pins apply only to packages something else
+    /// asks for, so their entries are recorded as optional.
+    pub constraints_only: bool,
 }
 
 /// Supported lockfile formats.
@@ -30,6 +50,20 @@ pub enum Format {
     CargoLock,
     /// pip's `requirements*.txt`.
     Requirements,
+    /// PEP 751 `pylock.toml` and `pylock.NAME.toml`.
+    Pylock,
+    /// Poetry's `poetry.lock`.
+    PoetryLock,
+    /// pipenv's `Pipfile.lock`.
+    PipfileLock,
+    /// uv's `uv.lock`.
+    UvLock,
+    /// PDM's `pdm.lock`.
+    PdmLock,
+    /// conda's `environment.yml` (or `.yaml`).
+    CondaEnvironment,
+    /// conda's explicit spec files (`@EXPLICIT`), as `conda list --explicit` writes them.
+    CondaExplicit,
 }
 
 impl Format {
@@ -39,8 +73,18 @@ impl Format {
             Some(Format::CargoLock)
         } else if file_name.starts_with("requirements") && file_name.ends_with(".txt") {
             Some(Format::Requirements)
+        } else if pylock::is_pylock_name(file_name) {
+            Some(Format::Pylock)
         } else {
-            None
+            match file_name {
+                "poetry.lock" => Some(Format::PoetryLock),
+                "Pipfile.lock" => Some(Format::PipfileLock),
+                "uv.lock" => Some(Format::UvLock),
+                "pdm.lock" => Some(Format::PdmLock),
+                _ if conda::is_environment_name(file_name) => Some(Format::CondaEnvironment),
+                _ if conda::is_explicit_name(file_name) => Some(Format::CondaExplicit),
+                _ => None,
+            }
         }
     }
 
@@ -48,7 +92,13 @@ impl Format {
     pub fn ecosystem(self) -> &'static str {
         match self {
             Format::CargoLock => "cargo",
-            Format::Requirements => "pypi",
+            Format::Requirements
+            | Format::Pylock
+            | Format::PoetryLock
+            | Format::PipfileLock
+            | Format::UvLock
+            | Format::PdmLock => "pypi",
+            Format::CondaEnvironment | Format::CondaExplicit => "conda",
         }
     }
 
@@ -57,6 +107,13 @@ impl Format {
         match self {
             Format::CargoLock => cargo::parse(text, path),
             Format::Requirements => requirements::parse(text, path),
+            Format::Pylock => pylock::parse(text, path),
+            Format::PoetryLock => poetry::parse(text, path),
+            Format::PipfileLock => pipfile::parse(text, path),
+            Format::UvLock => uv::parse(text, path),
+            Format::PdmLock => pdm::parse(text, path),
+            Format::CondaEnvironment => conda::parse_environment(text, path),
+            Format::CondaExplicit => conda::parse_explicit(text, path),
         }
     }
 }
