@@ -127,3 +127,29 @@ pub fn line_of(text: &str, offset: usize) -> usize {
         .count()
         + 1
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn python_file_names() {
+        for (name, format) in [
+            ("requirements-dev.txt", Format::Requirements),
+            ("pylock.toml", Format::Pylock),
+            ("pylock.gpu.toml", Format::Pylock),
+            ("poetry.lock", Format::PoetryLock),
+            ("Pipfile.lock", Format::PipfileLock),
+            ("uv.lock", Format::UvLock),
+            ("pdm.lock", Format::PdmLock),
+            ("environment.yml", Format::CondaEnvironment),
+            ("spec-file.txt", Format::CondaExplicit),
+        ] {
+            assert_eq!(Format::detect(name), Some(format), "{name}");
+        }
+        assert_eq!(Format::detect("Pipfile"), None);
+        assert_eq!(Format::detect("pyproject.toml"), None);
+        assert_eq!(Format::UvLock.ecosystem(), "pypi");
+        assert_eq!(Format::CondaExplicit.ecosystem(), "conda");
+    }
+}
