@@ -5,12 +5,13 @@
 //! `target`, virtual environments and caches. A file that cannot be read or parsed becomes a
 //! warning; the others are still recorded.
 
+use std::collections::HashSet;
 use std::path::{Path, PathBuf};
 use std::process::Command;
 
 use sha2::{Digest, Sha256};
 
-use crate::lockfile::{cargo, Format};
+use crate::lockfile::{cargo, requirements, Format, Parsed};
 use crate::manifest::{hex, Lockfile};
 
 /// Folder names never descended into.
@@ -71,12 +72,12 @@ pub fn collect(root: &Path, extra: &[PathBuf], warnings: &mut Vec<String>) -> Ve
     }
     files
         .iter()
-        .filter_map(|(abs, shown)| read_one(abs, shown, warnings))
+        .filter_map(|(abs, shown)| read_one(root, abs, shown, warnings))
         .collect()
 }
 
 /// Reads and parses one lockfile; `shown` is the path written to the manifest.
-fn read_one(abs: &Path, shown: &str, warnings: &mut Vec<String>) -> Option<Lockfile> {
+fn read_one(root: &Path, abs: &Path, shown: &str, warnings: &mut Vec<String>) -> Option<Lockfile> {
     let Some(format) = abs
         .file_name()
         .and_then(|n| n.to_str())
@@ -104,7 +105,21 @@ fn read_one(abs: &Path, shown: &str, warnings: &mut Vec<String>) -> Option<Lockf
             return None;
         }
     };
-    let mut parsed = match format.parse(text, shown) {
+    // A companion file (go.sum beside go.mod) is read with it; its hashes reach the packages.
+    let companion = format.companion().and_then(|name| {
+        let path = abs.with_file_name(name);
+        let text = std::fs::read_to_string(&path).ok()?;
+        let shown = match shown.rsplit_once('/') {
+            Some((dir, _)) => format!("{dir}/{name}"),
+            None => name.to_string(),
+        };
+        Some((text, shown))
+    });
+    let mut parsed = match format.parse_with_companion(
+        text,
+        shown,
+        companion.as_ref().map(|(t, p)| (t.as_str(), p.as_str())),
+    ) {
         Ok(p) => p,
         Err(e) => {
             warnings.push(format!("lockfile {e}"));
@@ -112,6 +127,9 @@ fn read_one(abs: &Path, shown: &str, warnings: &mut Vec<String>) -> Option<Lockf
         }
     };
     warnings.append(&mut parsed.warnings);
+    if !parsed.includes.is_empty() {
+        merge_includes(root, abs, &mut parsed, warnings);
+    }
     if format == Format::CargoLock {
         if let Some(dir) = abs.parent() {
             match cargo_features(dir) {
@@ -130,6 +148,77 @@ fn read_one(abs: &Path, shown: &str, warnings: &mut Vec<String>) -> Option<Lockf
         sha256: hex(&Sha256::digest(&bytes)),
         packages: parsed.packages,
     })
+}
+
+/// Reads the files a requirements file includes, relative to the file that names them, each
+/// at most once (so include cycles end), and adds their packages to `parsed`. Entries from
+/// constraints files (`-c`) are marked optional: they pin versions without asking for
+/// installation.
+fn merge_includes(root: &Path, file: &Path, parsed: &mut Parsed, warnings: &mut Vec<String>) {
+    let root = root.canonicalize().unwrap_or_else(|_| root.to_path_buf());
+    let mut seen: HashSet<PathBuf> = file.canonicalize().into_iter().collect();
+    let mut queue: Vec<(PathBuf, crate::lockfile::Include)> = parsed
+        .includes
+        .drain(..)
+        .map(|inc| (file.to_path_buf(), inc))
+        .collect();
+    while let Some((from, inc)) = queue.pop() {
+        let from_shown = shown_path(&root, &from);
+        if inc.target.contains("://") {
+            warnings.push(format!(
+                "lockfile `{from_shown}`: included `{}` is a URL and was not read",
+                crate::redact::scrub_url_credentials(&inc.target)
+            ));
+            continue;
+        }
+        let target = from.parent().unwrap_or(Path::new(".")).join(&inc.target);
+        let loaded = target
+            .canonicalize()
+            .and_then(|c| std::fs::read_to_string(&c).map(|text| (text, c)));
+        let (text, canonical) = match loaded {
+            Ok(v) => v,
+            Err(e) => {
+                warnings.push(format!(
+                    "lockfile `{from_shown}`: cannot read included `{}`: {e}",
+                    inc.target
+                ));
+                continue;
+            }
+        };
+        if !seen.insert(canonical.clone()) {
+            continue;
+        }
+        match requirements::parse(&text, &shown_path(&root, &canonical)) {
+            Ok(mut sub) => {
+                warnings.append(&mut sub.warnings);
+                for mut p in sub.packages {
+                    p.optional |= inc.constraints_only;
+                    parsed.packages.push(p);
+                }
+                queue.extend(sub.includes.into_iter().map(|i| {
+                    let constraints_only = i.constraints_only || inc.constraints_only;
+                    (
+                        canonical.clone(),
+                        crate::lockfile::Include {
+                            constraints_only,
+                            ..i
+                        },
+                    )
+                }));
+            }
+            Err(e) => warnings.push(format!("lockfile {e}")),
+        }
+    }
+    crate::lockfile::python::sort_packages(&mut parsed.packages);
+}
+
+/// A path as shown in warnings: relative to the root when inside it.
+fn shown_path(root: &Path, path: &Path) -> String {
+    let path = path.canonicalize().unwrap_or_else(|_| path.to_path_buf());
+    path.strip_prefix(root)
+        .unwrap_or(&path)
+        .to_string_lossy()
+        .replace('\\', "/")
 }
 
 /// Runs `cargo metadata` for the workspace beside a `Cargo.lock`, when `cargo` is on PATH and a

@@ -98,6 +98,7 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
         format_version: Some(format_version),
         packages,
         warnings,
+        ..Parsed::default()
     })
 }
 

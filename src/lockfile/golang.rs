@@ -193,6 +193,7 @@ pub fn parse(
         format_version: go_version,
         packages,
         warnings,
+        includes: Vec::new(),
     })
 }
 

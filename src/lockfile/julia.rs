@@ -122,6 +122,7 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
         format_version: Some(format.unwrap_or_else(|| "1.0".to_string())),
         packages,
         warnings,
+        includes: Vec::new(),
     })
 }
 

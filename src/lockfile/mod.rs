@@ -7,14 +7,21 @@
 //! it. Comparison and rendering need nothing more.
 
 pub mod cargo;
+pub mod conda;
 pub mod golang;
 pub mod julia;
 pub mod npm;
 pub mod nuget;
+pub mod pdm;
+pub mod pipfile;
 pub mod pnpm;
+pub mod poetry;
+pub mod pylock;
+pub(crate) mod python;
 pub mod renv;
 pub mod requirements;
 mod support;
+pub mod uv;
 pub mod yarn;
 
 use crate::error::LockfileError;
@@ -29,6 +36,19 @@ pub struct Parsed {
     pub packages: Vec<Package>,
     /// Problems that did not stop the parse (an unknown format version, say).
     pub warnings: Vec<String>,
+    /// Other files this one pulls in (`-r`/`-c` in requirements files), as written. Parsers
+    /// never read them; [`crate::collect::lockfiles`] does.
+    pub includes: Vec<Include>,
+}
+
+/// A file named inside another, whose packages belong to the includer.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Include {
+    /// The target as written (a path relative to the including file, or a URL).
+    pub target: String,
+    /// True for constraints files (`-c`): their pins apply only to packages something else
+    /// asks for, so their entries are recorded as optional.
+    pub constraints_only: bool,
 }
 
 /// Supported lockfile formats.
@@ -52,6 +72,20 @@ pub enum Format {
     RenvLock,
     /// Julia's `Manifest.toml` (and `Manifest-vX.Y.toml`).
     JuliaManifest,
+    /// PEP 751 `pylock.toml` and `pylock.NAME.toml`.
+    Pylock,
+    /// Poetry's `poetry.lock`.
+    PoetryLock,
+    /// pipenv's `Pipfile.lock`.
+    PipfileLock,
+    /// uv's `uv.lock`.
+    UvLock,
+    /// PDM's `pdm.lock`.
+    PdmLock,
+    /// conda's `environment.yml` (or `.yaml`).
+    CondaEnvironment,
+    /// conda's explicit spec files (`@EXPLICIT`), as `conda list --explicit` writes them.
+    CondaExplicit,
 }
 
 impl Format {
@@ -61,6 +95,8 @@ impl Format {
             Some(Format::CargoLock)
         } else if file_name.starts_with("requirements") && file_name.ends_with(".txt") {
             Some(Format::Requirements)
+        } else if pylock::is_pylock_name(file_name) {
+            Some(Format::Pylock)
         } else {
             match file_name {
                 "package-lock.json" | "npm-shrinkwrap.json" => Some(Format::NpmLock),
@@ -75,6 +111,12 @@ impl Format {
                 n if n.starts_with("Manifest-v") && n.ends_with(".toml") => {
                     Some(Format::JuliaManifest)
                 }
+                "poetry.lock" => Some(Format::PoetryLock),
+                "Pipfile.lock" => Some(Format::PipfileLock),
+                "uv.lock" => Some(Format::UvLock),
+                "pdm.lock" => Some(Format::PdmLock),
+                _ if conda::is_environment_name(file_name) => Some(Format::CondaEnvironment),
+                _ if conda::is_explicit_name(file_name) => Some(Format::CondaExplicit),
                 _ => None,
             }
         }
@@ -84,12 +126,18 @@ impl Format {
     pub fn ecosystem(self) -> &'static str {
         match self {
             Format::CargoLock => "cargo",
-            Format::Requirements => "pypi",
             Format::NpmLock | Format::YarnLock | Format::PnpmLock => "npm",
             Format::GoMod => "go",
             Format::NugetLock => "nuget",
             Format::RenvLock => "cran",
             Format::JuliaManifest => "julia",
+            Format::Requirements
+            | Format::Pylock
+            | Format::PoetryLock
+            | Format::PipfileLock
+            | Format::UvLock
+            | Format::PdmLock => "pypi",
+            Format::CondaEnvironment | Format::CondaExplicit => "conda",
         }
     }
 
@@ -105,6 +153,13 @@ impl Format {
             Format::NugetLock => nuget::parse(text, path),
             Format::RenvLock => renv::parse(text, path),
             Format::JuliaManifest => julia::parse(text, path),
+            Format::Pylock => pylock::parse(text, path),
+            Format::PoetryLock => poetry::parse(text, path),
+            Format::PipfileLock => pipfile::parse(text, path),
+            Format::UvLock => uv::parse(text, path),
+            Format::PdmLock => pdm::parse(text, path),
+            Format::CondaEnvironment => conda::parse_environment(text, path),
+            Format::CondaExplicit => conda::parse_explicit(text, path),
         }
     }
 
@@ -140,4 +195,30 @@ pub fn line_of(text: &str, offset: usize) -> usize {
         .filter(|&&b| b == b'\n')
         .count()
         + 1
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn python_file_names() {
+        for (name, format) in [
+            ("requirements-dev.txt", Format::Requirements),
+            ("pylock.toml", Format::Pylock),
+            ("pylock.gpu.toml", Format::Pylock),
+            ("poetry.lock", Format::PoetryLock),
+            ("Pipfile.lock", Format::PipfileLock),
+            ("uv.lock", Format::UvLock),
+            ("pdm.lock", Format::PdmLock),
+            ("environment.yml", Format::CondaEnvironment),
+            ("spec-file.txt", Format::CondaExplicit),
+        ] {
+            assert_eq!(Format::detect(name), Some(format), "{name}");
+        }
+        assert_eq!(Format::detect("Pipfile"), None);
+        assert_eq!(Format::detect("pyproject.toml"), None);
+        assert_eq!(Format::UvLock.ecosystem(), "pypi");
+        assert_eq!(Format::CondaExplicit.ecosystem(), "conda");
+    }
 }

@@ -149,6 +149,7 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
         format_version,
         packages,
         warnings,
+        includes: Vec::new(),
     })
 }
 

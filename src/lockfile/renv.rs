@@ -153,6 +153,7 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
         format_version: None,
         packages,
         warnings: Vec::new(),
+        includes: Vec::new(),
     })
 }
 

@@ -170,6 +170,7 @@ fn parse_classic(text: &str, path: &str) -> Result<Parsed, LockfileError> {
         format_version,
         packages,
         warnings,
+        includes: Vec::new(),
     })
 }
 
@@ -371,6 +372,7 @@ fn parse_berry(text: &str, path: &str) -> Result<Parsed, LockfileError> {
         format_version,
         packages,
         warnings,
+        includes: Vec::new(),
     })
 }
 

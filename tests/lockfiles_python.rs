@@ -1,0 +1,485 @@
+//! The Python lockfile parsers against files written by the real tools.
+//!
+//! Each test writes a small project in a temporary folder, has the real package manager lock
+//! it (network to PyPI), reads the result with runprint, and compares the package list with the
+//! tool's own listing of the same lock: `uv export`, `pip install --dry-run --report`,
+//! `poetry show --format json`, `pdm export`, `pipenv requirements`, and `importlib.metadata`
+//! for `pip freeze`.
+//!
+//! The tools live in the virtual environment that `.ci/run` creates (`.ci-venv/bin`), named by
+//! `RUNPRINT_TEST_PYTHON_TOOLS`. Without that variable and without the folder, each test prints
+//! why it is skipped; with the variable set, a missing tool is a failure.
+
+use std::collections::BTreeSet;
+use std::path::{Path, PathBuf};
+use std::process::Command;
+
+use runprint::lockfile::{Format, Parsed};
+
+const TOOLS_VAR: &str = "RUNPRINT_TEST_PYTHON_TOOLS";
+
+/// The path of a tool from the test venv, or `None` (after saying so) when the venv is absent.
+fn tool(name: &str) -> Option<PathBuf> {
+    let (dir, required) = match std::env::var_os(TOOLS_VAR) {
+        Some(dir) => (PathBuf::from(dir), true),
+        None => (
+            Path::new(env!("CARGO_MANIFEST_DIR")).join(".ci-venv/bin"),
+            false,
+        ),
+    };
+    let path = dir.join(name);
+    if path.is_file() {
+        return Some(path);
+    }
+    assert!(
+        !required,
+        "{TOOLS_VAR} is set to `{}` but `{name}` is not there; run .ci/run to install it",
+        dir.display()
+    );
+    eprintln!(
+        "skipping: `{name}` not found in {} (run .ci/run, or set {TOOLS_VAR} to a folder holding pip, uv, poetry, pdm and pipenv)",
+        dir.display()
+    );
+    None
+}
+
+/// Runs a tool in `dir` with a quiet, non-interactive environment; panics with its stderr when
+/// it fails. Returns stdout.
+fn run(program: &Path, dir: &Path, args: &[&str]) -> String {
+    let out = Command::new(program)
+        .args(args)
+        .current_dir(dir)
+        .env("NO_COLOR", "1")
+        .env("PIP_DISABLE_PIP_VERSION_CHECK", "1")
+        .env("PDM_CHECK_UPDATE", "false")
+        .env("PIPENV_VENV_IN_PROJECT", "1")
+        .env("PIPENV_YES", "1")
+        .env("PIPENV_NOSPIN", "1")
+        .env_remove("VIRTUAL_ENV")
+        .output()
+        .unwrap_or_else(|e| panic!("cannot run {}: {e}", program.display()));
+    assert!(
+        out.status.success(),
+        "{} {args:?} failed:\n{}\n{}",
+        program.display(),
+        String::from_utf8_lossy(&out.stdout),
+        String::from_utf8_lossy(&out.stderr)
+    );
+    String::from_utf8(out.stdout).expect("tool output is UTF-8")
+}
+
+fn parse_file(format: Format, path: &Path) -> Parsed {
+    let text = std::fs::read_to_string(path).unwrap();
+    let parsed = format
+        .parse(&text, &path.display().to_string())
+        .unwrap_or_else(|e| panic!("{e}"));
+    assert!(parsed.warnings.is_empty(), "{:?}", parsed.warnings);
+    parsed
+}
+
+/// PEP 503 normalization, written here independently of the crate (PEP 503, "Normalized Names":
+/// `re.sub(r"[-_.]+", "-", name).lower()`).
+fn pep503(name: &str) -> String {
+    let mut out = String::new();
+    for c in name.chars() {
+        if matches!(c, '-' | '_' | '.') {
+            if !out.ends_with('-') {
+                out.push('-');
+            }
+        } else {
+            out.push(c.to_ascii_lowercase());
+        }
+    }
+    out
+}
+
+/// `name==version` pins from a tool's requirements-format listing: comment, option and
+/// indented `# via` lines are skipped, markers cut off.
+fn pins_from_listing(listing: &str) -> BTreeSet<(String, String)> {
+    listing
+        .lines()
+        .filter(|l| !l.starts_with(['#', '-', ' ']) && !l.trim().is_empty())
+        .map(|l| {
+            let req = l.split(';').next().unwrap().trim();
+            let (name, version) = req
+                .split_once("==")
+                .unwrap_or_else(|| panic!("not a pin: {l}"));
+            (pep503(name.trim()), version.trim().to_string())
+        })
+        .collect()
+}
+
+fn pins<'a>(
+    parsed: &'a Parsed,
+    keep: impl Fn(&runprint::manifest::Package) -> bool + 'a,
+) -> BTreeSet<(String, String)> {
+    parsed
+        .packages
+        .iter()
+        .filter(|p| keep(p))
+        .map(|p| (p.name.clone(), p.version.clone()))
+        .collect()
+}
+
+/// A project with three runtime dependencies (two with dependencies of their own), an extra and
+/// a development group; `tool` adds what one tool needs.
+fn write_project(dir: &Path, requires_python: &str, tool: &str) {
+    let text = format!(
+        "[project]\nname = \"demo-trainer\"\nversion = \"0.1.0\"\nrequires-python = \"{requires_python}\"\ndependencies = [\"numpy\", \"packaging\", \"requests\"]\n\n[project.optional-dependencies]\nplot = [\"pyparsing\"]\n\n{tool}"
+    );
+    std::fs::write(dir.join("pyproject.toml"), text).unwrap();
+}
+
+#[test]
+fn uv_lock_agrees_with_uv_export() {
+    let Some(uv) = tool("uv") else { return };
+    let dir = tempfile::tempdir().unwrap();
+    // `>=3.9` makes uv fork the resolution, so several versions of numpy are locked.
+    write_project(
+        dir.path(),
+        ">=3.9",
+        "[dependency-groups]\ndev = [\"pytest\"]\n",
+    );
+    run(&uv, dir.path(), &["lock", "--quiet"]);
+    let parsed = parse_file(Format::UvLock, &dir.path().join("uv.lock"));
+    assert!(parsed.format_version.as_deref().unwrap().starts_with("1"));
+    let not_root = |p: &runprint::manifest::Package| p.name != "demo-trainer";
+
+    let export = |extra: &[&str]| {
+        let mut args = vec![
+            "export",
+            "--quiet",
+            "--format",
+            "requirements-txt",
+            "--no-hashes",
+            "--no-emit-project",
+        ];
+        args.extend_from_slice(extra);
+        pins_from_listing(&run(&uv, dir.path(), &args))
+    };
+    // Every package and version, for every fork.
+    let all = export(&["--all-extras", "--all-groups"]);
+    assert!(
+        all.iter().filter(|(n, _)| n == "numpy").count() > 1,
+        "{all:?}"
+    );
+    assert_eq!(pins(&parsed, not_root), all);
+    // Dev: what `--no-dev` leaves out.
+    assert_eq!(
+        pins(&parsed, |p| not_root(p) && !p.dev),
+        export(&["--all-extras", "--no-dev"])
+    );
+    // Optional: what the plain export (no extras, no groups) leaves out of the non-dev set.
+    assert_eq!(
+        pins(&parsed, |p| not_root(p) && !p.dev && !p.optional),
+        export(&["--no-dev"])
+    );
+    // Direct: exactly the names the pyproject above declares.
+    let direct: BTreeSet<&str> = parsed
+        .packages
+        .iter()
+        .filter(|p| p.direct == Some(true))
+        .map(|p| p.name.as_str())
+        .collect();
+    assert_eq!(
+        direct,
+        BTreeSet::from(["numpy", "packaging", "pyparsing", "pytest", "requests"])
+    );
+    // Every registry package carries at least one hash, as `sha256:<64 hex>`.
+    for p in parsed.packages.iter().filter(|p| not_root(p)) {
+        assert!(!p.hashes.is_empty(), "{p:?}");
+        assert!(p
+            .hashes
+            .iter()
+            .all(|h| h.len() == 71 && h.starts_with("sha256:")));
+    }
+}
+
+#[test]
+fn pip_lock_agrees_with_pip_report() {
+    let Some(pip) = tool("pip") else { return };
+    let dir = tempfile::tempdir().unwrap();
+    let reqs = ["numpy", "packaging", "requests"];
+    let mut lock_args = vec!["lock", "--quiet", "-o", "pylock.toml"];
+    lock_args.extend(reqs);
+    run(&pip, dir.path(), &lock_args);
+    let parsed = parse_file(Format::Pylock, &dir.path().join("pylock.toml"));
+    assert_eq!(parsed.format_version.as_deref(), Some("1.0"));
+
+    // pip's installation report ("Installation Report" in pip's docs) for the same request.
+    let mut report_args = vec![
+        "install",
+        "--quiet",
+        "--dry-run",
+        "--ignore-installed",
+        "--report",
+        "report.json",
+    ];
+    report_args.extend(reqs);
+    run(&pip, dir.path(), &report_args);
+    let report: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(dir.path().join("report.json")).unwrap())
+            .unwrap();
+    let install = report["install"].as_array().unwrap();
+    let expected: BTreeSet<(String, String)> = install
+        .iter()
+        .map(|i| {
+            (
+                pep503(i["metadata"]["name"].as_str().unwrap()),
+                i["metadata"]["version"].as_str().unwrap().to_string(),
+            )
+        })
+        .collect();
+    assert_eq!(pins(&parsed, |_| true), expected);
+    // The artifact pip would download is among the hashes the lock records for it.
+    for i in install {
+        let name = pep503(i["metadata"]["name"].as_str().unwrap());
+        let sha = i["download_info"]["archive_info"]["hashes"]["sha256"]
+            .as_str()
+            .unwrap();
+        let p = parsed.packages.iter().find(|p| p.name == name).unwrap();
+        assert!(
+            p.hashes.contains(&format!("sha256:{sha}")),
+            "{name}: {sha} not in {:?}",
+            p.hashes
+        );
+    }
+}
+
+#[test]
+fn pip_freeze_agrees_with_importlib_metadata() {
+    let (Some(pip), Some(python)) = (tool("pip"), tool("python")) else {
+        return;
+    };
+    let dir = tempfile::tempdir().unwrap();
+    let frozen = run(&pip, dir.path(), &["freeze"]);
+    std::fs::write(dir.path().join("requirements.txt"), &frozen).unwrap();
+    let parsed = parse_file(Format::Requirements, &dir.path().join("requirements.txt"));
+    // importlib.metadata lists what is installed; `pip freeze` leaves out pip's own tooling
+    // (pip, setuptools, wheel, distribute: pip's `freeze` documentation).
+    let listing = run(
+        &python,
+        dir.path(),
+        &[
+            "-c",
+            "import importlib.metadata as m\nfor d in m.distributions(): print(d.metadata['Name'] + '==' + d.version)",
+        ],
+    );
+    let skipped = ["pip", "setuptools", "wheel", "distribute"];
+    let expected: BTreeSet<(String, String)> = pins_from_listing(&listing)
+        .into_iter()
+        .filter(|(n, _)| !skipped.contains(&n.as_str()))
+        .collect();
+    assert!(expected.len() > 20, "{expected:?}");
+    assert_eq!(pins(&parsed, |_| true), expected);
+}
+
+#[test]
+fn poetry_lock_agrees_with_poetry_show() {
+    let Some(poetry) = tool("poetry") else { return };
+    let dir = tempfile::tempdir().unwrap();
+    write_project(
+        dir.path(),
+        ">=3.10",
+        "[tool.poetry]\npackage-mode = false\n\n[tool.poetry.group.dev.dependencies]\npytest = \"*\"\n",
+    );
+    run(
+        &poetry,
+        dir.path(),
+        &["lock", "--no-interaction", "--quiet"],
+    );
+    let parsed = parse_file(Format::PoetryLock, &dir.path().join("poetry.lock"));
+    assert_eq!(parsed.format_version.as_deref(), Some("2.1"));
+    let show = |extra: &[&str]| -> BTreeSet<(String, String)> {
+        let mut args = vec!["show", "--no-ansi", "--no-interaction", "--format", "json"];
+        args.extend_from_slice(extra);
+        let listing: serde_json::Value =
+            serde_json::from_str(&run(&poetry, dir.path(), &args)).unwrap();
+        listing
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|p| {
+                (
+                    pep503(p["name"].as_str().unwrap()),
+                    p["version"].as_str().unwrap().to_string(),
+                )
+            })
+            .collect()
+    };
+    assert_eq!(pins(&parsed, |_| true), show(&["--all"]));
+    // Dev: the packages outside the main group. (`--all`, which also lists packages for other
+    // platforms, overrides `--only`; no main-group package here is platform-specific.)
+    assert_eq!(pins(&parsed, |p| !p.dev), show(&["--only", "main"]));
+    let pyparsing = parsed.packages.iter().find(|p| p.name == "pyparsing");
+    assert!(pyparsing.unwrap().optional);
+    assert!(parsed.packages.iter().all(|p| !p.hashes.is_empty()));
+}
+
+#[test]
+fn pdm_lock_agrees_with_pdm_export() {
+    let Some(pdm) = tool("pdm") else { return };
+    let dir = tempfile::tempdir().unwrap();
+    write_project(
+        dir.path(),
+        ">=3.10",
+        "[dependency-groups]\ndev = [\"pytest\"]\n\n[tool.pdm]\ndistribution = false\n",
+    );
+    run(&pdm, dir.path(), &["lock", "--quiet", "-G", ":all"]);
+    let parsed = parse_file(Format::PdmLock, &dir.path().join("pdm.lock"));
+    assert!(parsed.format_version.as_deref().unwrap().starts_with("4."));
+    let export = |extra: &[&str]| {
+        let mut args = vec!["export", "-f", "requirements", "--without-hashes"];
+        args.extend_from_slice(extra);
+        pins_from_listing(&run(&pdm, dir.path(), &args))
+    };
+    assert_eq!(pins(&parsed, |_| true), export(&["-G", ":all"]));
+    // Optional: outside what a production export of the default group holds.
+    assert_eq!(pins(&parsed, |p| !p.optional), export(&["--prod"]));
+    assert!(parsed.packages.iter().any(|p| p.name == "pytest" && p.dev));
+    assert!(parsed.packages.iter().all(|p| !p.hashes.is_empty()));
+}
+
+#[test]
+fn pipfile_lock_agrees_with_pipenv_requirements() {
+    let Some(pipenv) = tool("pipenv") else { return };
+    let dir = tempfile::tempdir().unwrap();
+    std::fs::write(
+        dir.path().join("Pipfile"),
+        "[[source]]\nurl = \"https://pypi.org/simple\"\nverify_ssl = true\nname = \"pypi\"\n\n[packages]\nnumpy = \"*\"\npackaging = \"*\"\nrequests = \"*\"\n\n[dev-packages]\npytest = \"*\"\n",
+    )
+    .unwrap();
+    run(&pipenv, dir.path(), &["lock"]);
+    let parsed = parse_file(Format::PipfileLock, &dir.path().join("Pipfile.lock"));
+    assert_eq!(parsed.format_version.as_deref(), Some("6"));
+    let default = pins_from_listing(&run(&pipenv, dir.path(), &["requirements"]));
+    let develop = pins_from_listing(&run(&pipenv, dir.path(), &["requirements", "--dev-only"]));
+    assert_eq!(pins(&parsed, |p| !p.dev), default);
+    assert_eq!(
+        pins(&parsed, |_| true),
+        default.union(&develop).cloned().collect()
+    );
+    assert!(parsed.packages.iter().all(|p| !p.hashes.is_empty()));
+}
+
+#[test]
+fn requirements_includes_are_merged_once() {
+    // pip's "Requirements File Format": `-r`/`-c` paths are relative to the including file.
+    let dir = tempfile::tempdir().unwrap();
+    let root = dir.path();
+    std::fs::create_dir(root.join("reqs")).unwrap();
+    std::fs::write(
+        root.join("requirements.txt"),
+        "-r reqs/base.txt\n-c reqs/pins.txt\nnumpy==2.0.0\n",
+    )
+    .unwrap();
+    // base.txt includes the top file again: the cycle must end.
+    std::fs::write(
+        root.join("reqs/base.txt"),
+        "-r ../requirements.txt\npackaging==24.0\n",
+    )
+    .unwrap();
+    std::fs::write(root.join("reqs/pins.txt"), "urllib3==2.2.1\n").unwrap();
+    let mut warnings = Vec::new();
+    let lockfiles = runprint::collect::lockfiles::collect(root, &[], &mut warnings);
+    assert!(warnings.is_empty(), "{warnings:?}");
+    assert_eq!(lockfiles.len(), 1);
+    let got: Vec<(&str, &str, bool)> = lockfiles[0]
+        .packages
+        .iter()
+        .map(|p| (p.name.as_str(), p.version.as_str(), p.optional))
+        .collect();
+    assert_eq!(
+        got,
+        [
+            ("numpy", "2.0.0", false),
+            ("packaging", "24.0", false),
+            ("urllib3", "2.2.1", true)
+        ]
+    );
+
+    std::fs::write(
+        root.join("requirements.txt"),
+        "-r missing.txt\nnumpy==2.0.0\n",
+    )
+    .unwrap();
+    let mut warnings = Vec::new();
+    let lockfiles = runprint::collect::lockfiles::collect(root, &[], &mut warnings);
+    assert_eq!(lockfiles[0].packages.len(), 1);
+    assert!(
+        warnings.len() == 1 && warnings[0].contains("missing.txt"),
+        "{warnings:?}"
+    );
+}
+
+#[test]
+fn conda_fixtures_are_found_and_read() {
+    // No conda writer installs from PyPI, so these two files are hand-written after CEP 23 and
+    // CEP 24 (see the comments at their top).
+    let root = Path::new(env!("CARGO_MANIFEST_DIR")).join("fixtures/lockfiles/python/conda");
+    let mut warnings = Vec::new();
+    let lockfiles = runprint::collect::lockfiles::collect(&root, &[], &mut warnings);
+    assert!(warnings.is_empty(), "{warnings:?}");
+    let paths: Vec<(&str, &str)> = lockfiles
+        .iter()
+        .map(|l| (l.path.as_str(), l.ecosystem.as_str()))
+        .collect();
+    assert_eq!(
+        paths,
+        [("environment.yml", "conda"), ("spec-file.txt", "conda")]
+    );
+    let env: Vec<(&str, &str, Option<&str>)> = lockfiles[0]
+        .packages
+        .iter()
+        .map(|p| (p.name.as_str(), p.version.as_str(), p.source.as_deref()))
+        .collect();
+    assert_eq!(
+        env,
+        [
+            (
+                "_libgcc_mutex",
+                "0.1",
+                Some("_libgcc_mutex=0.1=conda_forge")
+            ),
+            (
+                "demo-metrics",
+                "0.3.1",
+                Some("pypi+https://files.invalid/demo_metrics-0.3.1-py3-none-any.whl")
+            ),
+            (
+                "libblas",
+                "3.9.0",
+                Some("libblas=3.9.0=20_linux64_openblas")
+            ),
+            ("numpy", "1.26.4", Some("numpy=1.26.4=py311h64a7726_0")),
+            ("pip", "24.0", Some("conda-forge::pip=24.0=pyhd8ed1ab_0")),
+            ("python", "3.11.7", Some("python=3.11.7=hab00c5b_1_cpython")),
+            ("tqdm", "4.66.2", Some("pypi")),
+        ]
+    );
+    let explicit: Vec<(&str, &str, Option<&str>, usize)> = lockfiles[1]
+        .packages
+        .iter()
+        .map(|p| {
+            (
+                p.name.as_str(),
+                p.version.as_str(),
+                p.platform.as_deref(),
+                p.hashes.len(),
+            )
+        })
+        .collect();
+    assert_eq!(
+        explicit,
+        [
+            ("_libgcc_mutex", "0.1", Some("linux-64"), 1),
+            ("libblas", "3.9.0", Some("linux-64"), 1),
+            ("numpy", "1.26.4", Some("linux-64"), 1),
+            ("pip", "24.0", Some("noarch"), 0),
+        ]
+    );
+    assert_eq!(
+        lockfiles[1].packages[2].hashes,
+        ["sha256:3f4365e11b28e244c95ba8579942b0802761ba7bb31c026f50d1a9ea9c728149"]
+    );
+}
