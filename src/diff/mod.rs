@@ -172,10 +172,12 @@ pub fn compare(
     repo: Option<&Path>,
 ) -> Report {
     let mut notes = Vec::new();
-    for (path, m) in [(old_path, old), (new_path, new)] {
-        if m.is_modified() {
+    let (old_side, new_side) = (Side::of(old_path, old), Side::of(new_path, new));
+    for side in [&old_side, &new_side] {
+        if side.modified {
             notes.push(format!(
-                "`{path}` was modified after stamping: its stored fingerprint does not match its content"
+                "`{}` was modified after stamping: its stored fingerprint does not match its content",
+                side.path
             ));
         }
     }
@@ -195,8 +197,8 @@ pub fn compare(
             .max()
             .unwrap_or(Impact::None),
         changes,
-        old: Side::of(old_path, old),
-        new: Side::of(new_path, new),
+        old: old_side,
+        new: new_side,
         notes,
         details: Vec::new(),
     }
