@@ -7,10 +7,10 @@
 
 use std::collections::HashSet;
 use std::path::{Path, PathBuf};
-use std::process::Command;
 
 use sha2::{Digest, Sha256};
 
+use crate::collect::cargo_features;
 use crate::lockfile::{cargo, requirements, Format, Parsed};
 use crate::manifest::{hex, Lockfile};
 
@@ -31,7 +31,15 @@ const SKIPPED_DIRS: &[&str] = &[
 
 /// Lockfiles found under `root`, as paths relative to it, sorted.
 pub fn discover(root: &Path) -> Vec<PathBuf> {
-    let mut found: Vec<PathBuf> = ignore::WalkBuilder::new(root)
+    discover_all(root).0
+}
+
+/// One walk of the repository: the lockfiles (relative to `root`, sorted) and the absolute
+/// paths of every `Cargo.toml` (they decide Cargo's enabled features).
+pub fn discover_all(root: &Path) -> (Vec<PathBuf>, Vec<PathBuf>) {
+    let mut found = Vec::new();
+    let mut cargo_manifests = Vec::new();
+    let walk = ignore::WalkBuilder::new(root)
         .hidden(false)
         .git_ignore(true)
         .git_exclude(true)
@@ -42,26 +50,56 @@ pub fn discover(root: &Path) -> Vec<PathBuf> {
                     .to_str()
                     .is_some_and(|n| SKIPPED_DIRS.contains(&n)))
         })
-        .build()
-        .filter_map(Result::ok)
-        .filter(|e| e.file_type().is_some_and(|t| t.is_file()))
-        .filter(|e| e.file_name().to_str().and_then(Format::detect).is_some())
-        .filter_map(|e| e.path().strip_prefix(root).ok().map(Path::to_path_buf))
-        .collect();
+        .build();
+    for entry in walk.filter_map(Result::ok) {
+        if !entry.file_type().is_some_and(|t| t.is_file()) {
+            continue;
+        }
+        let Some(name) = entry.file_name().to_str() else {
+            continue;
+        };
+        if name == "Cargo.toml" {
+            let abs = std::path::absolute(entry.path()).unwrap_or_else(|_| entry.path().into());
+            cargo_manifests.push(abs);
+        }
+        if Format::detect(name).is_some() {
+            if let Ok(rel) = entry.path().strip_prefix(root) {
+                found.push(rel.to_path_buf());
+            }
+        }
+    }
     found.sort();
-    found
+    (found, cargo_manifests)
+}
+
+/// What reading one lockfile needs to know about the others.
+struct Context<'a> {
+    root: &'a Path,
+    cargo_manifests: Vec<PathBuf>,
+    cache_dir: Option<&'a Path>,
 }
 
 /// Reads and parses every lockfile under `root`, plus `extra` files named by the user (which
 /// may lie outside it). Problems are pushed to `warnings`; duplicates are read once.
 pub fn collect(root: &Path, extra: &[PathBuf], warnings: &mut Vec<String>) -> Vec<Lockfile> {
-    let mut files: Vec<(PathBuf, String)> = discover(root)
+    collect_with(root, extra, None, warnings)
+}
+
+/// As [`collect`], with a cache folder for Cargo's enabled features.
+pub fn collect_with(
+    root: &Path,
+    extra: &[PathBuf],
+    cache_dir: Option<&Path>,
+    warnings: &mut Vec<String>,
+) -> Vec<Lockfile> {
+    let (found, cargo_manifests) = discover_all(root);
+    let mut files: Vec<(PathBuf, String)> = found
         .into_iter()
         .map(|rel| (root.join(&rel), rel.to_string_lossy().replace('\\', "/")))
         .collect();
+    let root_abs = std::path::absolute(root).unwrap_or_else(|_| root.to_path_buf());
     for path in extra {
         let abs = std::path::absolute(path).unwrap_or_else(|_| path.clone());
-        let root_abs = std::path::absolute(root).unwrap_or_else(|_| root.to_path_buf());
         let shown = match abs.strip_prefix(&root_abs) {
             Ok(rel) => rel.to_string_lossy().replace('\\', "/"),
             Err(_) => path.to_string_lossy().into_owned(),
@@ -70,14 +108,24 @@ pub fn collect(root: &Path, extra: &[PathBuf], warnings: &mut Vec<String>) -> Ve
             files.push((abs, shown));
         }
     }
+    let ctx = Context {
+        root,
+        cargo_manifests,
+        cache_dir,
+    };
     files
         .iter()
-        .filter_map(|(abs, shown)| read_one(root, abs, shown, warnings))
+        .filter_map(|(abs, shown)| read_one(&ctx, abs, shown, warnings))
         .collect()
 }
 
 /// Reads and parses one lockfile; `shown` is the path written to the manifest.
-fn read_one(root: &Path, abs: &Path, shown: &str, warnings: &mut Vec<String>) -> Option<Lockfile> {
+fn read_one(
+    ctx: &Context,
+    abs: &Path,
+    shown: &str,
+    warnings: &mut Vec<String>,
+) -> Option<Lockfile> {
     let Some(format) = abs
         .file_name()
         .and_then(|n| n.to_str())
@@ -128,17 +176,15 @@ fn read_one(root: &Path, abs: &Path, shown: &str, warnings: &mut Vec<String>) ->
     };
     warnings.append(&mut parsed.warnings);
     if !parsed.includes.is_empty() {
-        merge_includes(root, abs, &mut parsed, warnings);
+        merge_includes(ctx.root, abs, &mut parsed, warnings);
     }
     if format == Format::CargoLock {
-        if let Some(dir) = abs.parent() {
-            match cargo_features(dir) {
-                Ok(Some(metadata)) => cargo::apply_features(&mut parsed.packages, &metadata),
-                Ok(None) => {}
-                Err(e) => warnings.push(format!(
-                    "lockfile `{shown}`: enabled features not recorded: {e}"
-                )),
-            }
+        match cargo_features::features(abs, &bytes, &ctx.cargo_manifests, ctx.cache_dir) {
+            Ok(Some(map)) => cargo::apply_features(&mut parsed.packages, &map),
+            Ok(None) => {}
+            Err(e) => warnings.push(format!(
+                "lockfile `{shown}`: enabled features not recorded: {e}"
+            )),
         }
     }
     Some(Lockfile {
@@ -219,50 +265,4 @@ fn shown_path(root: &Path, path: &Path) -> String {
         .unwrap_or(&path)
         .to_string_lossy()
         .replace('\\', "/")
-}
-
-/// Runs `cargo metadata` for the workspace beside a `Cargo.lock`, when `cargo` is on PATH and a
-/// `Cargo.toml` is there. `--locked --offline` keep it from changing the lockfile or reaching
-/// the network in the middle of a training job.
-fn cargo_features(dir: &Path) -> Result<Option<cargo_metadata::Metadata>, String> {
-    let manifest = dir.join("Cargo.toml");
-    if !manifest.is_file() {
-        return Ok(None);
-    }
-    let Some(host) = cargo_host_triple() else {
-        return Ok(None);
-    };
-    // Only the host platform's packages: those for other platforms may never have been
-    // downloaded, and `--offline` would fail on them.
-    cargo_metadata::MetadataCommand::new()
-        .manifest_path(&manifest)
-        .other_options(vec![
-            "--locked".to_string(),
-            "--offline".to_string(),
-            "--filter-platform".to_string(),
-            host,
-        ])
-        .exec()
-        .map(Some)
-        .map_err(|e| {
-            let msg = e.to_string();
-            crate::redact::scrub_url_credentials(
-                msg.lines().next().unwrap_or("cargo metadata failed"),
-            )
-        })
-}
-
-/// The host triple from `cargo -vV`, or `None` when cargo is not on PATH.
-fn cargo_host_triple() -> Option<String> {
-    let cargo = std::env::var_os("CARGO").unwrap_or_else(|| "cargo".into());
-    let out = Command::new(cargo)
-        .arg("-vV")
-        .stderr(std::process::Stdio::null())
-        .output()
-        .ok()
-        .filter(|o| o.status.success())?;
-    String::from_utf8_lossy(&out.stdout)
-        .lines()
-        .find_map(|l| l.strip_prefix("host:"))
-        .map(|h| h.trim().to_string())
 }

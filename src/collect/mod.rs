@@ -6,6 +6,7 @@
 //! returning the section and pushing warnings), add its section to
 //! [`crate::manifest::Content`], call it here, and teach [`crate::diff`] to compare it.
 
+pub mod cargo_features;
 pub mod cpu;
 pub mod data;
 pub mod env;
@@ -82,7 +83,12 @@ pub fn stamp(opts: &StampOptions) -> Manifest {
     }
     content.env = env::collect(&opts.env, opts.private);
     if !opts.no_lockfiles {
-        content.lockfiles = lockfiles::collect(&root, &opts.extra_lockfiles, &mut warnings);
+        content.lockfiles = lockfiles::collect_with(
+            &root,
+            &opts.extra_lockfiles,
+            opts.data.cache_dir.as_deref(),
+            &mut warnings,
+        );
     }
 
     content.data = data::collect(&opts.data, &root, opts.private, &mut warnings);

@@ -102,14 +102,18 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
     })
 }
 
-/// Fills in each package's enabled features from `cargo metadata` output.
-pub fn apply_features(packages: &mut [Package], metadata: &cargo_metadata::Metadata) {
+/// Enabled features per package, keyed by (name, version, source), as `cargo metadata`'s
+/// resolve graph lists them (sorted).
+pub type FeatureMap = BTreeMap<(String, String, Option<String>), Vec<String>>;
+
+/// Reads the enabled features of every resolved package from `cargo metadata` output.
+pub fn feature_map(metadata: &cargo_metadata::Metadata) -> FeatureMap {
+    let mut features = FeatureMap::new();
     let Some(resolve) = &metadata.resolve else {
-        return;
+        return features;
     };
     let by_id: HashMap<&cargo_metadata::PackageId, &cargo_metadata::Package> =
         metadata.packages.iter().map(|p| (&p.id, p)).collect();
-    let mut features: HashMap<(String, String, Option<String>), Vec<String>> = HashMap::new();
     for node in &resolve.nodes {
         if let Some(p) = by_id.get(&node.id) {
             let key = (
@@ -122,10 +126,15 @@ pub fn apply_features(packages: &mut [Package], metadata: &cargo_metadata::Metad
             features.insert(key, f);
         }
     }
+    features
+}
+
+/// Fills in each package's enabled features.
+pub fn apply_features(packages: &mut [Package], features: &FeatureMap) {
     for p in packages {
         let key = (p.name.clone(), p.version.clone(), p.source.clone());
-        if let Some(f) = features.remove(&key) {
-            p.features = f;
+        if let Some(f) = features.get(&key) {
+            p.features = f.clone();
         }
     }
 }
