@@ -69,6 +69,10 @@ struct StampArgs {
     /// Leave out the host name and the remote URL, and hash values that hold paths.
     #[arg(long)]
     private: bool,
+    /// A Python interpreter whose installed distributions and native libraries to record
+    /// (repeatable; default: the active virtual or conda environment, else `python3` on PATH).
+    #[arg(long, value_name = "PATH")]
+    python: Vec<PathBuf>,
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -129,6 +133,7 @@ fn run_stamp(args: StampArgs) -> ExitCode {
     let mut opts = StampOptions::new(&args.repo);
     opts.label = args.label;
     opts.private = args.private;
+    opts.python = args.python;
     let manifest = stamp(&opts);
     for w in &manifest.run.warnings {
         eprintln!("warning: {w}");

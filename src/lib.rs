@@ -31,3 +31,4 @@ pub mod lockfile;
 pub mod manifest;
 pub mod redact;
 pub mod report;
+pub mod stack;
