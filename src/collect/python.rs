@@ -20,8 +20,8 @@ use crate::manifest::{CondaPackage, Distribution, FrameworkBuild, PythonEnv};
 use crate::redact::scrub_url_credentials;
 use crate::stack::framework;
 use crate::stack::python::{
-    is_compiled_path, parse_conda_record, parse_direct_url, parse_metadata, parse_pyvenv_cfg,
-    record_paths,
+    is_pure_wheel, parse_conda_record, parse_direct_url, parse_metadata, parse_pyvenv_cfg,
+    record_compiled_paths,
 };
 
 /// Compiled files of one distribution, for the native-library collector.
@@ -364,11 +364,17 @@ fn read_distribution(
                 Err(e) => warnings.push(format!("python: {e}")),
             }
         }
-        if let Ok(record) = std::fs::read_to_string(entry.join("RECORD")) {
-            files.compiled = record_paths(&record)
-                .filter(|p| is_compiled_path(p))
-                .collect();
-            files.compiled.sort();
+        // A wheel whose every tag is for any platform (`py3-none-any`; PEP 425 tags in the
+        // `WHEEL` file, PEP 427) holds no compiled code, so its RECORD, which can run to
+        // hundreds of kilobytes, need not be read.
+        let pure = std::fs::read_to_string(entry.join("WHEEL"))
+            .ok()
+            .is_some_and(|w| is_pure_wheel(&w));
+        if !pure {
+            if let Ok(record) = std::fs::read_to_string(entry.join("RECORD")) {
+                files.compiled = record_compiled_paths(&record);
+                files.compiled.sort();
+            }
         }
         d.compiled = !files.compiled.is_empty();
     }
@@ -409,10 +415,10 @@ pub fn collect(
     sites.extend(located.sites.iter().cloned());
     let sites = with_pth_paths(sites);
 
-    let mut distributions = Vec::new();
-    let mut files = Vec::new();
+    // Metadata folders of every site, in search order.
+    let mut entries: Vec<(&PathBuf, PathBuf)> = Vec::new();
     for site in &sites {
-        let mut entries: Vec<PathBuf> = std::fs::read_dir(site)
+        let mut found: Vec<PathBuf> = std::fs::read_dir(site)
             .into_iter()
             .flatten()
             .flatten()
@@ -424,12 +430,41 @@ pub fn collect(
                 })
             })
             .collect();
-        entries.sort();
-        for entry in entries {
-            if let Some((d, f)) = read_distribution(site, &entry, private, warnings) {
-                distributions.push(d);
-                files.push(f);
-            }
+        found.sort();
+        entries.extend(found.into_iter().map(|e| (site, e)));
+    }
+    // Reading them is many small system calls; a few threads overlap them.
+    let threads = std::thread::available_parallelism()
+        .map_or(2, |n| n.get())
+        .clamp(2, 8);
+    let chunk = entries.len().div_ceil(threads).max(1);
+    type Found = (Vec<(Distribution, DistFiles)>, Vec<String>);
+    let results: Vec<Found> = std::thread::scope(|s| {
+        let handles: Vec<_> = entries
+            .chunks(chunk)
+            .map(|part| {
+                s.spawn(move || {
+                    let mut w = Vec::new();
+                    let found: Vec<_> = part
+                        .iter()
+                        .filter_map(|(site, e)| read_distribution(site, e, private, &mut w))
+                        .collect();
+                    (found, w)
+                })
+            })
+            .collect();
+        handles
+            .into_iter()
+            .map(|h| h.join().unwrap_or_default())
+            .collect()
+    });
+    let mut distributions = Vec::new();
+    let mut files = Vec::new();
+    for (found, w) in results {
+        warnings.extend(w);
+        for (d, f) in found {
+            distributions.push(d);
+            files.push(f);
         }
     }
     distributions

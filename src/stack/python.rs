@@ -148,6 +148,38 @@ pub fn record_paths(text: &str) -> impl Iterator<Item = String> + '_ {
     })
 }
 
+/// The compiled files a `RECORD` lists. Only the lines holding `.so`, `.pyd` or `.dylib` are
+/// parsed, found with a vectorised substring search: RECORD files of large distributions run
+/// to hundreds of kilobytes.
+pub fn record_compiled_paths(text: &str) -> Vec<String> {
+    let bytes = text.as_bytes();
+    let mut starts = std::collections::BTreeSet::new();
+    for needle in [&b".so"[..], b".pyd", b".dylib"] {
+        for pos in memchr::memmem::find_iter(bytes, needle) {
+            let start = memchr::memrchr(b'\n', &bytes[..pos]).map_or(0, |p| p + 1);
+            starts.insert(start);
+        }
+    }
+    starts
+        .into_iter()
+        .filter_map(|start| {
+            let end = memchr::memchr(b'\n', &bytes[start..]).map_or(bytes.len(), |e| start + e);
+            record_paths(&text[start..end]).next()
+        })
+        .filter(|p| is_compiled_path(p))
+        .collect()
+}
+
+/// True when every `Tag:` line of a wheel's `WHEEL` file names the `any` platform.
+pub fn is_pure_wheel(wheel: &str) -> bool {
+    let mut tags = wheel
+        .lines()
+        .filter_map(|l| l.strip_prefix("Tag:"))
+        .map(str::trim)
+        .peekable();
+    tags.peek().is_some() && tags.all(|t| t.ends_with("-none-any"))
+}
+
 /// True when a path names compiled code: an extension module or shared library.
 pub fn is_compiled_path(p: &str) -> bool {
     let file = p.rsplit('/').next().unwrap_or(p);
@@ -235,11 +267,27 @@ mod tests {
     }
 
     #[test]
+    fn wheel_tags() {
+        // WHEEL files as PEP 427 describes them.
+        assert!(is_pure_wheel(
+            "Wheel-Version: 1.0\nRoot-Is-Purelib: true\nTag: py2-none-any\nTag: py3-none-any\n"
+        ));
+        assert!(!is_pure_wheel(
+            "Wheel-Version: 1.0\nTag: cp311-cp311-manylinux_2_17_x86_64\n"
+        ));
+        assert!(!is_pure_wheel("Wheel-Version: 1.0\n"));
+    }
+
+    #[test]
     fn record_lines() {
         let rec = "numpy/__init__.py,sha256=x,10\n\"odd,name.so\",,\nnumpy.libs/libscipy_openblas64_-32a4b2a6.so,sha256=y,1\n";
         let paths: Vec<String> = record_paths(rec).collect();
         assert_eq!(paths[1], "odd,name.so");
         assert!(paths.iter().filter(|p| is_compiled_path(p)).count() == 2);
+        assert_eq!(
+            record_compiled_paths(rec),
+            vec!["odd,name.so", "numpy.libs/libscipy_openblas64_-32a4b2a6.so"]
+        );
         assert!(is_compiled_path("a/libgomp-e985bcbb.so.1.0.0"));
         assert!(!is_compiled_path("a/so.py"));
     }
