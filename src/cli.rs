@@ -87,6 +87,10 @@ struct StampArgs {
     /// No progress bar.
     #[arg(long, short)]
     quiet: bool,
+    /// A Python interpreter whose installed distributions and native libraries to record
+    /// (repeatable; default: the active virtual or conda environment, else `python3` on PATH).
+    #[arg(long, value_name = "PATH")]
+    python: Vec<PathBuf>,
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -160,6 +164,7 @@ fn run_stamp(args: StampArgs) -> ExitCode {
         rehash: args.rehash,
         progress: !args.quiet && std::io::stderr().is_terminal(),
     };
+    opts.python = args.python;
     let manifest = stamp(&opts);
     for w in &manifest.run.warnings {
         eprintln!("warning: {w}");

@@ -34,3 +34,4 @@ pub mod manifest;
 pub mod redact;
 pub mod report;
 pub mod version;
+pub mod stack;

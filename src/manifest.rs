@@ -81,6 +81,17 @@ pub struct Content {
     /// Declared data inputs (`stamp --data`) and their digests.
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub data: Vec<DataInput>,
+    /// Python interpreters and what is installed in them (one entry per `--python`).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub python: Vec<PythonEnv>,
+    /// BLAS/LAPACK and OpenMP libraries bundled in distributions or on the system, and
+    /// compiled modules that switch the process to flush-to-zero.
+    #[serde(default, skip_serializing_if = "NativeInfo::is_empty")]
+    pub native: NativeInfo,
+    /// The NVIDIA driver, CUDA toolkit and libraries, and the GPUs; `None` in manifests written
+    /// before this section existed.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub gpu: Option<GpuInfo>,
 }
 
 /// One declared data input: a file or a folder.
@@ -288,6 +299,249 @@ pub struct Package {
     /// the format says.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub platform: Option<String>,
+}
+
+/// One Python interpreter and the distributions installed for it.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct PythonEnv {
+    /// The interpreter as given (hashed with `--private`).
+    pub interpreter: String,
+    /// `cpython`, `pypy`…, where it could be told.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub implementation: Option<String>,
+    /// The interpreter's version (`3.11.7`, or `3.11` where only that is known).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub version: Option<String>,
+    /// `venv`, `conda` or `system`.
+    pub kind: String,
+    /// The folders scanned for distributions, in search order (hashed with `--private`).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub site_packages: Vec<String>,
+    /// Installed distributions, sorted by name then version.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub distributions: Vec<Distribution>,
+    /// Packages of a conda environment (`conda-meta/`), including non-Python ones such as
+    /// `libblas` or `cuda-cudart`, sorted by name.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub conda_packages: Vec<CondaPackage>,
+    /// Build facts of numerical frameworks read from their generated files, sorted by name.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub builds: Vec<FrameworkBuild>,
+}
+
+/// One installed Python distribution.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct Distribution {
+    /// PEP 503-normalized name.
+    pub name: String,
+    /// Version as in its metadata.
+    pub version: String,
+    /// The tool that installed it (`pip`, `uv`, `conda`…), from `INSTALLER`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub installer: Option<String>,
+    /// Where it was installed from when not from an index (PEP 610): `path`, `url+URL`,
+    /// `git+URL@COMMIT`…, credentials removed; hashed with `--private` when it holds a path.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub source: Option<String>,
+    /// Installed in editable (development) mode.
+    #[serde(default, skip_serializing_if = "is_false")]
+    pub editable: bool,
+    /// Ships compiled code (extension modules or bundled shared libraries).
+    #[serde(default, skip_serializing_if = "is_false")]
+    pub compiled: bool,
+}
+
+/// One package of a conda environment.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct CondaPackage {
+    /// Package name.
+    pub name: String,
+    /// Version.
+    pub version: String,
+    /// Build string (for `libblas` it names the BLAS implementation).
+    #[serde(default, skip_serializing_if = "String::is_empty")]
+    pub build: String,
+    /// Channel it came from, credentials removed.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub channel: Option<String>,
+}
+
+/// How a framework was built, read from files it generates at build time.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct FrameworkBuild {
+    /// Distribution name (`torch`, `tensorflow`, `jaxlib`, `numpy`, `scipy`).
+    pub name: String,
+    /// The version the build reports (may carry a local label such as `+cu121`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub version: Option<String>,
+    /// CUDA version it was built with; absent for CPU builds.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub cuda: Option<String>,
+    /// cuDNN version it was built with.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub cudnn: Option<String>,
+    /// ROCm/HIP version it was built with.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub rocm: Option<String>,
+    /// Source revision of the build.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub git_revision: Option<String>,
+    /// BLAS it was built against (`scipy-openblas 0.3.27`, `accelerate`…).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub blas: Option<String>,
+    /// The BLAS build configuration as recorded by the build (target core, integer width,
+    /// maximum threads).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub blas_config: Option<String>,
+    /// The file the facts were read from, relative to its site-packages folder.
+    pub from: String,
+}
+
+/// Native numerical libraries and process-wide floating-point switches.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct NativeInfo {
+    /// BLAS/LAPACK and OpenMP libraries, sorted by owner, role and file.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub libraries: Vec<NativeLibrary>,
+    /// Compiled modules whose load-time constructor turns on flush-to-zero and
+    /// denormals-are-zero, sorted.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub fast_math: Vec<FastMathModule>,
+}
+
+impl NativeInfo {
+    /// True when nothing was found.
+    pub fn is_empty(&self) -> bool {
+        self.libraries.is_empty() && self.fast_math.is_empty()
+    }
+}
+
+/// One BLAS/LAPACK or OpenMP library file.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct NativeLibrary {
+    /// `blas` or `openmp`.
+    pub role: String,
+    /// `openblas`, `mkl`, `blis`, `flexiblas`, `reference`, `atlas`, `accelerate` for BLAS;
+    /// `gnu`, `llvm`, `intel` for OpenMP.
+    pub implementation: String,
+    /// The distribution that ships it, or `system`.
+    pub owner: String,
+    /// Where it is: relative to site-packages for a bundled copy, absolute on the system.
+    pub path: String,
+    /// The file's own name after symbolic links are followed.
+    pub file: String,
+    /// Version, when the file or its package says.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub version: Option<String>,
+    /// Where the version came from: `binary`, `file-name`, `metadata`, `header`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub version_source: Option<String>,
+    /// How it runs threads: `pthreads`, `openmp`, `disabled`, `intel`, `gnu`, `tbb`,
+    /// `sequential`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub threading_layer: Option<String>,
+    /// Build options read from the library (e.g. OpenBLAS `USE64BITINT DYNAMIC_ARCH`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub build_config: Option<String>,
+    /// 64-bit integer interface (ILP64).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub ilp64: Option<bool>,
+    /// Built to pick its kernels for the CPU it finds at load time.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub dynamic_arch: Option<bool>,
+    /// Largest thread count it was built for.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub max_threads: Option<u32>,
+    /// The kernel family it will pick on this CPU (predicted for dynamic-architecture builds).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub architecture: Option<String>,
+    /// Compiler or symbol-version facts that stand in for a version (OpenMP runtimes).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub build_hint: Option<String>,
+    /// Distributions whose compiled modules link this file, sorted.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub used_by: Vec<String>,
+}
+
+/// A compiled module built with fast-math start-up code.
+#[derive(Debug, Clone, Default, PartialEq, Eq, PartialOrd, Ord, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct FastMathModule {
+    /// The distribution that ships it.
+    pub owner: String,
+    /// Path relative to site-packages.
+    pub path: String,
+}
+
+/// The GPU stack. Every field is optional: a machine without a GPU records an empty section.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct GpuInfo {
+    /// NVIDIA kernel driver version; absent when no driver is loaded.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub nvidia_driver: Option<String>,
+    /// CUDA toolkits found, sorted by path.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub cuda_toolkits: Vec<CudaToolkit>,
+    /// cuDNN, cuBLAS, NCCL and CUDA runtime copies found (toolkit, system and wheels), sorted.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub libraries: Vec<GpuLibrary>,
+    /// The GPUs, sorted by bus id.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub devices: Vec<GpuDevice>,
+}
+
+/// One CUDA toolkit installation.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct CudaToolkit {
+    /// Its folder.
+    pub path: String,
+    /// The toolkit version (`cuda` in `version.json`, or `version.txt`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub version: Option<String>,
+    /// The runtime (cudart) version.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub runtime: Option<String>,
+    /// The compiler (nvcc) version.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub nvcc: Option<String>,
+}
+
+/// One copy of a CUDA library.
+#[derive(Debug, Clone, Default, PartialEq, Eq, PartialOrd, Ord, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct GpuLibrary {
+    /// `cudart`, `cudnn`, `cublas` or `nccl`.
+    pub name: String,
+    /// Version.
+    pub version: String,
+    /// The distribution that ships it, `toolkit` or `system`.
+    pub owner: String,
+    /// Where the version was read (header, file name, metadata, binary).
+    pub from: String,
+}
+
+/// One GPU.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct GpuDevice {
+    /// PCI bus id.
+    pub bus_id: String,
+    /// Model name.
+    pub model: String,
+    /// Memory in MiB, when known.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub memory_mib: Option<u64>,
+    /// Compute capability (`9.0`), when known.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub compute_capability: Option<String>,
 }
 
 fn is_false(b: &bool) -> bool {

@@ -11,7 +11,10 @@ pub mod cpu;
 pub mod data;
 pub mod env;
 pub mod git;
+pub mod gpu;
 pub mod lockfiles;
+pub mod native;
+pub mod python;
 pub mod system;
 
 use std::collections::BTreeMap;
@@ -37,6 +40,9 @@ pub struct StampOptions {
     pub no_lockfiles: bool,
     /// Declared data inputs and how to digest them.
     pub data: data::DataOptions,
+    /// Python interpreters to describe (`--python`); empty means the active environment or
+    /// `python3` on `PATH`.
+    pub python: Vec<PathBuf>,
 }
 
 impl StampOptions {
@@ -57,7 +63,55 @@ impl StampOptions {
             extra_lockfiles: Vec::new(),
             no_lockfiles: false,
             data: data::DataOptions::default(),
+            python: Vec::new(),
         }
+    }
+}
+
+/// The numerical stack: Python environments, native libraries, GPU. With `RUNPRINT_TIMINGS`
+/// set, each part's duration goes to stderr (used by `benches/stack.sh`).
+fn stamp_stack(opts: &StampOptions, content: &mut Content, warnings: &mut Vec<String>) {
+    let timings = opts.env.contains_key("RUNPRINT_TIMINGS");
+    let start = std::time::Instant::now();
+    let (interpreters, explicit) = if opts.python.is_empty() {
+        (
+            python::default_interpreter(&opts.env).into_iter().collect(),
+            false,
+        )
+    } else {
+        (opts.python.clone(), true)
+    };
+    let mut scans = Vec::new();
+    for interpreter in &interpreters {
+        match python::collect(interpreter, &opts.env, opts.private, warnings) {
+            Ok(scan) => scans.push(scan),
+            // A default interpreter that cannot be read is not worth a warning; a named one is.
+            Err(e) if explicit => warnings.push(format!("python: {e}")),
+            Err(_) => {}
+        }
+    }
+    content.python = scans.iter().map(|s| s.env.clone()).collect();
+    let python_done = std::time::Instant::now();
+    content.native = native::collect(
+        &scans,
+        &opts.env,
+        opts.private,
+        &native::SystemPaths::host(),
+        warnings,
+    );
+    let native_done = std::time::Instant::now();
+    content.gpu = Some(gpu::collect(
+        &gpu::GpuPaths::host(&opts.env),
+        &scans,
+        warnings,
+    ));
+    if timings {
+        eprintln!(
+            "timing: python {:.3} ms, native {:.3} ms, gpu {:.3} ms",
+            (python_done - start).as_secs_f64() * 1e3,
+            (native_done - python_done).as_secs_f64() * 1e3,
+            native_done.elapsed().as_secs_f64() * 1e3
+        );
     }
 }
 
@@ -92,6 +146,7 @@ pub fn stamp(opts: &StampOptions) -> Manifest {
     }
 
     content.data = data::collect(&opts.data, &root, opts.private, &mut warnings);
+    stamp_stack(opts, &mut content, &mut warnings);
 
     let run = RunInfo {
         tool_version: env!("CARGO_PKG_VERSION").to_string(),

@@ -6,6 +6,7 @@
 //! for a retrain.
 
 pub mod rules;
+pub mod stack;
 
 use std::collections::{BTreeMap, BTreeSet};
 use std::path::Path;
@@ -189,6 +190,7 @@ pub fn compare(
     compare_cpu(&old.content, &new.content, &mut changes);
     compare_system(&old.content, &new.content, &mut changes);
     compare_run(old, new, &mut changes);
+    stack::compare(&old.content, &new.content, &mut changes);
     sort_changes(&mut changes);
     Report {
         verdict: changes

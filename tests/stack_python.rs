@@ -1,0 +1,228 @@
+//! The numerical stack of a real Python environment, checked against the reference
+//! libraries that import it: `importlib.metadata` (what is installed) and threadpoolctl
+//! (which BLAS/OpenMP libraries load, their versions, threading layers and kernels).
+//!
+//! `.ci/run` creates the environments and exports their interpreters:
+//! * `RUNPRINT_TEST_STACK_PYTHON`: numpy, scipy, scikit-learn, threadpoolctl from PyPI;
+//! * `RUNPRINT_TEST_STACK_PYTHON_OLD`: numpy 1.26 and threadpoolctl.
+//!
+//! Unset: the tests print why and return. Set but unusable: they fail.
+
+use std::path::{Path, PathBuf};
+use std::process::Command;
+
+use assert_cmd::cargo::CommandCargoExt;
+use serde_json::Value;
+
+fn interpreter(var: &str) -> Option<PathBuf> {
+    match std::env::var_os(var) {
+        Some(p) => {
+            let p = PathBuf::from(p);
+            assert!(
+                p.exists(),
+                "{var} is set to `{}`, which does not exist",
+                p.display()
+            );
+            Some(p)
+        }
+        None => {
+            eprintln!("skipped: {var} is not set (.ci/run sets it)");
+            None
+        }
+    }
+}
+
+/// Runs Python code in the interpreter and parses its JSON output.
+fn python_json(python: &Path, code: &str, coretype: Option<&str>) -> Value {
+    let mut cmd = Command::new(python);
+    cmd.args(["-c", code]);
+    match coretype {
+        Some(c) => cmd.env("OPENBLAS_CORETYPE", c),
+        None => cmd.env_remove("OPENBLAS_CORETYPE"),
+    };
+    let out = cmd.output().expect("run the reference interpreter");
+    assert!(
+        out.status.success(),
+        "reference interpreter failed: {}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    serde_json::from_slice(&out.stdout).expect("reference printed JSON")
+}
+
+/// `runprint stamp --python` as JSON.
+fn stamp(python: &Path, coretype: Option<&str>) -> Value {
+    let repo = tempfile::tempdir().unwrap();
+    let mut cmd = Command::cargo_bin("runprint").unwrap();
+    cmd.args(["stamp", "--format", "json", "--python"])
+        .arg(python)
+        .arg("--repo")
+        .arg(repo.path());
+    match coretype {
+        Some(c) => cmd.env("OPENBLAS_CORETYPE", c),
+        None => cmd.env_remove("OPENBLAS_CORETYPE"),
+    };
+    let out = cmd.output().unwrap();
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let v: Value = serde_json::from_slice(&out.stdout).unwrap();
+    let warnings = v["run"]["warnings"].as_array().cloned().unwrap_or_default();
+    assert!(
+        !warnings
+            .iter()
+            .any(|w| w.as_str().unwrap_or("").starts_with("python")
+                || w.as_str().unwrap_or("").starts_with("native")),
+        "stack warnings: {warnings:?}"
+    );
+    v
+}
+
+#[test]
+fn distributions_equal_importlib_metadata() {
+    let Some(python) = interpreter("RUNPRINT_TEST_STACK_PYTHON") else {
+        return;
+    };
+    // Reference: importlib.metadata in the same interpreter; names normalized with the
+    // regular expression PEP 503 gives (`re.sub(r"[-_.]+", "-", name).lower()`).
+    let reference = python_json(
+        &python,
+        "import importlib.metadata as m, json, re\n\
+         print(json.dumps(sorted([re.sub(r'[-_.]+', '-', d.metadata['Name']).lower(), d.version] for d in m.distributions())))",
+        None,
+    );
+    let manifest = stamp(&python, None);
+    let mut ours: Vec<Value> = manifest["python"][0]["distributions"]
+        .as_array()
+        .expect("a python section with distributions")
+        .iter()
+        .map(|d| serde_json::json!([d["name"], d["version"]]))
+        .collect();
+    ours.sort_by_key(|v| v.to_string());
+    let mut theirs = reference.as_array().unwrap().clone();
+    theirs.sort_by_key(|v| v.to_string());
+    assert!(theirs.len() >= 5, "reference lists too little: {theirs:?}");
+    assert_eq!(ours, theirs);
+}
+
+/// threadpoolctl's view after importing the packages that load BLAS and OpenMP.
+const THREADPOOLCTL: &str =
+    "import json, numpy, scipy.linalg, sklearn.utils._openmp_helpers, threadpoolctl\n\
+                             print(json.dumps(threadpoolctl.threadpool_info()))";
+
+fn check_against_threadpoolctl(python: &Path, coretype: Option<&str>) {
+    let reference = python_json(python, THREADPOOLCTL, coretype);
+    let manifest = stamp(python, coretype);
+    let ours = manifest["native"]["libraries"]
+        .as_array()
+        .expect("native libraries");
+    let entries = reference.as_array().unwrap();
+    assert!(
+        entries.len() >= 2,
+        "threadpoolctl found too little: {reference}"
+    );
+    for entry in entries {
+        let file = Path::new(entry["filepath"].as_str().unwrap())
+            .file_name()
+            .unwrap()
+            .to_string_lossy()
+            .into_owned();
+        let lib = ours
+            .iter()
+            .find(|l| l["file"] == file.as_str())
+            .unwrap_or_else(|| panic!("runprint did not find {file}; it found {ours:#?}"));
+        match entry["user_api"].as_str().unwrap() {
+            "openmp" => assert_eq!(lib["role"], "openmp", "{file}"),
+            _ => {
+                assert_eq!(lib["role"], "blas", "{file}");
+                assert_eq!(lib["implementation"], entry["internal_api"], "{file}");
+            }
+        }
+        // threadpoolctl reports `null` for OpenMP versions; runprint leaves it out.
+        assert_eq!(
+            lib.get("version").unwrap_or(&Value::Null),
+            &entry["version"],
+            "version of {file}"
+        );
+        if let Some(layer) = entry.get("threading_layer") {
+            assert_eq!(lib["threading-layer"], *layer, "threading layer of {file}");
+        }
+        if let Some(arch) = entry.get("architecture") {
+            match coretype {
+                // Forced by the variable: runprint must say which kernels will run.
+                Some(_) => assert_eq!(lib["architecture"], *arch, "architecture of {file}"),
+                // Chosen at load time from the CPU by a dynamic-architecture build: runprint
+                // records the inputs (CPU, build) and must not claim a family.
+                None => assert!(
+                    lib.get("architecture").is_none() || lib["architecture"] == *arch,
+                    "{file}: claimed {} but threadpoolctl saw {arch}",
+                    lib["architecture"]
+                ),
+            }
+        }
+    }
+}
+
+#[test]
+fn blas_and_openmp_equal_threadpoolctl() {
+    let Some(python) = interpreter("RUNPRINT_TEST_STACK_PYTHON") else {
+        return;
+    };
+    check_against_threadpoolctl(&python, Some("Haswell"));
+    check_against_threadpoolctl(&python, Some("sandybridge"));
+    check_against_threadpoolctl(&python, None);
+}
+
+#[test]
+fn numpy_major_change_is_a_retrain_naming_numpy_and_its_blas() {
+    let (Some(new), Some(old)) = (
+        interpreter("RUNPRINT_TEST_STACK_PYTHON"),
+        interpreter("RUNPRINT_TEST_STACK_PYTHON_OLD"),
+    ) else {
+        return;
+    };
+    // Reference versions: importlib.metadata for numpy, threadpoolctl for its BLAS.
+    let facts = |python: &Path| {
+        python_json(
+            python,
+            "import json, importlib.metadata as m, numpy, threadpoolctl\n\
+             info = [i for i in threadpoolctl.threadpool_info() if '/numpy' in i['filepath']]\n\
+             print(json.dumps([m.version('numpy'), info[0]['version']]))",
+            None,
+        )
+    };
+    let (of, nf) = (facts(&old), facts(&new));
+    let dir = tempfile::tempdir().unwrap();
+    for (name, python) in [("old.json", &old), ("new.json", &new)] {
+        let v = stamp(python, None);
+        std::fs::write(dir.path().join(name), v.to_string()).unwrap();
+    }
+    let out = Command::cargo_bin("runprint")
+        .unwrap()
+        .args(["diff", "old.json", "new.json"])
+        .current_dir(dir.path())
+        .output()
+        .unwrap();
+    let text = String::from_utf8_lossy(&out.stdout);
+    assert_eq!(out.status.code(), Some(4), "{text}");
+    let line = |needle: &str| {
+        text.lines()
+            .find(|l| l.contains(needle))
+            .unwrap_or_else(|| panic!("no `{needle}` line in:\n{text}"))
+            .to_string()
+    };
+    let numpy = line("python: numpy ");
+    assert!(numpy.starts_with("retrain"), "{numpy}");
+    assert!(
+        numpy.contains(of[0].as_str().unwrap()) && numpy.contains(nf[0].as_str().unwrap()),
+        "{numpy}"
+    );
+    if of[1] != nf[1] {
+        let blas = line("numpy BLAS ");
+        assert!(
+            blas.contains(of[1].as_str().unwrap()) && blas.contains(nf[1].as_str().unwrap()),
+            "{blas}"
+        );
+    }
+}
