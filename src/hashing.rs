@@ -16,22 +16,29 @@ pub const BLOCK: usize = 1 << 20;
 /// Hex SHA-256 and size of a file's content, read in blocks. `on_bytes` is called after each
 /// block with its length (for progress bars).
 pub fn sha256_file(path: &Path, on_bytes: &dyn Fn(u64)) -> std::io::Result<(String, u64)> {
-    let mut file = std::fs::File::open(path)?;
-    let mut hasher = Sha256::new();
-    let mut buf = vec![0u8; BLOCK];
-    let mut total = 0u64;
-    loop {
-        let n = match file.read(&mut buf) {
-            Ok(0) => break,
-            Ok(n) => n,
-            Err(e) if e.kind() == std::io::ErrorKind::Interrupted => continue,
-            Err(e) => return Err(e),
-        };
-        hasher.update(&buf[..n]);
-        total += n as u64;
-        on_bytes(n as u64);
+    thread_local! {
+        // One block buffer per thread, reused across files: allocating and zeroing a fresh
+        // megabyte per file would cost more than hashing a small file.
+        static BUF: std::cell::RefCell<Vec<u8>> = std::cell::RefCell::new(vec![0u8; BLOCK]);
     }
-    Ok((hex(&hasher.finalize()), total))
+    let mut file = std::fs::File::open(path)?;
+    BUF.with(|buf| {
+        let mut buf = buf.borrow_mut();
+        let mut hasher = Sha256::new();
+        let mut total = 0u64;
+        loop {
+            let n = match file.read(&mut buf) {
+                Ok(0) => break,
+                Ok(n) => n,
+                Err(e) if e.kind() == std::io::ErrorKind::Interrupted => continue,
+                Err(e) => return Err(e),
+            };
+            hasher.update(&buf[..n]);
+            total += n as u64;
+            on_bytes(n as u64);
+        }
+        Ok((hex(&hasher.finalize()), total))
+    })
 }
 
 /// Hex SHA-256 of bytes in memory.

@@ -33,5 +33,5 @@ pub mod lockfile;
 pub mod manifest;
 pub mod redact;
 pub mod report;
-pub mod version;
 pub mod stack;
+pub mod version;

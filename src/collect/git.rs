@@ -178,6 +178,13 @@ fn submodules(repo: &Repository) -> Vec<Submodule> {
     subs
 }
 
+/// The work tree of the repository that contains `dir`, if any.
+pub fn workdir(dir: &Path) -> Option<PathBuf> {
+    Repository::discover(dir)
+        .ok()
+        .and_then(|r| r.workdir().map(Path::to_path_buf))
+}
+
 /// Paths changed between two commits of the repository that contains `dir`, or `None` when
 /// either commit is not in that repository (a shallow clone, another repository).
 pub fn changed_between(dir: &Path, old: &str, new: &str) -> Option<Vec<String>> {

@@ -115,38 +115,91 @@ fn stamp_stack(opts: &StampOptions, content: &mut Content, warnings: &mut Vec<St
     }
 }
 
-/// Runs every collector and builds the manifest. Failures are recorded in `run.warnings`.
-pub fn stamp(opts: &StampOptions) -> Manifest {
-    let mut warnings = Vec::new();
-    let mut content = Content::default();
+/// Runs `f`, printing its duration on stderr when `RUNPRINT_TIMINGS` is set.
+fn timed<T>(on: bool, name: &str, f: impl FnOnce() -> T) -> T {
+    let start = std::time::Instant::now();
+    let out = f();
+    if on {
+        eprintln!(
+            "timing: {name} {:.3} ms",
+            start.elapsed().as_secs_f64() * 1e3
+        );
+    }
+    out
+}
 
-    let mut root = opts.repo.clone();
-    match git::collect(&opts.repo, opts.private) {
-        Ok(facts) => {
-            content.git = facts.info;
-            if let Some(w) = facts.workdir {
-                root = w;
-            }
-        }
+/// Runs every collector and builds the manifest. Failures are recorded in `run.warnings`.
+///
+/// The independent collectors (git status, lockfiles, data digests, the numerical stack) run
+/// concurrently; each keeps its own warnings, merged afterwards in a fixed order so that the
+/// manifest does not depend on scheduling.
+pub fn stamp(opts: &StampOptions) -> Manifest {
+    let t = opts.env.contains_key("RUNPRINT_TIMINGS");
+    let root = git::workdir(&opts.repo).unwrap_or_else(|| opts.repo.clone());
+    let mut content = Content::default();
+    let (
+        (git_result, (lockfiles, lock_warnings)),
+        ((data, data_warnings), (stack, stack_warnings)),
+    ) = rayon::join(
+        || {
+            rayon::join(
+                || timed(t, "git", || git::collect(&opts.repo, opts.private)),
+                || {
+                    let mut w = Vec::new();
+                    let l = if opts.no_lockfiles {
+                        Vec::new()
+                    } else {
+                        timed(t, "lockfiles", || {
+                            lockfiles::collect_with(
+                                &root,
+                                &opts.extra_lockfiles,
+                                opts.data.cache_dir.as_deref(),
+                                &mut w,
+                            )
+                        })
+                    };
+                    (l, w)
+                },
+            )
+        },
+        || {
+            rayon::join(
+                || {
+                    let mut w = Vec::new();
+                    let d = timed(t, "data", || {
+                        data::collect(&opts.data, &root, opts.private, &mut w)
+                    });
+                    (d, w)
+                },
+                || {
+                    let mut w = Vec::new();
+                    let mut c = Content::default();
+                    stamp_stack(opts, &mut c, &mut w);
+                    (c, w)
+                },
+            )
+        },
+    );
+
+    let mut warnings = Vec::new();
+    match git_result {
+        Ok(facts) => content.git = facts.info,
         Err(e) => warnings.push(e),
     }
-    content.system = system::collect();
-    match cpu::collect() {
+    content.system = timed(t, "system", system::collect);
+    match timed(t, "cpu", cpu::collect) {
         Ok(c) => content.cpu = c,
         Err(e) => warnings.push(format!("cpu: {e}")),
     }
     content.env = env::collect(&opts.env, opts.private);
-    if !opts.no_lockfiles {
-        content.lockfiles = lockfiles::collect_with(
-            &root,
-            &opts.extra_lockfiles,
-            opts.data.cache_dir.as_deref(),
-            &mut warnings,
-        );
-    }
-
-    content.data = data::collect(&opts.data, &root, opts.private, &mut warnings);
-    stamp_stack(opts, &mut content, &mut warnings);
+    content.lockfiles = lockfiles;
+    content.data = data;
+    content.python = stack.python;
+    content.native = stack.native;
+    content.gpu = stack.gpu;
+    warnings.extend(lock_warnings);
+    warnings.extend(data_warnings);
+    warnings.extend(stack_warnings);
 
     let run = RunInfo {
         tool_version: env!("CARGO_PKG_VERSION").to_string(),

@@ -98,10 +98,107 @@ pub fn locate(interpreter: &Path, env: &BTreeMap<String, String>) -> Result<Loca
     if !interpreter.exists() {
         return Err(format!("`{}` does not exist", interpreter.display()));
     }
-    if let Some(located) = locate_static(&interpreter) {
+    let interpreter = resolve_pyenv_shim(&interpreter, env).unwrap_or(interpreter);
+    if let Some(located) =
+        locate_static(&interpreter).or_else(|| locate_prefix_install(&interpreter, env))
+    {
         return Ok(located);
     }
     ask_interpreter(&interpreter)
+}
+
+/// The interpreter behind a pyenv shim (`<root>/shims/python3`), chosen as pyenv documents it
+/// ("Choosing the Python version" in pyenv's README): `PYENV_VERSION` (its first entry), else
+/// the nearest `.python-version` file from the current folder upwards, else
+/// `<root>/version`. `None` for anything else, or for the `system` choice.
+fn resolve_pyenv_shim(interpreter: &Path, env: &BTreeMap<String, String>) -> Option<PathBuf> {
+    let shims = interpreter.parent()?;
+    if shims.file_name()? != "shims" {
+        return None;
+    }
+    let root = shims.parent()?;
+    let first_word = |text: &str| -> Option<String> {
+        text.split(|c: char| c.is_whitespace() || c == ':')
+            .find(|w| !w.is_empty() && !w.starts_with('#'))
+            .map(str::to_string)
+    };
+    let version = env
+        .get("PYENV_VERSION")
+        .and_then(|v| first_word(v))
+        .or_else(|| {
+            let cwd = std::env::current_dir().ok()?;
+            cwd.ancestors()
+                .find_map(|d| std::fs::read_to_string(d.join(".python-version")).ok())
+                .and_then(|t| first_word(&t))
+        })
+        .or_else(|| {
+            std::fs::read_to_string(root.join("version"))
+                .ok()
+                .and_then(|t| first_word(&t))
+        })?;
+    if version == "system" {
+        return None;
+    }
+    let real = root
+        .join("versions")
+        .join(&version)
+        .join("bin")
+        .join(interpreter.file_name()?);
+    real.is_file().then_some(real)
+}
+
+/// A CPython installed under its own prefix (`<prefix>/bin/python3.X` with the standard library
+/// in `<prefix>/lib/python3.X/`, as `make install`, pyenv and python.org builds lay it out):
+/// `sys.path`'s package folders are the user site (unless `PYTHONNOUSERSITE`) and
+/// `<prefix>/lib/python3.X/site-packages` (the `site` module's documentation). Distribution
+/// layouts under `/usr`, with their own `dist-packages` rules, are left to the interpreter.
+fn locate_prefix_install(interpreter: &Path, env: &BTreeMap<String, String>) -> Option<Located> {
+    let prefix = interpreter.parent()?.parent()?.to_path_buf();
+    if prefix == Path::new("/usr") || prefix == Path::new("/") {
+        return None;
+    }
+    let (mm, lib) = lib_python_dirs(&prefix).pop()?;
+    if !lib.join("os.py").is_file() {
+        return None;
+    }
+    // The full version from the installed header (`#define PY_VERSION "3.11.7"`).
+    let version = std::fs::read_to_string(
+        prefix
+            .join("include")
+            .join(format!("python{mm}"))
+            .join("patchlevel.h"),
+    )
+    .ok()
+    .and_then(|h| {
+        h.lines().find_map(|l| {
+            let rest = l.trim().strip_prefix("#define PY_VERSION")?.trim();
+            rest.starts_with('"')
+                .then(|| rest.trim_matches('"').to_string())
+        })
+    })
+    .unwrap_or_else(|| mm.clone());
+    let mut sites = Vec::new();
+    if env.get("PYTHONNOUSERSITE").is_none_or(|v| v.is_empty()) {
+        let base = env
+            .get("PYTHONUSERBASE")
+            .map(PathBuf::from)
+            .or_else(|| env.get("HOME").map(|h| Path::new(h).join(".local")));
+        if let Some(base) = base {
+            sites.push(
+                base.join("lib")
+                    .join(format!("python{mm}"))
+                    .join("site-packages"),
+            );
+        }
+    }
+    sites.push(lib.join("site-packages"));
+    Some(Located {
+        kind: "system".into(),
+        implementation: implementation_of(interpreter),
+        version: Some(version),
+        prefix: Some(prefix),
+        sites: sites.into_iter().filter(|s| s.is_dir()).collect(),
+    })
 }
 
 /// `<prefix>/lib/python<X.Y>` folders under a prefix, newest last.
@@ -595,6 +692,41 @@ mod tests {
     fn write(p: &Path, text: &str) {
         std::fs::create_dir_all(p.parent().unwrap()).unwrap();
         std::fs::write(p, text).unwrap();
+    }
+
+    #[test]
+    fn a_pyenv_shim_resolves_to_its_prefix_install_without_running_anything() {
+        // Layout as pyenv creates it: `<root>/shims/python3` and
+        // `<root>/versions/<v>/{bin,lib/python3.X,include/python3.X}` (pyenv README).
+        let root = tempfile::tempdir().unwrap();
+        let r = root.path();
+        write(&r.join("shims/python3"), "#!/bin/sh\nexit 1\n");
+        let prefix = r.join("versions/3.11.7");
+        write(&prefix.join("bin/python3"), "");
+        write(&prefix.join("lib/python3.11/os.py"), "");
+        write(
+            &prefix.join("lib/python3.11/site-packages/pkg-1.0.dist-info/METADATA"),
+            "Name: pkg\nVersion: 1.0\n",
+        );
+        write(
+            &prefix.join("include/python3.11/patchlevel.h"),
+            "#define PY_VERSION              \"3.11.7\"\n",
+        );
+        let mut env = BTreeMap::new();
+        env.insert("PYENV_VERSION".to_string(), "3.11.7:3.10.13".to_string());
+        env.insert(
+            "HOME".to_string(),
+            r.join("home").to_string_lossy().into_owned(),
+        );
+        let located = locate(&r.join("shims/python3"), &env).unwrap();
+        assert_eq!(located.version.as_deref(), Some("3.11.7"));
+        assert_eq!(located.kind, "system");
+        assert_eq!(
+            located.sites,
+            vec![prefix.join("lib/python3.11/site-packages")]
+        );
+        env.insert("PYENV_VERSION".to_string(), "system".to_string());
+        assert!(resolve_pyenv_shim(&r.join("shims/python3"), &env).is_none());
     }
 
     #[test]
