@@ -6,11 +6,13 @@
 //! returning the section and pushing warnings), add its section to
 //! [`crate::manifest::Content`], call it here, and teach [`crate::diff`] to compare it.
 
+pub mod at_rev;
 pub mod cpu;
 pub mod data;
 pub mod env;
 pub mod git;
 pub mod lockfiles;
+pub mod patch;
 pub mod system;
 
 use std::collections::BTreeMap;
@@ -36,6 +38,9 @@ pub struct StampOptions {
     pub no_lockfiles: bool,
     /// Declared data inputs and how to digest them.
     pub data: data::DataOptions,
+    /// Store the uncommitted change as a patch, leaving out files above this many bytes
+    /// (`stamp --keep-patch`); `None`: do not store it.
+    pub keep_patch: Option<u64>,
 }
 
 impl StampOptions {
@@ -56,6 +61,7 @@ impl StampOptions {
             extra_lockfiles: Vec::new(),
             no_lockfiles: false,
             data: data::DataOptions::default(),
+            keep_patch: None,
         }
     }
 }
@@ -74,6 +80,9 @@ pub fn stamp(opts: &StampOptions) -> Manifest {
             }
         }
         Err(e) => warnings.push(e),
+    }
+    if let Some(cap) = opts.keep_patch.filter(|_| content.git.dirty) {
+        content.git.patch = patch::collect(&root, cap, &mut warnings);
     }
     content.system = system::collect();
     match cpu::collect() {
