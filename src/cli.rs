@@ -47,22 +47,37 @@ enum Command {
     /// Compare two manifests and explain which differences need a retrain.
     #[command(after_help = EXIT_CODES)]
     Diff(DiffArgs),
+    /// Compare a baseline manifest with the current environment, or with a git revision.
+    #[command(after_help = EXIT_CODES)]
+    Check(CheckArgs),
+    /// Compare the manifests of many nodes (or runs): groups, the majority, the odd ones out.
+    #[command(after_help = EXIT_CODES)]
+    Fleet(FleetArgs),
+    /// Print the shell steps back to a manifest's environment (prints only, runs nothing).
+    Recreate(RecreateArgs),
 }
 
 #[derive(Debug, clap::Args)]
 struct StampArgs {
-    /// A folder inside the checkout to stamp.
-    #[arg(long, value_name = "DIR", default_value = ".")]
-    repo: PathBuf,
-    /// A note stored with the manifest (not part of the fingerprint).
-    #[arg(long, value_name = "TEXT")]
-    label: Option<String>,
+    #[command(flatten)]
+    collect: CollectArgs,
     /// Write the manifest to FILE (atomically) instead of stdout.
     #[arg(long, short, value_name = "FILE")]
     out: Option<PathBuf>,
     /// Manifest format.
     #[arg(long, value_enum, default_value_t = StampFormat::Toml)]
     format: StampFormat,
+}
+
+/// What to collect: shared by `stamp` and `check`.
+#[derive(Debug, clap::Args)]
+struct CollectArgs {
+    /// A folder inside the checkout to stamp.
+    #[arg(long, value_name = "DIR", default_value = ".")]
+    repo: PathBuf,
+    /// A note stored with the manifest (not part of the fingerprint).
+    #[arg(long, value_name = "TEXT")]
+    label: Option<String>,
     /// Exit 2 and write nothing when any collector fails.
     #[arg(long)]
     strict: bool,
@@ -91,6 +106,12 @@ struct StampArgs {
     /// (repeatable; default: the active virtual or conda environment, else `python3` on PATH).
     #[arg(long, value_name = "PATH")]
     python: Vec<PathBuf>,
+    /// Also store the uncommitted change itself (a git-style patch of tracked edits and
+    /// untracked files), so that `runprint recreate` can print it. Off by default: the patch
+    /// is code and goes into the manifest. Files above BYTES (default 1 MiB) are left out, and
+    /// a patch that looks like it holds a credential is not stored.
+    #[arg(long, value_name = "BYTES", num_args = 0..=1, default_missing_value = "1048576")]
+    keep_patch: Option<u64>,
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -117,6 +138,48 @@ struct DiffArgs {
     verbose: bool,
 }
 
+#[derive(Debug, clap::Args)]
+struct CheckArgs {
+    /// The baseline manifest, e.g. the one stored beside the production model.
+    #[arg(long, value_name = "FILE")]
+    baseline: PathBuf,
+    /// Compare with this git revision (branch, tag or commit) of the repository at `--repo`,
+    /// read from git without a checkout: commit, submodules and lockfiles only.
+    #[arg(long, value_name = "REV")]
+    rev: Option<String>,
+    /// Also write the new manifest to FILE (atomically).
+    #[arg(long, value_name = "FILE", conflicts_with = "rev")]
+    save: Option<PathBuf>,
+    /// Report format.
+    #[arg(long, value_enum, default_value_t = DiffFormat::Text)]
+    format: DiffFormat,
+    /// Also show a compact diff of each changed lockfile's package list.
+    #[arg(long, short)]
+    verbose: bool,
+    #[command(flatten)]
+    collect: CollectArgs,
+}
+
+#[derive(Debug, clap::Args)]
+struct FleetArgs {
+    /// Manifest files, or folders whose `.toml` and `.json` files are read.
+    #[arg(required = true, value_name = "FILE|DIR")]
+    inputs: Vec<PathBuf>,
+    /// Report format.
+    #[arg(long, value_enum, default_value_t = DiffFormat::Text)]
+    format: DiffFormat,
+    /// A git repository holding the nodes' commits, to list the files changed between them
+    /// (default: the current folder's repository).
+    #[arg(long, value_name = "DIR")]
+    repo: Option<PathBuf>,
+}
+
+#[derive(Debug, clap::Args)]
+struct RecreateArgs {
+    /// The manifest whose environment to describe.
+    manifest: PathBuf,
+}
+
 #[derive(Debug, Clone, Copy, ValueEnum)]
 enum DiffFormat {
     Text,
@@ -130,6 +193,9 @@ pub fn main() -> ExitCode {
     match cli.command {
         Command::Stamp(args) => run_stamp(args),
         Command::Diff(args) => run_diff(args),
+        Command::Check(args) => run_check(args),
+        Command::Fleet(args) => run_fleet(args),
+        Command::Recreate(args) => run_recreate(args),
     }
 }
 
@@ -147,34 +213,52 @@ fn emit(text: &str) -> Result<(), std::io::Error> {
     }
 }
 
+impl CollectArgs {
+    /// The stamping options these arguments ask for.
+    fn options(self) -> StampOptions {
+        let mut opts = StampOptions::new(&self.repo);
+        opts.label = self.label;
+        opts.private = self.private;
+        opts.extra_lockfiles = self.lockfile;
+        opts.no_lockfiles = self.no_lockfiles;
+        opts.keep_patch = self.keep_patch;
+        opts.python = self.python;
+        opts.data = crate::collect::data::DataOptions {
+            cache_dir: self
+                .cache
+                .or_else(|| crate::cache::DigestCache::default_dir(&opts.env)),
+            paths: self.data,
+            rehash: self.rehash,
+            progress: !self.quiet && std::io::stderr().is_terminal(),
+        };
+        opts
+    }
+
+    /// Stamps, printing warnings; `Err` carries the exit code when `--strict` refuses.
+    fn stamp(self) -> Result<Manifest, ExitCode> {
+        if !self.repo.is_dir() {
+            return Err(fail(format!("`{}` is not a folder", self.repo.display())));
+        }
+        let strict = self.strict;
+        let manifest = stamp(&self.options());
+        for w in &manifest.run.warnings {
+            eprintln!("warning: {w}");
+        }
+        if strict && !manifest.run.warnings.is_empty() {
+            return Err(fail(format!(
+                "{} collector problem(s) and --strict was given; no manifest written",
+                manifest.run.warnings.len()
+            )));
+        }
+        Ok(manifest)
+    }
+}
+
 fn run_stamp(args: StampArgs) -> ExitCode {
-    if !args.repo.is_dir() {
-        return fail(format!("`{}` is not a folder", args.repo.display()));
-    }
-    let mut opts = StampOptions::new(&args.repo);
-    opts.label = args.label;
-    opts.private = args.private;
-    opts.extra_lockfiles = args.lockfile;
-    opts.no_lockfiles = args.no_lockfiles;
-    opts.data = crate::collect::data::DataOptions {
-        cache_dir: args
-            .cache
-            .or_else(|| crate::cache::DigestCache::default_dir(&opts.env)),
-        paths: args.data,
-        rehash: args.rehash,
-        progress: !args.quiet && std::io::stderr().is_terminal(),
+    let manifest = match args.collect.stamp() {
+        Ok(m) => m,
+        Err(code) => return code,
     };
-    opts.python = args.python;
-    let manifest = stamp(&opts);
-    for w in &manifest.run.warnings {
-        eprintln!("warning: {w}");
-    }
-    if args.strict && !manifest.run.warnings.is_empty() {
-        return fail(format!(
-            "{} collector problem(s) and --strict was given; no manifest written",
-            manifest.run.warnings.len()
-        ));
-    }
     let format = match args.format {
         StampFormat::Toml => ManifestFormat::Toml,
         StampFormat::Json => ManifestFormat::Json,
@@ -221,18 +305,116 @@ fn run_diff(args: DiffArgs) -> ExitCode {
     if args.verbose {
         report.details = crate::diff::package_list_diffs(&old, &new);
     }
-    let format = match args.format {
-        DiffFormat::Text => ReportFormat::Text,
-        DiffFormat::Json => ReportFormat::Json,
-        DiffFormat::Markdown => ReportFormat::Markdown,
-    };
-    let color = color_allowed(
+    emit_report(&report, args.format)
+}
+
+impl DiffFormat {
+    fn report_format(self) -> ReportFormat {
+        match self {
+            DiffFormat::Text => ReportFormat::Text,
+            DiffFormat::Json => ReportFormat::Json,
+            DiffFormat::Markdown => ReportFormat::Markdown,
+        }
+    }
+}
+
+fn stdout_color() -> bool {
+    color_allowed(
         std::io::stdout().is_terminal(),
         std::env::var("NO_COLOR").ok().as_deref(),
         std::env::var("TERM").ok().as_deref(),
-    );
-    if let Err(e) = emit(&render(&report, format, color)) {
+    )
+}
+
+/// Prints a report and returns its verdict's exit code.
+fn emit_report(report: &crate::diff::Report, format: DiffFormat) -> ExitCode {
+    if let Err(e) = emit(&render(report, format.report_format(), stdout_color())) {
         return fail(format!("cannot write to stdout: {e}"));
     }
     ExitCode::from(report.verdict.exit_code())
+}
+
+fn run_check(args: CheckArgs) -> ExitCode {
+    let baseline = match Manifest::load(&args.baseline) {
+        Ok(m) => m,
+        Err(e) => return fail(e),
+    };
+    let baseline_name = args.baseline.display().to_string();
+    let mut report = if let Some(rev) = &args.rev {
+        match crate::check::against_revision(&baseline_name, &baseline, &args.collect.repo, rev) {
+            Ok(r) => r,
+            Err(e) => return fail(e),
+        }
+    } else {
+        let repo = args.collect.repo.clone();
+        let current = match args.collect.stamp() {
+            Ok(m) => m,
+            Err(code) => return code,
+        };
+        let current_name = match &args.save {
+            Some(path) => {
+                let text = current.render(ManifestFormat::Toml);
+                if let Err(e) = write_atomic(path, text.as_bytes()) {
+                    return fail(e);
+                }
+                eprintln!(
+                    "stamped {} -> {}",
+                    current.short_fingerprint(),
+                    path.display()
+                );
+                path.display().to_string()
+            }
+            None => crate::check::CURRENT.to_string(),
+        };
+        let mut report = crate::check::against_current(
+            &baseline_name,
+            &baseline,
+            &current_name,
+            &current,
+            &repo,
+        );
+        if args.verbose {
+            report.details = crate::diff::package_list_diffs(&baseline, &current);
+        }
+        report
+    };
+    if args.verbose && report.details.is_empty() && args.rev.is_some() {
+        report.notes.push(
+            "--verbose package lists are shown only when comparing with the current environment"
+                .into(),
+        );
+    }
+    emit_report(&report, args.format)
+}
+
+fn run_fleet(args: FleetArgs) -> ExitCode {
+    let paths = match crate::fleet::expand_inputs(&args.inputs) {
+        Ok(p) => p,
+        Err(e) => return fail(e),
+    };
+    let report = match crate::fleet::analyse(&paths, args.repo.as_deref()) {
+        Ok(r) => r,
+        Err(e) => return fail(e),
+    };
+    let text = match args.format {
+        DiffFormat::Text => crate::fleet::render_text(&report, stdout_color()),
+        DiffFormat::Json => crate::fleet::render_json(&report),
+        DiffFormat::Markdown => crate::fleet::render_markdown(&report),
+    };
+    if let Err(e) = emit(&text) {
+        return fail(format!("cannot write to stdout: {e}"));
+    }
+    ExitCode::from(report.verdict.exit_code())
+}
+
+fn run_recreate(args: RecreateArgs) -> ExitCode {
+    let manifest = match Manifest::load(&args.manifest) {
+        Ok(m) => m,
+        Err(e) => return fail(e),
+    };
+    let script = crate::recreate::script(&manifest, &args.manifest.display().to_string());
+    if let Err(e) = emit(&script) {
+        return fail(format!("cannot write to stdout: {e}"));
+    }
+    ExitCode::SUCCESS
 }

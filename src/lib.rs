@@ -24,13 +24,16 @@
 
 pub mod atomic;
 pub mod cache;
+pub mod check;
 pub mod cli;
 pub mod collect;
 pub mod diff;
 pub mod error;
+pub mod fleet;
 pub mod hashing;
 pub mod lockfile;
 pub mod manifest;
+pub mod recreate;
 pub mod redact;
 pub mod report;
 pub mod stack;

@@ -162,6 +162,10 @@ pub struct GitInfo {
     /// Submodules and the commit each is checked out at.
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub submodules: Vec<Submodule>,
+    /// The uncommitted change itself, as a git-style patch (tracked edits and untracked files'
+    /// content), stored only with `stamp --keep-patch`; `runprint recreate` prints it.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub patch: Option<String>,
 }
 
 /// One submodule.

@@ -15,7 +15,7 @@ use crate::lockfile::{cargo, requirements, Format, Parsed};
 use crate::manifest::{hex, Lockfile};
 
 /// Folder names never descended into.
-const SKIPPED_DIRS: &[&str] = &[
+pub(crate) const SKIPPED_DIRS: &[&str] = &[
     ".git",
     "node_modules",
     "target",

@@ -6,6 +6,7 @@
 //! returning the section and pushing warnings), add its section to
 //! [`crate::manifest::Content`], call it here, and teach [`crate::diff`] to compare it.
 
+pub mod at_rev;
 pub mod cargo_features;
 pub mod cpu;
 pub mod data;
@@ -14,6 +15,7 @@ pub mod git;
 pub mod gpu;
 pub mod lockfiles;
 pub mod native;
+pub mod patch;
 pub mod python;
 pub mod system;
 
@@ -43,6 +45,9 @@ pub struct StampOptions {
     /// Python interpreters to describe (`--python`); empty means the active environment or
     /// `python3` on `PATH`.
     pub python: Vec<PathBuf>,
+    /// Store the uncommitted change as a patch, leaving out files above this many bytes
+    /// (`stamp --keep-patch`); `None`: do not store it.
+    pub keep_patch: Option<u64>,
 }
 
 impl StampOptions {
@@ -64,6 +69,7 @@ impl StampOptions {
             no_lockfiles: false,
             data: data::DataOptions::default(),
             python: Vec::new(),
+            keep_patch: None,
         }
     }
 }
@@ -185,6 +191,9 @@ pub fn stamp(opts: &StampOptions) -> Manifest {
     match git_result {
         Ok(facts) => content.git = facts.info,
         Err(e) => warnings.push(e),
+    }
+    if let Some(cap) = opts.keep_patch.filter(|_| content.git.dirty) {
+        content.git.patch = patch::collect(&root, cap, &mut warnings);
     }
     content.system = timed(t, "system", system::collect);
     match timed(t, "cpu", cpu::collect) {

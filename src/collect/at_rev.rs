@@ -1,0 +1,361 @@
+//! The repository as it is at a git revision, read from git's object database (libgit2)
+//! without checking anything out: the commit, its submodule commits and every lockfile in its
+//! tree, parsed from the blobs with the same pure parsers `stamp` uses.
+//!
+//! What this cannot know, and says so through [`RevFacts::notes`]:
+//! * Cargo's enabled features come from `cargo metadata`, which needs a checkout; they are not
+//!   read at a revision.
+//! * Lockfiles named with `stamp --lockfile` outside the repository are not in its history.
+//!
+//! The walk skips the same folders as the on-disk walk ([`super::lockfiles::SKIPPED_DIRS`]);
+//! `.gitignore` needs no handling because ignored files are not committed.
+
+use std::collections::HashSet;
+
+use git2::{ObjectType, Repository, Tree, TreeWalkMode, TreeWalkResult};
+use sha2::{Digest, Sha256};
+
+use crate::lockfile::{requirements, Format, Include, Parsed};
+use crate::manifest::{hex, GitInfo, Lockfile, Submodule};
+
+/// What a revision holds.
+#[derive(Debug)]
+pub struct RevFacts {
+    /// The git section as a stamp of a clean checkout of the revision would record it (the
+    /// remote is not a fact of a revision and is left empty).
+    pub git: GitInfo,
+    /// Every lockfile in the revision's tree, sorted by path.
+    pub lockfiles: Vec<Lockfile>,
+    /// The commit's time, RFC 3339 UTC.
+    pub committed: String,
+    /// Problems with single files (unparseable lockfiles); the rest is still read.
+    pub warnings: Vec<String>,
+}
+
+/// Errors that stop the reading of a revision altogether.
+#[derive(Debug, thiserror::Error)]
+pub enum RevError {
+    /// No repository contains the folder.
+    #[error("`{dir}` is not inside a git repository: {message}")]
+    NoRepository {
+        /// The folder.
+        dir: String,
+        /// libgit2's reason.
+        message: String,
+    },
+    /// The revision does not name a commit.
+    #[error("`{rev}` does not name a commit in the repository at `{dir}`: {message}")]
+    BadRevision {
+        /// The revision as given.
+        rev: String,
+        /// The repository's folder.
+        dir: String,
+        /// libgit2's reason.
+        message: String,
+    },
+    /// The commit's objects could not be read.
+    #[error("cannot read revision `{rev}`: {message}")]
+    Read {
+        /// The revision as given.
+        rev: String,
+        /// libgit2's reason.
+        message: String,
+    },
+}
+
+/// Whether a commit is present in a repository, and why not.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum CommitPresence {
+    /// The commit can be read.
+    Present,
+    /// The commit is missing and the repository is a shallow clone.
+    MissingShallow,
+    /// The commit is missing from a full clone (another repository, rewritten history).
+    Missing,
+}
+
+/// Opens the repository that contains `dir`.
+pub fn open(dir: &std::path::Path) -> Result<Repository, RevError> {
+    Repository::discover(dir).map_err(|e| RevError::NoRepository {
+        dir: dir.display().to_string(),
+        message: e.message().to_string(),
+    })
+}
+
+/// Whether `commit` (a full hex id) is in `repo`.
+pub fn commit_presence(repo: &Repository, commit: &str) -> CommitPresence {
+    let present = git2::Oid::from_str(commit)
+        .ok()
+        .and_then(|oid| repo.find_commit(oid).ok())
+        .is_some();
+    if present {
+        CommitPresence::Present
+    } else if repo.is_shallow() {
+        CommitPresence::MissingShallow
+    } else {
+        CommitPresence::Missing
+    }
+}
+
+/// Reads the commit, submodules and lockfiles of `rev` (a branch, tag, commit id or any
+/// revision expression git understands).
+pub fn read(repo: &Repository, rev: &str) -> Result<RevFacts, RevError> {
+    let dir = repo
+        .workdir()
+        .unwrap_or_else(|| repo.path())
+        .display()
+        .to_string();
+    let object = repo
+        .revparse_single(rev)
+        .map_err(|e| RevError::BadRevision {
+            rev: rev.to_string(),
+            dir: dir.clone(),
+            message: e.message().to_string(),
+        })?;
+    let commit = object.peel_to_commit().map_err(|e| RevError::BadRevision {
+        rev: rev.to_string(),
+        dir,
+        message: e.message().to_string(),
+    })?;
+    let read_err = |e: git2::Error| RevError::Read {
+        rev: rev.to_string(),
+        message: e.message().to_string(),
+    };
+    let tree = commit.tree().map_err(read_err)?;
+
+    // A local branch of that name is what a checkout of `rev` would be on.
+    let branch = repo
+        .find_branch(rev, git2::BranchType::Local)
+        .ok()
+        .map(|_| rev.to_string());
+    let (lockfile_paths, submodules) = walk(&tree).map_err(read_err)?;
+    let mut warnings = Vec::new();
+    let lockfiles = lockfile_paths
+        .iter()
+        .filter_map(|path| read_lockfile(repo, &tree, path, &mut warnings))
+        .collect();
+    let secs = commit.time().seconds().max(0) as u64;
+    let committed = humantime::format_rfc3339_seconds(
+        std::time::UNIX_EPOCH + std::time::Duration::from_secs(secs),
+    )
+    .to_string();
+    Ok(RevFacts {
+        git: GitInfo {
+            present: true,
+            commit: Some(commit.id().to_string()),
+            detached: branch.is_none(),
+            branch,
+            submodules,
+            ..GitInfo::default()
+        },
+        lockfiles,
+        committed,
+        warnings,
+    })
+}
+
+/// Lockfile paths (sorted) and submodule commits (gitlinks) in a tree.
+fn walk(tree: &Tree<'_>) -> Result<(Vec<String>, Vec<Submodule>), git2::Error> {
+    let mut lockfiles = Vec::new();
+    let mut submodules = Vec::new();
+    tree.walk(TreeWalkMode::PreOrder, |dir, entry| {
+        let Some(name) = entry.name() else {
+            return TreeWalkResult::Ok;
+        };
+        match entry.kind() {
+            Some(ObjectType::Tree) if super::lockfiles::SKIPPED_DIRS.contains(&name) => {
+                TreeWalkResult::Skip
+            }
+            Some(ObjectType::Blob) if Format::detect(name).is_some() => {
+                lockfiles.push(format!("{dir}{name}"));
+                TreeWalkResult::Ok
+            }
+            // A gitlink: the submodule's commit as recorded by the superproject.
+            Some(ObjectType::Commit) => {
+                submodules.push(Submodule {
+                    path: format!("{dir}{name}"),
+                    commit: Some(entry.id().to_string()),
+                });
+                TreeWalkResult::Ok
+            }
+            _ => TreeWalkResult::Ok,
+        }
+    })?;
+    lockfiles.sort();
+    submodules.sort_by(|a, b| a.path.cmp(&b.path));
+    Ok((lockfiles, submodules))
+}
+
+/// The bytes of the blob at `path` in `tree`, if there is one.
+fn blob_bytes(repo: &Repository, tree: &Tree<'_>, path: &str) -> Option<Vec<u8>> {
+    let entry = tree.get_path(std::path::Path::new(path)).ok()?;
+    let blob = entry.to_object(repo).ok()?.peel_to_blob().ok()?;
+    Some(blob.content().to_vec())
+}
+
+/// Parses one lockfile from the tree, as `collect::lockfiles` does from disk.
+fn read_lockfile(
+    repo: &Repository,
+    tree: &Tree<'_>,
+    path: &str,
+    warnings: &mut Vec<String>,
+) -> Option<Lockfile> {
+    let name = path.rsplit('/').next().unwrap_or(path);
+    let format = Format::detect(name)?;
+    let bytes = blob_bytes(repo, tree, path)?;
+    let text = match std::str::from_utf8(&bytes) {
+        Ok(t) => t,
+        Err(e) => {
+            warnings.push(format!(
+                "lockfile `{path}`: not UTF-8 text (invalid byte at offset {})",
+                e.valid_up_to()
+            ));
+            return None;
+        }
+    };
+    let companion = format.companion().and_then(|companion_name| {
+        let companion_path = sibling(path, companion_name);
+        let bytes = blob_bytes(repo, tree, &companion_path)?;
+        Some((String::from_utf8(bytes).ok()?, companion_path))
+    });
+    let mut parsed = match format.parse_with_companion(
+        text,
+        path,
+        companion.as_ref().map(|(t, p)| (t.as_str(), p.as_str())),
+    ) {
+        Ok(p) => p,
+        Err(e) => {
+            warnings.push(format!("lockfile {e}"));
+            return None;
+        }
+    };
+    warnings.append(&mut parsed.warnings);
+    if !parsed.includes.is_empty() {
+        merge_includes(repo, tree, path, &mut parsed, warnings);
+    }
+    Some(Lockfile {
+        path: path.to_string(),
+        ecosystem: format.ecosystem().to_string(),
+        format_version: parsed.format_version,
+        sha256: hex(&Sha256::digest(&bytes)),
+        packages: parsed.packages,
+    })
+}
+
+/// `name` in the folder of `path`.
+fn sibling(path: &str, name: &str) -> String {
+    match path.rsplit_once('/') {
+        Some((dir, _)) => format!("{dir}/{name}"),
+        None => name.to_string(),
+    }
+}
+
+/// Resolves `target` relative to the folder of `from`, inside the tree: `.` and `..` are
+/// applied; a path that leaves the tree or is absolute gives `None`.
+fn resolve(from: &str, target: &str) -> Option<String> {
+    if target.starts_with('/') {
+        return None;
+    }
+    let mut parts: Vec<&str> = from.split('/').collect();
+    parts.pop();
+    for part in target.split('/') {
+        match part {
+            "" | "." => {}
+            ".." => {
+                parts.pop()?;
+            }
+            p => parts.push(p),
+        }
+    }
+    Some(parts.join("/"))
+}
+
+/// Requirements includes (`-r`, `-c`) read from the same tree, each file at most once, with
+/// constraints-only entries marked optional, as on disk.
+fn merge_includes(
+    repo: &Repository,
+    tree: &Tree<'_>,
+    file: &str,
+    parsed: &mut Parsed,
+    warnings: &mut Vec<String>,
+) {
+    let mut seen: HashSet<String> = HashSet::from([file.to_string()]);
+    let mut queue: Vec<(String, Include)> = parsed
+        .includes
+        .drain(..)
+        .map(|inc| (file.to_string(), inc))
+        .collect();
+    while let Some((from, inc)) = queue.pop() {
+        if inc.target.contains("://") {
+            warnings.push(format!(
+                "lockfile `{from}`: included `{}` is a URL and was not read",
+                crate::redact::scrub_url_credentials(&inc.target)
+            ));
+            continue;
+        }
+        let Some(target) = resolve(&from, &inc.target) else {
+            warnings.push(format!(
+                "lockfile `{from}`: included `{}` lies outside the repository and was not read",
+                inc.target
+            ));
+            continue;
+        };
+        if !seen.insert(target.clone()) {
+            continue;
+        }
+        let Some(text) = blob_bytes(repo, tree, &target).and_then(|b| String::from_utf8(b).ok())
+        else {
+            warnings.push(format!(
+                "lockfile `{from}`: cannot read included `{}` at this revision",
+                inc.target
+            ));
+            continue;
+        };
+        match requirements::parse(&text, &target) {
+            Ok(mut sub) => {
+                warnings.append(&mut sub.warnings);
+                for mut p in sub.packages {
+                    p.optional |= inc.constraints_only;
+                    parsed.packages.push(p);
+                }
+                queue.extend(sub.includes.into_iter().map(|i| {
+                    let constraints_only = i.constraints_only || inc.constraints_only;
+                    (
+                        target.clone(),
+                        Include {
+                            constraints_only,
+                            ..i
+                        },
+                    )
+                }));
+            }
+            Err(e) => warnings.push(format!("lockfile {e}")),
+        }
+    }
+    crate::lockfile::python::sort_packages(&mut parsed.packages);
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn includes_resolve_inside_the_tree_only() {
+        assert_eq!(
+            resolve("py/requirements.txt", "base.txt").as_deref(),
+            Some("py/base.txt")
+        );
+        assert_eq!(
+            resolve("py/requirements.txt", "../common/./c.txt").as_deref(),
+            Some("common/c.txt")
+        );
+        assert_eq!(resolve("requirements.txt", "../outside.txt"), None);
+        assert_eq!(resolve("requirements.txt", "/etc/x.txt"), None);
+    }
+
+    #[test]
+    fn companion_sits_beside_the_file() {
+        assert_eq!(sibling("svc/go.mod", "go.sum"), "svc/go.sum");
+        assert_eq!(sibling("go.mod", "go.sum"), "go.sum");
+    }
+}

@@ -1,0 +1,414 @@
+//! `runprint recreate`: the shell steps back to a manifest's environment, as far as a manifest
+//! allows. The output is a bash script to read and run by hand; runprint never runs any of it.
+//!
+//! Sections of the script, in order:
+//! 1. the code: check out the commit, the submodules' commits, and apply the stored
+//!    uncommitted change (`stamp --keep-patch`) with `git apply`;
+//! 2. the packages: exact pins for Python lockfiles (`pip install NAME==VERSION`), and each
+//!    other ecosystem's own locked install, which reads the lockfile restored with the commit;
+//! 3. the numerical environment variables, exported;
+//! 4. what cannot be restored from a project: processor, operating system, C library, GPU
+//!    driver and runtime; file data inputs get a `sha256sum --check` line.
+//!
+//! Every value from the manifest is shell-quoted ([`shlex`]) or, in comments, kept on one line,
+//! so a label or a value with spaces, quotes or newlines cannot break out of its place.
+
+use std::fmt::Write;
+
+use crate::manifest::{Lockfile, Manifest, Package};
+
+/// Quotes a word for POSIX shells; `None` for text no quoting can carry (a NUL byte).
+fn quote(s: &str) -> Option<String> {
+    shlex::try_quote(s).ok().map(|q| q.into_owned())
+}
+
+/// Text made safe for a `#` comment: one line, no control characters.
+fn comment(s: &str) -> String {
+    s.chars()
+        .map(|c| if c.is_control() { ' ' } else { c })
+        .collect()
+}
+
+/// A portable shell variable name: letters, digits and `_`, not starting with a digit.
+fn is_shell_name(name: &str) -> bool {
+    let mut chars = name.chars();
+    chars
+        .next()
+        .is_some_and(|c| c.is_ascii_alphabetic() || c == '_')
+        && chars.all(|c| c.is_ascii_alphanumeric() || c == '_')
+}
+
+/// Variables set by activating an environment: exporting them by hand does not activate it.
+const ACTIVATION_VARS: &[&str] = &["VIRTUAL_ENV", "CONDA_PREFIX", "CONDA_DEFAULT_ENV"];
+
+/// The script for a manifest; `path` names it in the header.
+pub fn script(m: &Manifest, path: &str) -> String {
+    let mut out = String::new();
+    out.push_str("#!/usr/bin/env bash\n");
+    let _ = writeln!(
+        out,
+        "# Steps back to the environment recorded in {}",
+        comment(path)
+    );
+    let _ = writeln!(
+        out,
+        "#   fingerprint {}, stamped {}{}{}",
+        comment(&m.fingerprint),
+        comment(&m.run.created),
+        m.run
+            .hostname
+            .as_deref()
+            .map_or(String::new(), |h| format!(" on {}", comment(h))),
+        m.run
+            .label
+            .as_deref()
+            .map_or(String::new(), |l| format!(", label: {}", comment(l))),
+    );
+    out.push_str(
+        "# Printed by `runprint recreate`, which runs nothing: read it, then run it from the root\n\
+         # of a clone of the repository.\n",
+    );
+    if m.is_modified() {
+        out.push_str("# Warning: the manifest was modified after stamping (its fingerprint does not match).\n");
+    }
+    out.push_str("set -euo pipefail\n");
+    code(m, &mut out);
+    packages(&m.content.lockfiles, &mut out);
+    environment(m, &mut out);
+    machine(m, &mut out);
+    out
+}
+
+fn code(m: &Manifest, out: &mut String) {
+    out.push_str("\n# 1. Code\n");
+    let git = &m.content.git;
+    if !git.present {
+        out.push_str("# The run was not stamped inside a git repository: its code cannot be restored from the manifest.\n");
+        return;
+    }
+    let Some(commit) = &git.commit else {
+        out.push_str("# The repository had no commit yet when the run was stamped.\n");
+        return;
+    };
+    if let Some(remote) = &git.remote {
+        let _ = writeln!(out, "# The repository was cloned from {}", comment(remote));
+    }
+    let Some(commit_q) = quote(commit) else {
+        return;
+    };
+    let _ = writeln!(out, "git checkout --detach {commit_q}");
+    if !git.submodules.is_empty() {
+        out.push_str("git submodule update --init --recursive\n");
+        for s in &git.submodules {
+            match (quote(&s.path), s.commit.as_deref().and_then(quote)) {
+                (Some(p), Some(c)) => {
+                    let _ = writeln!(out, "git -C {p} checkout --detach {c}");
+                }
+                _ => {
+                    let _ = writeln!(out, "# submodule {}: no commit recorded", comment(&s.path));
+                }
+            }
+        }
+    }
+    match &git.patch {
+        Some(patch) => {
+            out.push_str("# The uncommitted change stored with the run (`stamp --keep-patch`):\n");
+            let mut end = "RUNPRINT_PATCH".to_string();
+            while patch.lines().any(|l| l == end) {
+                end.push('_');
+            }
+            let _ = writeln!(out, "git apply --whitespace=nowarn <<'{end}'");
+            out.push_str(patch);
+            if !patch.ends_with('\n') {
+                out.push('\n');
+            }
+            let _ = writeln!(out, "{end}");
+        }
+        None if git.dirty => {
+            let _ = writeln!(
+                out,
+                "# The run had uncommitted changes that were not stored ({} path(s): {}).\n\
+                 # Stamp with --keep-patch to store them next time.",
+                git.changed_paths.len(),
+                comment(
+                    &git.changed_paths
+                        .iter()
+                        .take(5)
+                        .cloned()
+                        .collect::<Vec<_>>()
+                        .join(", ")
+                )
+            );
+        }
+        None => {}
+    }
+}
+
+/// The folder of a lockfile, quoted, for `cd`.
+fn folder(l: &Lockfile) -> Option<String> {
+    let dir = l.path.rsplit_once('/').map_or(".", |(d, _)| d);
+    quote(if dir.is_empty() { "/" } else { dir })
+}
+
+/// A pip requirement that installs exactly this entry, or `None` when the entry cannot be
+/// pinned (an editable install, a local path).
+fn pip_requirement(p: &Package) -> Option<String> {
+    let direct = p.source.as_deref().filter(|s| {
+        s.contains("://") && !s.starts_with("registry+") && !s.starts_with("editable+")
+    });
+    let base = match direct {
+        Some(url) => format!("{} @ {url}", p.name),
+        None if !p.version.is_empty() => format!("{}=={}", p.name, p.version),
+        None => return None,
+    };
+    // Environment markers (PEP 508) keep platform-specific pins to their platform.
+    let req = match &p.platform {
+        Some(marker) => format!("{base} ; {marker}"),
+        None => base,
+    };
+    quote(&req)
+}
+
+fn packages(lockfiles: &[Lockfile], out: &mut String) {
+    out.push_str("\n# 2. Packages\n");
+    if lockfiles.is_empty() {
+        out.push_str("# No lockfiles were recorded.\n");
+        return;
+    }
+    for l in lockfiles {
+        let name = l.path.rsplit('/').next().unwrap_or(&l.path);
+        let outside = l.path.starts_with('/') || l.path.starts_with("../");
+        let _ = writeln!(
+            out,
+            "# {} ({}, {} package(s){})",
+            comment(&l.path),
+            comment(&l.ecosystem),
+            l.packages.len(),
+            if outside {
+                "; outside the repository, so not restored by the checkout"
+            } else {
+                ""
+            }
+        );
+        if l.ecosystem == "pypi" {
+            pip_pins(l, out);
+            continue;
+        }
+        let Some(dir) = folder(l) else { continue };
+        // `(cd DIR && TOOL)`, or the tool alone for the repository's root.
+        let in_dir = |cmd: &str| {
+            if dir == "." {
+                cmd.to_string()
+            } else {
+                format!("(cd {dir} && {cmd})")
+            }
+        };
+        let Some(file) = quote(&l.path) else { continue };
+        // Each tool's locked install, which installs exactly what the lockfile lists (from
+        // memory: the npm, Yarn, pnpm, Cargo, Go, NuGet, renv, Pkg.jl and conda manuals).
+        let step = match (l.ecosystem.as_str(), name) {
+            ("npm", "yarn.lock") if l.format_version.as_deref() == Some("1") => {
+                in_dir("yarn install --frozen-lockfile")
+            }
+            ("npm", "yarn.lock") => in_dir("yarn install --immutable"),
+            ("npm", "pnpm-lock.yaml") => in_dir("pnpm install --frozen-lockfile"),
+            ("npm", _) => in_dir("npm ci"),
+            ("cargo", _) => in_dir("cargo fetch --locked && cargo build --locked"),
+            ("go", _) => in_dir("go mod download"),
+            ("nuget", _) => in_dir("dotnet restore --locked-mode"),
+            ("cran", _) => in_dir("Rscript -e 'renv::restore(prompt = FALSE)'"),
+            ("julia", _) => {
+                format!("julia --project={dir} -e 'using Pkg; Pkg.instantiate()'")
+            }
+            ("conda", n) if n.ends_with(".yml") || n.ends_with(".yaml") => {
+                format!("conda env create --file {file}")
+            }
+            ("conda", _) => format!("conda create --yes --name runprint-recreated --file {file}"),
+            (other, _) => format!("# no locked install known for ecosystem {}", comment(other)),
+        };
+        let _ = writeln!(out, "{step}");
+    }
+}
+
+fn pip_pins(l: &Lockfile, out: &mut String) {
+    let mut pins = Vec::new();
+    let mut left_out = Vec::new();
+    for p in &l.packages {
+        if p.dev || p.optional {
+            continue;
+        }
+        match pip_requirement(p) {
+            Some(r) => pins.push(r),
+            None => left_out.push(p.name.as_str()),
+        }
+    }
+    let skipped = l.packages.iter().filter(|p| p.dev || p.optional).count();
+    if skipped > 0 {
+        let _ = writeln!(
+            out,
+            "# {skipped} development-only or optional entries left out"
+        );
+    }
+    if !left_out.is_empty() {
+        let _ = writeln!(
+            out,
+            "# cannot be pinned (local paths or editable installs): {}",
+            comment(&left_out.join(", "))
+        );
+    }
+    if pins.is_empty() {
+        return;
+    }
+    out.push_str("python -m pip install");
+    for pin in pins {
+        let _ = write!(out, " \\\n  {pin}");
+    }
+    out.push('\n');
+}
+
+fn environment(m: &Manifest, out: &mut String) {
+    out.push_str("\n# 3. Environment variables that steer numerics\n");
+    let env = &m.content.env;
+    if env.vars.is_empty() && env.redacted.is_empty() {
+        out.push_str("# None were set.\n");
+    }
+    for (name, value) in &env.vars {
+        if !is_shell_name(name) {
+            let _ = writeln!(
+                out,
+                "# {} cannot be set from a shell (not a valid name)",
+                comment(name)
+            );
+        } else if ACTIVATION_VARS.contains(&name.as_str()) {
+            let _ = writeln!(
+                out,
+                "# {name} was {}: activate that environment rather than exporting it",
+                comment(value)
+            );
+        } else if value.starts_with("private:sha256:") {
+            let _ = writeln!(
+                out,
+                "# {name}: its value was hashed by `stamp --private`; set it by hand"
+            );
+        } else if let Some(q) = quote(value) {
+            let _ = writeln!(out, "export {name}={q}");
+        } else {
+            let _ = writeln!(
+                out,
+                "# {name}: the value holds a NUL byte and cannot be exported"
+            );
+        }
+    }
+    for name in &env.redacted {
+        let _ = writeln!(
+            out,
+            "# {}: set by hand (it looked secret, so its value was never recorded)",
+            comment(name)
+        );
+    }
+}
+
+fn machine(m: &Manifest, out: &mut String) {
+    let c = &m.content;
+    out.push_str("\n# 4. Not restorable from the project: match these by choosing or setting up the machine\n");
+    let cpu = &c.cpu;
+    if !cpu.arch.is_empty() {
+        let _ = writeln!(
+            out,
+            "# - processor: {} {}, {} logical core(s){}",
+            comment(&cpu.arch),
+            comment(cpu.model_name.as_deref().unwrap_or("(model unknown)")),
+            cpu.logical_cores,
+            cpu.allowed_cpu_count
+                .map_or(String::new(), |n| format!(", {n} allowed to the run"))
+        );
+        if !cpu.features.is_empty() {
+            let _ = writeln!(
+                out,
+                "#   instruction-set features: {}",
+                comment(&cpu.features.join(" "))
+            );
+        }
+    }
+    let s = &c.system;
+    if !s.os.is_empty() {
+        let _ = writeln!(
+            out,
+            "# - operating system: {} {}, kernel {}, C library {} {}",
+            comment(&s.os),
+            comment(s.os_version.as_deref().unwrap_or("")),
+            comment(s.kernel.as_deref().unwrap_or("unknown")),
+            comment(s.libc.as_deref().unwrap_or("unknown")),
+            comment(s.libc_version.as_deref().unwrap_or(""))
+        );
+    }
+    out.push_str("# - GPU model, driver and CUDA/ROCm runtime: installed on the machine, not in the project\n");
+    for d in &c.data {
+        if d.kind == "file" {
+            let hexd = d.sha256.strip_prefix("sha256:").unwrap_or(&d.sha256);
+            match quote(&format!("{hexd}  {}", d.path)) {
+                Some(line) if !d.path.contains('\n') => {
+                    let _ = writeln!(out, "# data input {}:", comment(&d.path));
+                    let _ = writeln!(out, "printf '%s\\n' {line} | sha256sum --check -");
+                }
+                _ => {
+                    let _ = writeln!(
+                        out,
+                        "# data input {}: sha256 {}",
+                        comment(&d.path),
+                        comment(hexd)
+                    );
+                }
+            }
+        } else {
+            let _ = writeln!(
+                out,
+                "# - data folder {}: {} file(s), {} bytes, digest {} (restore it from where it is kept)",
+                comment(&d.path),
+                d.files,
+                d.size,
+                comment(&d.sha256)
+            );
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn comments_stay_on_one_line_and_names_are_checked() {
+        assert_eq!(comment("a\nb\r\tc"), "a b  c");
+        assert!(is_shell_name("OMP_NUM_THREADS"));
+        assert!(!is_shell_name("1X"));
+        assert!(!is_shell_name("A-B"));
+    }
+
+    #[test]
+    fn pip_requirements_pin_versions_or_urls() {
+        let p = Package {
+            name: "numpy".into(),
+            version: "1.26.4".into(),
+            ..Package::default()
+        };
+        assert_eq!(pip_requirement(&p).unwrap(), "'numpy==1.26.4'");
+        let marked = Package {
+            platform: Some("sys_platform == \"linux\"".into()),
+            ..p.clone()
+        };
+        assert_eq!(
+            pip_requirement(&marked).unwrap(),
+            "'numpy==1.26.4 ; sys_platform == \"linux\"'"
+        );
+        let url = Package {
+            version: String::new(),
+            source: Some("git+https://example.invalid/lib.git@v1".into()),
+            ..p
+        };
+        assert_eq!(
+            pip_requirement(&url).unwrap(),
+            "'numpy @ git+https://example.invalid/lib.git@v1'"
+        );
+    }
+}
