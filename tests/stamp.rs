@@ -512,3 +512,60 @@ fn extra_lockfiles_and_no_lockfiles() {
     .unwrap();
     assert!(m.content.lockfiles.is_empty());
 }
+
+/// Without the `git` executable on PATH the collector falls back to libgit2; both must agree
+/// with `git status --porcelain -uall` (run here by the test).
+#[test]
+fn status_without_git_on_path_matches_git_status() {
+    let repo = repo_with(&[
+        ("train.py", "a\n"),
+        ("old.txt", "x\n"),
+        ("requirements.txt", "numpy==1.26.4\n"),
+    ]);
+    write_files(
+        repo.path(),
+        &[
+            ("train.py", "b\n"),
+            ("new/data.csv", "1\n"),
+            ("new/requirements-extra.txt", "scipy==1.13.1\n"),
+        ],
+    );
+    std::fs::remove_file(repo.path().join("old.txt")).unwrap();
+    let porcelain = git(repo.path(), &["status", "--porcelain", "-uall"]);
+    let expected: BTreeSet<String> = porcelain.lines().map(|l| l[3..].to_string()).collect();
+    let empty_path = tempfile::tempdir().unwrap();
+    let out = tempfile::tempdir().unwrap();
+    let mut digests = Vec::new();
+    for path_var in [
+        std::env::var("PATH").unwrap(),
+        empty_path.path().to_string_lossy().into_owned(),
+    ] {
+        let file = out.path().join("m.toml");
+        let result = runprint()
+            .env("PATH", &path_var)
+            .args(["stamp", "--repo"])
+            .arg(repo.path())
+            .arg("--out")
+            .arg(&file)
+            .output()
+            .unwrap();
+        assert!(
+            result.status.success(),
+            "{}",
+            String::from_utf8_lossy(&result.stderr)
+        );
+        let m = runprint::manifest::Manifest::load(&file).unwrap();
+        let got: BTreeSet<String> = m.content.git.changed_paths.iter().cloned().collect();
+        assert_eq!(got, expected, "PATH={path_var}");
+        // The untracked lockfile is found from git's file list either way.
+        let paths: Vec<&str> = m
+            .content
+            .lockfiles
+            .iter()
+            .map(|l| l.path.as_str())
+            .collect();
+        assert_eq!(paths, ["new/requirements-extra.txt", "requirements.txt"]);
+        digests.push(m.content.git.dirty_digest.clone());
+    }
+    assert_eq!(digests[0], digests[1]);
+}

@@ -21,6 +21,9 @@ pub struct GitFacts {
     pub info: GitInfo,
     /// The repository's work tree, when there is one.
     pub workdir: Option<PathBuf>,
+    /// Every file in the work tree that is tracked or untracked-but-not-ignored, relative to
+    /// the work tree (what a walk respecting `.gitignore` would find), when it could be listed.
+    pub files: Option<Vec<String>>,
 }
 
 /// Reads the repository that contains `dir`. A folder outside any repository gives
@@ -32,6 +35,7 @@ pub fn collect(dir: &Path, private: bool) -> Result<GitFacts, String> {
             return Ok(GitFacts {
                 info: GitInfo::default(),
                 workdir: None,
+                files: None,
             })
         }
         Err(e) => {
@@ -67,9 +71,25 @@ pub fn collect(dir: &Path, private: bool) -> Result<GitFacts, String> {
     }
     info.detached = repo.head_detached().unwrap_or(false);
 
+    let mut files = None;
     if let Some(root) = &workdir {
-        let (paths, digest) = uncommitted_change(&repo, root)
-            .map_err(|e| format!("git: cannot read the work tree status: {}", e.message()))?;
+        let entries = match status_with_git_cli(root) {
+            Some(e) => e,
+            None => status_with_libgit2(&repo, root)
+                .map_err(|e| format!("git: cannot read the work tree status: {}", e.message()))?,
+        };
+        files = tracked_files(&repo).map(|mut tracked| {
+            tracked.extend(
+                entries
+                    .iter()
+                    .filter(|e| e.untracked)
+                    .map(|e| e.path.clone()),
+            );
+            tracked.sort();
+            tracked.dedup();
+            tracked
+        });
+        let (paths, digest) = uncommitted_change(entries);
         info.dirty = !paths.is_empty();
         info.dirty_digest = digest;
         info.changed_paths = paths;
@@ -78,47 +98,138 @@ pub fn collect(dir: &Path, private: bool) -> Result<GitFacts, String> {
     if !private {
         info.remote = remote_url(&repo);
     }
-    info.submodules = submodules(&repo);
-    Ok(GitFacts { info, workdir })
+    // Submodules are declared in `.gitmodules`; without it there is nothing to load.
+    if workdir
+        .as_ref()
+        .is_none_or(|w| w.join(".gitmodules").exists())
+    {
+        info.submodules = submodules(&repo);
+    }
+    Ok(GitFacts {
+        info,
+        workdir,
+        files,
+    })
 }
 
-/// Changed paths (tracked changes and untracked, not-ignored files) and the digest over them.
-fn uncommitted_change(
-    repo: &Repository,
-    root: &Path,
-) -> Result<(Vec<String>, Option<String>), git2::Error> {
+/// One changed path of the work tree.
+struct StatusEntry {
+    path: String,
+    /// Deleted from the work tree.
+    deleted: bool,
+    /// Not tracked (and not ignored).
+    untracked: bool,
+    /// Full path in the work tree.
+    abs: PathBuf,
+}
+
+/// Status from the `git` executable when it is on PATH: `git status --porcelain -z`, with
+/// optional locks off so the index is never rewritten under a running job. git's own status is
+/// faster than libgit2's on large trees (its untracked cache and parallel index refresh).
+/// `None` when git is missing or refuses (e.g. a repository owned by another user).
+fn status_with_git_cli(root: &Path) -> Option<Vec<StatusEntry>> {
+    let out = std::process::Command::new("git")
+        .args([
+            "--no-optional-locks",
+            "status",
+            "--porcelain=v1",
+            "-z",
+            "--untracked-files=all",
+            "--no-renames",
+            "--ignore-submodules=none",
+        ])
+        .current_dir(root)
+        .stdin(std::process::Stdio::null())
+        .stderr(std::process::Stdio::null())
+        .output()
+        .ok()
+        .filter(|o| o.status.success())?;
+    // Each record: two status letters, a space, the path, NUL (git-status(1), "Porcelain
+    // Format Version 1" with -z).
+    let mut entries = Vec::new();
+    for record in out.stdout.split(|&b| b == 0).filter(|r| r.len() > 3) {
+        let (x, y) = (record[0], record[1]);
+        let path = String::from_utf8_lossy(&record[3..]).into_owned();
+        let abs = root.join(&path);
+        entries.push(StatusEntry {
+            deleted: y == b'D' || (x == b'D' && !abs.exists()),
+            untracked: x == b'?',
+            path,
+            abs,
+        });
+    }
+    Some(entries)
+}
+
+/// The same list through libgit2, for machines without the `git` executable.
+fn status_with_libgit2(repo: &Repository, root: &Path) -> Result<Vec<StatusEntry>, git2::Error> {
     let mut opts = StatusOptions::new();
     opts.include_untracked(true)
         .recurse_untracked_dirs(true)
         .include_ignored(false)
         .renames_head_to_index(false);
     let statuses = repo.statuses(Some(&mut opts))?;
-    let mut entries: Vec<(String, Status)> = statuses
+    Ok(statuses
         .iter()
         .filter(|e| e.status() != Status::CURRENT && !e.status().contains(Status::IGNORED))
-        .filter_map(|e| e.path().map(|p| (p.to_string(), e.status())))
-        .collect();
-    entries.sort();
-    entries.dedup_by(|a, b| a.0 == b.0);
+        .filter_map(|e| {
+            let status = e.status();
+            let path = e.path()?.to_string();
+            let abs = root.join(&path);
+            Some(StatusEntry {
+                deleted: status.intersects(Status::WT_DELETED)
+                    || (status.intersects(Status::INDEX_DELETED) && !abs.exists()),
+                untracked: status.intersects(Status::WT_NEW)
+                    && !status.intersects(Status::INDEX_NEW),
+                path,
+                abs,
+            })
+        })
+        .collect())
+}
+
+/// Paths of the index's entries (submodule links left out).
+fn tracked_files(repo: &Repository) -> Option<Vec<String>> {
+    let index = repo.index().ok()?;
+    Some(
+        index
+            .iter()
+            .filter(|e| e.mode != 0o160000)
+            .map(|e| String::from_utf8_lossy(&e.path).into_owned())
+            .collect(),
+    )
+}
+
+/// Changed paths (tracked changes and untracked, not-ignored files) and the digest over them.
+fn uncommitted_change(mut entries: Vec<StatusEntry>) -> (Vec<String>, Option<String>) {
+    entries.sort_by(|a, b| a.path.cmp(&b.path));
+    entries.dedup_by(|a, b| a.path == b.path);
     if entries.is_empty() {
-        return Ok((Vec::new(), None));
+        return (Vec::new(), None);
     }
+    // The files are hashed in parallel; the digest then takes them in path order.
+    let states: Vec<String> = {
+        use rayon::prelude::*;
+        entries
+            .par_iter()
+            .map(|e| {
+                if e.deleted {
+                    "deleted".to_string()
+                } else {
+                    content_digest(&e.abs)
+                }
+            })
+            .collect()
+    };
     let mut digest = Sha256::new();
-    for (path, status) in &entries {
-        digest.update(path.as_bytes());
+    for (e, state) in entries.iter().zip(&states) {
+        digest.update(e.path.as_bytes());
         digest.update([0]);
-        let deleted = status.intersects(Status::WT_DELETED)
-            || (status.intersects(Status::INDEX_DELETED) && !root.join(path).exists());
-        let state = if deleted {
-            "deleted".to_string()
-        } else {
-            content_digest(&root.join(path))
-        };
         digest.update(state.as_bytes());
         digest.update(b"\n");
     }
-    let paths = entries.into_iter().map(|(p, _)| p).collect();
-    Ok((paths, Some(format!("sha256:{}", hex(&digest.finalize())))))
+    let paths = entries.into_iter().map(|e| e.path).collect();
+    (paths, Some(format!("sha256:{}", hex(&digest.finalize()))))
 }
 
 /// SHA-256 of a work-tree file's content (a symbolic link's target, a folder's marker).

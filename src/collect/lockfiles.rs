@@ -72,6 +72,29 @@ pub fn discover_all(root: &Path) -> (Vec<PathBuf>, Vec<PathBuf>) {
     (found, cargo_manifests)
 }
 
+/// The lockfiles and `Cargo.toml` files among a list of repository files, skipping the same
+/// folders as the walk.
+fn from_listing(root: &Path, files: &[String]) -> (Vec<PathBuf>, Vec<PathBuf>) {
+    let mut found = Vec::new();
+    let mut cargo_manifests = Vec::new();
+    for f in files {
+        let mut parts = f.split('/').collect::<Vec<_>>();
+        let Some(name) = parts.pop() else { continue };
+        if parts.iter().any(|d| SKIPPED_DIRS.contains(d)) {
+            continue;
+        }
+        if name == "Cargo.toml" {
+            let p = root.join(f);
+            cargo_manifests.push(std::path::absolute(&p).unwrap_or(p));
+        }
+        if Format::detect(name).is_some() && root.join(f).is_file() {
+            found.push(PathBuf::from(f));
+        }
+    }
+    found.sort();
+    (found, cargo_manifests)
+}
+
 /// What reading one lockfile needs to know about the others.
 struct Context<'a> {
     root: &'a Path,
@@ -82,17 +105,23 @@ struct Context<'a> {
 /// Reads and parses every lockfile under `root`, plus `extra` files named by the user (which
 /// may lie outside it). Problems are pushed to `warnings`; duplicates are read once.
 pub fn collect(root: &Path, extra: &[PathBuf], warnings: &mut Vec<String>) -> Vec<Lockfile> {
-    collect_with(root, extra, None, warnings)
+    collect_with(root, extra, None, None, warnings)
 }
 
-/// As [`collect`], with a cache folder for Cargo's enabled features.
+/// As [`collect`], with a cache folder for Cargo's enabled features, and optionally the
+/// repository's file list (tracked and untracked-not-ignored files, relative to `root`, as
+/// git lists them) to use instead of walking the folders.
 pub fn collect_with(
     root: &Path,
     extra: &[PathBuf],
     cache_dir: Option<&Path>,
+    listed: Option<&[String]>,
     warnings: &mut Vec<String>,
 ) -> Vec<Lockfile> {
-    let (found, cargo_manifests) = discover_all(root);
+    let (found, cargo_manifests) = match listed {
+        Some(files) => from_listing(root, files),
+        None => discover_all(root),
+    };
     let mut files: Vec<(PathBuf, String)> = found
         .into_iter()
         .map(|rel| (root.join(&rel), rel.to_string_lossy().replace('\\', "/")))

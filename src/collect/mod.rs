@@ -141,37 +141,43 @@ fn timed<T>(on: bool, name: &str, f: impl FnOnce() -> T) -> T {
 /// manifest does not depend on scheduling.
 pub fn stamp(opts: &StampOptions) -> Manifest {
     let t = opts.env.contains_key("RUNPRINT_TIMINGS");
-    let root = git::workdir(&opts.repo).unwrap_or_else(|| opts.repo.clone());
     let mut content = Content::default();
+    // git first, then the lockfiles from git's own file list (no second walk of the tree);
+    // meanwhile the data digests and the numerical stack on the other core.
     let (
-        (git_result, (lockfiles, lock_warnings)),
+        (git_result, root, (lockfiles, lock_warnings)),
         ((data, data_warnings), (stack, stack_warnings)),
     ) = rayon::join(
         || {
-            rayon::join(
-                || timed(t, "git", || git::collect(&opts.repo, opts.private)),
-                || {
-                    let mut w = Vec::new();
-                    let l = if opts.no_lockfiles {
-                        Vec::new()
-                    } else {
-                        timed(t, "lockfiles", || {
-                            lockfiles::collect_with(
-                                &root,
-                                &opts.extra_lockfiles,
-                                opts.data.cache_dir.as_deref(),
-                                &mut w,
-                            )
-                        })
-                    };
-                    (l, w)
-                },
-            )
+            let git_result = timed(t, "git", || git::collect(&opts.repo, opts.private));
+            let (root, listed) = match &git_result {
+                Ok(facts) => (
+                    facts.workdir.clone().unwrap_or_else(|| opts.repo.clone()),
+                    facts.files.clone(),
+                ),
+                Err(_) => (opts.repo.clone(), None),
+            };
+            let mut w = Vec::new();
+            let l = if opts.no_lockfiles {
+                Vec::new()
+            } else {
+                timed(t, "lockfiles", || {
+                    lockfiles::collect_with(
+                        &root,
+                        &opts.extra_lockfiles,
+                        opts.data.cache_dir.as_deref(),
+                        listed.as_deref(),
+                        &mut w,
+                    )
+                })
+            };
+            (git_result, root, (l, w))
         },
         || {
             rayon::join(
                 || {
                     let mut w = Vec::new();
+                    let root = git::workdir(&opts.repo).unwrap_or_else(|| opts.repo.clone());
                     let d = timed(t, "data", || {
                         data::collect(&opts.data, &root, opts.private, &mut w)
                     });
