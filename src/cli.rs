@@ -6,7 +6,10 @@
 //! | 0 | verdict `none` (or a successful `stamp`) |
 //! | 3 | verdict `verify` |
 //! | 4 | verdict `retrain` |
-//! | 2 | bad input: unreadable or malformed manifest, bad arguments, `--strict` failures |
+//! | 2 | bad input: unreadable or malformed manifest or policy, bad arguments, `--strict` failures |
+//!
+//! A policy file's `fail-on` can lower a verdict's exit code to 0 (see [`crate::policy`]); the
+//! verdict word in the report never changes.
 
 use std::io::{IsTerminal, Write};
 use std::path::PathBuf;
@@ -16,8 +19,10 @@ use clap::{Parser, Subcommand, ValueEnum};
 
 use crate::atomic::write_atomic;
 use crate::collect::{stamp, StampOptions};
-use crate::diff::compare;
+use crate::diff::compare_with;
+use crate::diff::rules::{render_table, TableFormat};
 use crate::manifest::{Manifest, ManifestFormat};
+use crate::policy::{Policy, POLICY_FILE};
 use crate::report::{color_allowed, render, ReportFormat};
 
 /// Exit code for bad input.
@@ -27,8 +32,11 @@ const EXIT_CODES: &str = "Exit codes:
   0  verdict none: no effect on results expected (stamp: success)
   3  verdict verify: results may shift slightly; rerun and compare metrics
   4  verdict retrain: results are expected to change
-  2  bad input: unreadable or malformed manifest (the file is named), bad arguments,
-     or a failed collector under --strict";
+  2  bad input: unreadable or malformed manifest or policy (the file is named), bad
+     arguments, or a failed collector under --strict
+A policy file (runprint.toml at the repository root, or --policy) can set
+fail-on = \"retrain\" (verify exits 0) or \"never\" (every verdict exits 0); the verdict
+word in the report is unchanged.";
 
 /// Record what can change a training run's results, and tell whether a difference needs a
 /// retrain.
@@ -47,6 +55,35 @@ enum Command {
     /// Compare two manifests and explain which differences need a retrain.
     #[command(after_help = EXIT_CODES)]
     Diff(DiffArgs),
+    /// List the built-in rules with their reasons and sources.
+    Rules(RulesArgs),
+    /// Work with a repository's policy file (runprint.toml).
+    #[command(subcommand)]
+    Policy(PolicyCommand),
+}
+
+#[derive(Debug, clap::Args)]
+struct RulesArgs {
+    /// Output format (`markdown` writes docs/rules.md).
+    #[arg(long, value_enum, default_value_t = RulesFormat::Text)]
+    format: RulesFormat,
+}
+
+#[derive(Debug, Clone, Copy, ValueEnum)]
+enum RulesFormat {
+    Text,
+    Json,
+    Markdown,
+}
+
+#[derive(Debug, Subcommand)]
+enum PolicyCommand {
+    /// Validate a policy file (default: runprint.toml at the repository root). Exit 0 when it
+    /// is valid, 2 when it is not.
+    Check {
+        /// The policy file.
+        file: Option<PathBuf>,
+    },
 }
 
 #[derive(Debug, clap::Args)]
@@ -112,9 +149,14 @@ struct DiffArgs {
     /// (default: the current folder's repository).
     #[arg(long, value_name = "DIR")]
     repo: Option<PathBuf>,
-    /// Also show a compact diff of each changed lockfile's package list.
+    /// Also show each change's rule and source, a word diff of its values, and a compact
+    /// diff of each changed lockfile's package list.
     #[arg(long, short)]
     verbose: bool,
+    /// The policy file (default: runprint.toml at the root of the repository named by --repo
+    /// or of the current folder's repository, when there is one).
+    #[arg(long, value_name = "FILE")]
+    policy: Option<PathBuf>,
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -130,6 +172,18 @@ pub fn main() -> ExitCode {
     match cli.command {
         Command::Stamp(args) => run_stamp(args),
         Command::Diff(args) => run_diff(args),
+        Command::Rules(args) => {
+            let format = match args.format {
+                RulesFormat::Text => TableFormat::Text,
+                RulesFormat::Json => TableFormat::Json,
+                RulesFormat::Markdown => TableFormat::Markdown,
+            };
+            match emit(&render_table(format)) {
+                Ok(()) => ExitCode::SUCCESS,
+                Err(e) => fail(format!("cannot write to stdout: {e}")),
+            }
+        }
+        Command::Policy(PolicyCommand::Check { file }) => run_policy_check(file),
     }
 }
 
@@ -200,6 +254,38 @@ fn run_stamp(args: StampArgs) -> ExitCode {
     ExitCode::SUCCESS
 }
 
+fn run_policy_check(file: Option<PathBuf>) -> ExitCode {
+    let policy = match &file {
+        Some(path) => Policy::load(path),
+        None => {
+            let cwd = std::env::current_dir().unwrap_or_else(|_| PathBuf::from("."));
+            match Policy::discover(None, &cwd) {
+                Ok(p) if p.path.is_none() => {
+                    return fail(format!(
+                        "no {POLICY_FILE} at the repository root; name a file to check"
+                    ))
+                }
+                other => other,
+            }
+        }
+    };
+    match policy {
+        Ok(p) => {
+            let today = p.today();
+            for a in p.accept.iter().filter(|a| a.is_expired(&today)) {
+                eprintln!(
+                    "warning: the acceptance of `{}` (line {}) expired on {} and no longer applies",
+                    a.subject, a.line, a.expires
+                );
+            }
+            let path = p.path.as_deref().map(|p| p.display().to_string());
+            println!("ok: {}: {}", path.unwrap_or_default(), p.summary());
+            ExitCode::SUCCESS
+        }
+        Err(e) => fail(e),
+    }
+}
+
 fn run_diff(args: DiffArgs) -> ExitCode {
     // The two files are parsed on two threads: parsing dominates the time of a large diff.
     let (old, new) = std::thread::scope(|s| {
@@ -211,15 +297,25 @@ fn run_diff(args: DiffArgs) -> ExitCode {
         (Ok(o), Ok(n)) => (o, n),
         (Err(e), _) | (_, Err(e)) => return fail(e),
     };
-    let mut report = compare(
+    let here = std::env::current_dir().unwrap_or_else(|_| PathBuf::from("."));
+    let policy = match Policy::discover(
+        args.policy.as_deref(),
+        args.repo.as_deref().unwrap_or(&here),
+    ) {
+        Ok(p) => p,
+        Err(e) => return fail(e),
+    };
+    let mut report = compare_with(
         &args.old.display().to_string(),
         &old,
         &args.new.display().to_string(),
         &new,
         args.repo.as_deref(),
+        &policy,
     );
     if args.verbose {
         report.details = crate::diff::package_list_diffs(&old, &new);
+        crate::diff::explain_values(&mut report);
     }
     let format = match args.format {
         DiffFormat::Text => ReportFormat::Text,
@@ -234,5 +330,5 @@ fn run_diff(args: DiffArgs) -> ExitCode {
     if let Err(e) = emit(&render(&report, format, color)) {
         return fail(format!("cannot write to stdout: {e}"));
     }
-    ExitCode::from(report.verdict.exit_code())
+    ExitCode::from(policy.exit_code(report.verdict))
 }
