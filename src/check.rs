@@ -13,8 +13,9 @@
 use std::path::Path;
 
 use crate::collect::at_rev::{self, CommitPresence, RevError};
-use crate::diff::{compare, Report};
+use crate::diff::{compare_with, Report};
 use crate::manifest::{Lockfile, Manifest, RunInfo};
+use crate::policy::Policy;
 
 /// The side name used for a fresh stamp that is not saved.
 pub const CURRENT: &str = "(current environment)";
@@ -27,8 +28,16 @@ pub fn against_current(
     current_name: &str,
     current: &Manifest,
     repo: &Path,
+    policy: &Policy,
 ) -> Report {
-    compare(baseline_path, baseline, current_name, current, Some(repo))
+    compare_with(
+        baseline_path,
+        baseline,
+        current_name,
+        current,
+        Some(repo),
+        policy,
+    )
 }
 
 /// Compares a baseline with revision `rev` of the repository containing `repo`.
@@ -37,6 +46,7 @@ pub fn against_revision(
     baseline: &Manifest,
     repo: &Path,
     rev: &str,
+    policy: &Policy,
 ) -> Result<Report, RevError> {
     let git_repo = at_rev::open(repo)?;
     let facts = at_rev::read(&git_repo, rev)?;
@@ -96,12 +106,13 @@ pub fn against_revision(
         .workdir()
         .map(Path::to_path_buf)
         .unwrap_or_else(|| repo.to_path_buf());
-    let mut report = compare(
+    let mut report = compare_with(
         baseline_path,
         baseline,
         &format!("revision {rev} ({})", short(commit)),
         &new,
         Some(&workdir),
+        policy,
     );
     // Time, label and host of a revision are not facts of a run.
     report.changes.retain(|c| c.section != "run");

@@ -6,7 +6,10 @@
 //! | 0 | verdict `none` (or a successful `stamp`) |
 //! | 3 | verdict `verify` |
 //! | 4 | verdict `retrain` |
-//! | 2 | bad input: unreadable or malformed manifest, bad arguments, `--strict` failures |
+//! | 2 | bad input: unreadable or malformed manifest or policy, bad arguments, `--strict` failures |
+//!
+//! A policy file's `fail-on` can lower a verdict's exit code to 0 (see [`crate::policy`]); the
+//! verdict word in the report never changes.
 
 use std::io::{IsTerminal, Write};
 use std::path::PathBuf;
@@ -16,8 +19,10 @@ use clap::{Parser, Subcommand, ValueEnum};
 
 use crate::atomic::write_atomic;
 use crate::collect::{stamp, StampOptions};
-use crate::diff::compare;
+use crate::diff::compare_with;
+use crate::diff::rules::{render_table, TableFormat};
 use crate::manifest::{Manifest, ManifestFormat};
+use crate::policy::{Policy, POLICY_FILE};
 use crate::report::{color_allowed, render, ReportFormat};
 
 /// Exit code for bad input.
@@ -27,8 +32,11 @@ const EXIT_CODES: &str = "Exit codes:
   0  verdict none: no effect on results expected (stamp: success)
   3  verdict verify: results may shift slightly; rerun and compare metrics
   4  verdict retrain: results are expected to change
-  2  bad input: unreadable or malformed manifest (the file is named), bad arguments,
-     or a failed collector under --strict";
+  2  bad input: unreadable or malformed manifest or policy (the file is named), bad
+     arguments, or a failed collector under --strict
+A policy file (runprint.toml at the repository root, or --policy) can set
+fail-on = \"retrain\" (verify exits 0) or \"never\" (every verdict exits 0); the verdict
+word in the report is unchanged.";
 
 /// Record what can change a training run's results, and tell whether a difference needs a
 /// retrain.
@@ -55,6 +63,35 @@ enum Command {
     Fleet(FleetArgs),
     /// Print the shell steps back to a manifest's environment (prints only, runs nothing).
     Recreate(RecreateArgs),
+    /// List the built-in rules with their reasons and sources.
+    Rules(RulesArgs),
+    /// Work with a repository's policy file (runprint.toml).
+    #[command(subcommand)]
+    Policy(PolicyCommand),
+}
+
+#[derive(Debug, clap::Args)]
+struct RulesArgs {
+    /// Output format (`markdown` writes docs/rules.md).
+    #[arg(long, value_enum, default_value_t = RulesFormat::Text)]
+    format: RulesFormat,
+}
+
+#[derive(Debug, Clone, Copy, ValueEnum)]
+enum RulesFormat {
+    Text,
+    Json,
+    Markdown,
+}
+
+#[derive(Debug, Subcommand)]
+enum PolicyCommand {
+    /// Validate a policy file (default: runprint.toml at the repository root). Exit 0 when it
+    /// is valid, 2 when it is not.
+    Check {
+        /// The policy file.
+        file: Option<PathBuf>,
+    },
 }
 
 #[derive(Debug, clap::Args)]
@@ -133,9 +170,14 @@ struct DiffArgs {
     /// (default: the current folder's repository).
     #[arg(long, value_name = "DIR")]
     repo: Option<PathBuf>,
-    /// Also show a compact diff of each changed lockfile's package list.
+    /// Also show each change's rule and source, a word diff of its values, and a compact
+    /// diff of each changed lockfile's package list.
     #[arg(long, short)]
     verbose: bool,
+    /// The policy file (default: runprint.toml at the root of the repository named by --repo
+    /// or of the current folder's repository, when there is one).
+    #[arg(long, value_name = "FILE")]
+    policy: Option<PathBuf>,
 }
 
 #[derive(Debug, clap::Args)]
@@ -156,6 +198,9 @@ struct CheckArgs {
     /// Also show a compact diff of each changed lockfile's package list.
     #[arg(long, short)]
     verbose: bool,
+    /// The policy file (default: runprint.toml at the root of the repository at `--repo`).
+    #[arg(long, value_name = "FILE")]
+    policy: Option<PathBuf>,
     #[command(flatten)]
     collect: CollectArgs,
 }
@@ -196,6 +241,18 @@ pub fn main() -> ExitCode {
         Command::Check(args) => run_check(args),
         Command::Fleet(args) => run_fleet(args),
         Command::Recreate(args) => run_recreate(args),
+        Command::Rules(args) => {
+            let format = match args.format {
+                RulesFormat::Text => TableFormat::Text,
+                RulesFormat::Json => TableFormat::Json,
+                RulesFormat::Markdown => TableFormat::Markdown,
+            };
+            match emit(&render_table(format)) {
+                Ok(()) => ExitCode::SUCCESS,
+                Err(e) => fail(format!("cannot write to stdout: {e}")),
+            }
+        }
+        Command::Policy(PolicyCommand::Check { file }) => run_policy_check(file),
     }
 }
 
@@ -284,6 +341,38 @@ fn run_stamp(args: StampArgs) -> ExitCode {
     ExitCode::SUCCESS
 }
 
+fn run_policy_check(file: Option<PathBuf>) -> ExitCode {
+    let policy = match &file {
+        Some(path) => Policy::load(path),
+        None => {
+            let cwd = std::env::current_dir().unwrap_or_else(|_| PathBuf::from("."));
+            match Policy::discover(None, &cwd) {
+                Ok(p) if p.path.is_none() => {
+                    return fail(format!(
+                        "no {POLICY_FILE} at the repository root; name a file to check"
+                    ))
+                }
+                other => other,
+            }
+        }
+    };
+    match policy {
+        Ok(p) => {
+            let today = p.today();
+            for a in p.accept.iter().filter(|a| a.is_expired(&today)) {
+                eprintln!(
+                    "warning: the acceptance of `{}` (line {}) expired on {} and no longer applies",
+                    a.subject, a.line, a.expires
+                );
+            }
+            let path = p.path.as_deref().map(|p| p.display().to_string());
+            println!("ok: {}: {}", path.unwrap_or_default(), p.summary());
+            ExitCode::SUCCESS
+        }
+        Err(e) => fail(e),
+    }
+}
+
 fn run_diff(args: DiffArgs) -> ExitCode {
     // The two files are parsed on two threads: parsing dominates the time of a large diff.
     let (old, new) = std::thread::scope(|s| {
@@ -295,17 +384,28 @@ fn run_diff(args: DiffArgs) -> ExitCode {
         (Ok(o), Ok(n)) => (o, n),
         (Err(e), _) | (_, Err(e)) => return fail(e),
     };
-    let mut report = compare(
+    let here = std::env::current_dir().unwrap_or_else(|_| PathBuf::from("."));
+    let policy = match Policy::discover(
+        args.policy.as_deref(),
+        args.repo.as_deref().unwrap_or(&here),
+    ) {
+        Ok(p) => p,
+        Err(e) => return fail(e),
+    };
+    let mut report = compare_with(
         &args.old.display().to_string(),
         &old,
         &args.new.display().to_string(),
         &new,
         args.repo.as_deref(),
+        &policy,
     );
     if args.verbose {
         report.details = crate::diff::package_list_diffs(&old, &new);
+        crate::diff::explain_values(&mut report);
     }
-    emit_report(&report, args.format)
+    let exit = policy.exit_code(report.verdict);
+    emit_report(&report, args.format, exit)
 }
 
 impl DiffFormat {
@@ -326,12 +426,12 @@ fn stdout_color() -> bool {
     )
 }
 
-/// Prints a report and returns its verdict's exit code.
-fn emit_report(report: &crate::diff::Report, format: DiffFormat) -> ExitCode {
+/// Prints a report and returns `exit` (the verdict's code under the policy).
+fn emit_report(report: &crate::diff::Report, format: DiffFormat, exit: u8) -> ExitCode {
     if let Err(e) = emit(&render(report, format.report_format(), stdout_color())) {
         return fail(format!("cannot write to stdout: {e}"));
     }
-    ExitCode::from(report.verdict.exit_code())
+    ExitCode::from(exit)
 }
 
 fn run_check(args: CheckArgs) -> ExitCode {
@@ -339,9 +439,19 @@ fn run_check(args: CheckArgs) -> ExitCode {
         Ok(m) => m,
         Err(e) => return fail(e),
     };
+    let policy = match Policy::discover(args.policy.as_deref(), &args.collect.repo) {
+        Ok(p) => p,
+        Err(e) => return fail(e),
+    };
     let baseline_name = args.baseline.display().to_string();
     let mut report = if let Some(rev) = &args.rev {
-        match crate::check::against_revision(&baseline_name, &baseline, &args.collect.repo, rev) {
+        match crate::check::against_revision(
+            &baseline_name,
+            &baseline,
+            &args.collect.repo,
+            rev,
+            &policy,
+        ) {
             Ok(r) => r,
             Err(e) => return fail(e),
         }
@@ -372,6 +482,7 @@ fn run_check(args: CheckArgs) -> ExitCode {
             &current_name,
             &current,
             &repo,
+            &policy,
         );
         if args.verbose {
             report.details = crate::diff::package_list_diffs(&baseline, &current);
@@ -384,7 +495,8 @@ fn run_check(args: CheckArgs) -> ExitCode {
                 .into(),
         );
     }
-    emit_report(&report, args.format)
+    let exit = policy.exit_code(report.verdict);
+    emit_report(&report, args.format, exit)
 }
 
 fn run_fleet(args: FleetArgs) -> ExitCode {

@@ -6,7 +6,8 @@
 //! * [`manifest`]: the versioned, typed manifest and its fingerprint;
 //! * [`collect`]: one module per source of facts, assembled by [`collect::stamp`];
 //! * [`lockfile`]: pure parsers from lockfile text to packages;
-//! * [`diff`]: the comparison and its rules;
+//! * [`diff`]: the comparison and its rule table ([`diff::rules`]);
+//! * [`policy`]: a repository's `runprint.toml`, adjusting the rules;
 //! * [`report`]: rendering for people, programs and pull requests;
 //! * [`cli`]: the command line; the `runprint` binary only calls [`cli::main`].
 //!
@@ -33,6 +34,7 @@ pub mod fleet;
 pub mod hashing;
 pub mod lockfile;
 pub mod manifest;
+pub mod policy;
 pub mod recreate;
 pub mod redact;
 pub mod report;

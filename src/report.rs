@@ -71,6 +71,9 @@ fn text(report: &Report, color: bool) -> String {
     let mut out = String::new();
     let verdict = report.verdict.as_str().to_uppercase();
     let _ = writeln!(out, "verdict: {}", paint(&verdict, report.verdict, color));
+    if let Some(cause) = &report.most_likely_cause {
+        let _ = writeln!(out, "Most likely cause: {cause}");
+    }
     for (tag, side) in [("old", &report.old), ("new", &report.new)] {
         let fp = side
             .fingerprint
@@ -91,6 +94,9 @@ fn text(report: &Report, color: bool) -> String {
         }
         out.push('\n');
     }
+    if let Some(policy) = &report.policy {
+        let _ = writeln!(out, "  policy: {policy}");
+    }
     if report.changes.is_empty() {
         out.push_str("\nNo differences that runprint records.\n");
     } else {
@@ -105,6 +111,14 @@ fn text(report: &Report, color: bool) -> String {
             }
             out.push('\n');
             let _ = writeln!(out, "         {}", c.reason);
+            if report.verbose {
+                if !c.rule.is_empty() {
+                    let _ = writeln!(out, "         rule {}; source: {}", c.rule, c.source);
+                }
+                if let Some(d) = &c.value_diff {
+                    let _ = writeln!(out, "         diff: {d}");
+                }
+            }
         }
     }
     for note in &report.notes {
@@ -124,6 +138,9 @@ fn markdown(report: &Report) -> String {
     let mut out = String::new();
     let _ = writeln!(out, "### runprint: **{}**", report.verdict);
     out.push('\n');
+    if let Some(cause) = &report.most_likely_cause {
+        let _ = writeln!(out, "**Most likely cause:** {}\n", md_cell(cause));
+    }
     let _ = writeln!(
         out,
         "Compared `{}` (old) with `{}` (new): {}.",
@@ -131,6 +148,9 @@ fn markdown(report: &Report) -> String {
         md_cell(&report.new.path),
         counts(report)
     );
+    if let Some(policy) = &report.policy {
+        let _ = writeln!(out, "\nPolicy: `{}`.", md_cell(policy));
+    }
     for note in &report.notes {
         let _ = writeln!(out, "\n> **Note:** {}", md_cell(note));
     }
@@ -140,13 +160,24 @@ fn markdown(report: &Report) -> String {
     }
     out.push_str("\n| Impact | Subject | Change | Reason |\n|---|---|---|---|\n");
     for c in &report.changes {
+        let mut reason = md_cell(&c.reason);
+        if report.verbose && !c.rule.is_empty() {
+            reason.push_str(&format!(
+                " <br>rule `{}`; source: {}",
+                c.rule,
+                md_cell(&c.source)
+            ));
+            if let Some(d) = &c.value_diff {
+                reason.push_str(&format!(" <br>diff: `{}`", md_cell(d).replace('`', "'")));
+            }
+        }
         let _ = writeln!(
             out,
             "| {} | `{}` | {} | {} |",
             c.impact,
             md_cell(&c.subject),
             md_cell(&value_change(c)),
-            md_cell(&c.reason)
+            reason
         );
     }
     for d in &report.details {

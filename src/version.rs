@@ -154,6 +154,37 @@ pub fn classify(ecosystem: &str, old: &str, new: &str) -> VersionChange {
     }
 }
 
+/// The local label of a version (`2.1.0+cu121` → `cu121`): PEP 440 local version labels for
+/// `pypi` and `conda`, SemVer build metadata elsewhere. PEP 440 says a local version "may not
+/// contain the exact same code" as the public one.
+pub fn local_label(version: &str) -> Option<&str> {
+    version
+        .split_once('+')
+        .map(|(_, l)| l)
+        .filter(|l| !l.is_empty())
+}
+
+/// The version without its local label.
+pub fn public_part(version: &str) -> &str {
+    version.split_once('+').map_or(version, |(p, _)| p)
+}
+
+/// True when two PEP 440 versions differ only in their post-release number (`1.2.3` against
+/// `1.2.3.post1`): PEP 440 reserves post-releases for fixes that do not touch the distributed
+/// software.
+pub fn is_post_release_step(ecosystem: &str, old: &str, new: &str) -> bool {
+    if !is_pep440(ecosystem) {
+        return false;
+    }
+    let (Ok(a), Ok(b)) = (
+        public_part(old).trim().parse::<pep440_rs::Version>(),
+        public_part(new).trim().parse::<pep440_rs::Version>(),
+    ) else {
+        return false;
+    };
+    a.post() != b.post() && a.clone().with_post(None) == b.clone().with_post(None)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -249,5 +280,16 @@ mod tests {
             VersionChange::Patch
         );
         assert_eq!(classify("pypi", "", "1.0"), VersionChange::Unknown);
+    }
+
+    #[test]
+    fn local_labels_and_post_releases() {
+        // PEP 440, "Local version identifiers" and "Post-releases".
+        assert_eq!(local_label("2.1.0+cu121"), Some("cu121"));
+        assert_eq!(local_label("2.1.0"), None);
+        assert_eq!(public_part("2.1.0+cpu"), "2.1.0");
+        assert!(is_post_release_step("pypi", "1.2.3", "1.2.3.post1"));
+        assert!(!is_post_release_step("pypi", "1.2.3", "1.2.4"));
+        assert!(!is_post_release_step("cargo", "1.2.3", "1.2.3.post1"));
     }
 }

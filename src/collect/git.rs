@@ -296,6 +296,48 @@ pub fn workdir(dir: &Path) -> Option<PathBuf> {
         .and_then(|r| r.workdir().map(Path::to_path_buf))
 }
 
+/// One file changed between two commits, with its line counts (0 for binary files).
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct FileStat {
+    /// Path relative to the repository root (the new path of a rename).
+    pub path: String,
+    /// Lines added.
+    pub added: u64,
+    /// Lines removed.
+    pub removed: u64,
+}
+
+/// The files changed between two commits of the repository that contains `dir`, with lines
+/// added and removed (git2's patch statistics, as `git diff --numstat` counts them), or `None`
+/// when either commit is not in that repository.
+pub fn diff_stats_between(dir: &Path, old: &str, new: &str) -> Option<Vec<FileStat>> {
+    let repo = Repository::discover(dir).ok()?;
+    let tree = |id: &str| -> Option<git2::Tree<'_>> {
+        let oid = git2::Oid::from_str(id).ok()?;
+        repo.find_commit(oid).ok()?.tree().ok()
+    };
+    let (a, b) = (tree(old)?, tree(new)?);
+    let diff = repo.diff_tree_to_tree(Some(&a), Some(&b), None).ok()?;
+    let mut out = Vec::new();
+    for (i, delta) in diff.deltas().enumerate() {
+        let Some(path) = delta.new_file().path().or(delta.old_file().path()) else {
+            continue;
+        };
+        let (added, removed) = git2::Patch::from_diff(&diff, i)
+            .ok()
+            .flatten()
+            .and_then(|p| p.line_stats().ok())
+            .map_or((0, 0), |(_, a, r)| (a as u64, r as u64));
+        out.push(FileStat {
+            path: path.to_string_lossy().into_owned(),
+            added,
+            removed,
+        });
+    }
+    out.sort_by(|x, y| x.path.cmp(&y.path));
+    Some(out)
+}
+
 /// Paths changed between two commits of the repository that contains `dir`, or `None` when
 /// either commit is not in that repository (a shallow clone, another repository).
 pub fn changed_between(dir: &Path, old: &str, new: &str) -> Option<Vec<String>> {

@@ -1,9 +1,11 @@
-//! Comparing two manifests: every difference becomes a [`Change`] with an [`Impact`] and a
-//! reason; the [`Report`]'s verdict is the highest impact found.
+//! Comparing two manifests: every difference becomes a [`Change`] decided by one rule of the
+//! built-in table ([`rules::RULES`]), adjusted by the repository's policy
+//! ([`crate::policy::Policy`]); the [`Report`]'s verdict is the highest impact found, and its
+//! "most likely cause" the change most likely to explain a difference in results.
 //!
-//! The comparison is pure apart from one optional look into git ([`git::changed_between`]) to
-//! list the files changed between two commits, so that documentation-only commits do not ask
-//! for a retrain.
+//! The comparison is pure apart from one optional look into git
+//! ([`git::diff_stats_between`]) to list and measure the files changed between two commits, so
+//! that documentation-only commits do not ask for a retrain.
 
 pub mod rules;
 pub mod stack;
@@ -15,13 +17,17 @@ use serde::{Deserialize, Serialize};
 
 use crate::collect::git;
 use crate::manifest::{Content, DataInput, Lockfile, Manifest, Package};
-use crate::version::{self, VersionChange};
+use crate::policy::Policy;
+use rules::{PackageChange, PathClass, Rule};
 
 /// How much a change matters, in increasing order.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize, Deserialize)]
+#[derive(
+    Debug, Clone, Copy, Default, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize, Deserialize,
+)]
 #[serde(rename_all = "lowercase")]
 pub enum Impact {
     /// No effect on results is expected.
+    #[default]
     None,
     /// Results may shift slightly: rerun and compare metrics.
     Verify,
@@ -56,7 +62,7 @@ impl std::fmt::Display for Impact {
 }
 
 /// One difference between two manifests.
-#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
 pub struct Change {
     /// How much it matters.
     pub impact: Impact,
@@ -64,7 +70,8 @@ pub struct Change {
     pub subject: String,
     /// Why it has this impact, in one sentence.
     pub reason: String,
-    /// Manifest section: `git`, `lockfiles`, `env`, `cpu`, `system`.
+    /// Manifest section: `git`, `data`, `lockfiles`, `env`, `cpu`, `system`, `python`,
+    /// `native`, `gpu`, `run`.
     pub section: String,
     /// The old value, where there is one.
     #[serde(skip_serializing_if = "Option::is_none")]
@@ -72,6 +79,68 @@ pub struct Change {
     /// The new value, where there is one.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub new: Option<String>,
+    /// The id of the rule that decided it (see `runprint rules`).
+    #[serde(default, skip_serializing_if = "String::is_empty")]
+    pub rule: String,
+    /// Where the rule's behaviour is documented.
+    #[serde(default, skip_serializing_if = "String::is_empty")]
+    pub source: String,
+    /// Set when the policy file accepted this change: it then has impact `none`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub accepted: Option<Accepted>,
+    /// A compact word diff of the old and new values (`--verbose`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub value_diff: Option<String>,
+}
+
+/// How a policy acceptance changed a change.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+pub struct Accepted {
+    /// The impact the rule gave before the acceptance.
+    pub impact: Impact,
+    /// The acceptance's reason.
+    pub reason: String,
+    /// Its last day, `YYYY-MM-DD`.
+    pub expires: String,
+}
+
+impl Change {
+    /// A change decided by `rule`: the impact, rule id and source come from the rule, and the
+    /// reason is `lead: rule reason` (or the rule's reason alone when `lead` is empty).
+    pub fn from_rule(
+        rule: &Rule,
+        section: &str,
+        subject: impl Into<String>,
+        lead: impl Into<String>,
+        old: Option<String>,
+        new: Option<String>,
+    ) -> Change {
+        let lead = lead.into();
+        Change {
+            impact: rule.impact,
+            subject: subject.into(),
+            reason: if lead.is_empty() {
+                rule.reason.to_string()
+            } else {
+                format!("{lead}: {}", rule.reason)
+            },
+            section: section.to_string(),
+            old,
+            new,
+            rule: rule.id.to_string(),
+            source: rule.source.to_string(),
+            accepted: None,
+            value_diff: None,
+        }
+    }
+
+    /// How likely it explains a difference in results (its rule's weight; 0 when none).
+    pub fn weight(&self) -> u8 {
+        if self.accepted.is_some() {
+            return 0;
+        }
+        rules::by_id(&self.rule).map_or(0, |r| r.weight)
+    }
 }
 
 /// One side of a comparison, for the report's header.
@@ -108,19 +177,68 @@ impl Side {
 pub struct Report {
     /// The highest impact found (`none` when nothing differs).
     pub verdict: Impact,
-    /// Changes, most important first.
+    /// One line naming the change most likely to explain a difference in results; absent when
+    /// the verdict is `none`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub most_likely_cause: Option<String>,
+    /// Changes, most important first (by impact, then by how likely each explains a
+    /// difference in results).
     pub changes: Vec<Change>,
     /// The baseline.
     pub old: Side,
     /// The manifest compared with it.
     pub new: Side,
-    /// Remarks about the comparison itself (edited manifests, missing commits).
+    /// Remarks about the comparison itself (edited manifests, missing commits, expired
+    /// acceptances).
     #[serde(skip_serializing_if = "Vec::is_empty")]
     pub notes: Vec<String>,
+    /// The changed files of the code, by class, and the size of the change.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub code_change: Option<CodeChange>,
+    /// The policy file applied, if any.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub policy: Option<String>,
+    /// Acceptances of the policy file past their date, which no longer apply.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub expired_acceptances: Vec<ExpiredAcceptance>,
     /// Compact diffs of changed package lists, one per lockfile (filled on request, see
     /// [`package_list_diffs`]).
     #[serde(skip_serializing_if = "Vec::is_empty", default)]
     pub details: Vec<Detail>,
+    /// Show each change's rule, source and value diff in text and Markdown (`--verbose`).
+    #[serde(skip)]
+    pub verbose: bool,
+}
+
+/// The code's changed files by class and the size of the change.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+pub struct CodeChange {
+    /// `commits` (both commits were found) or `uncommitted` (recorded changed paths).
+    pub scope: String,
+    /// Number of changed files.
+    pub files: usize,
+    /// Lines added, when both commits were found.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub lines_added: Option<u64>,
+    /// Lines removed, when both commits were found.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub lines_removed: Option<u64>,
+    /// Changed paths by class: `data`, `code`, `config`, `dependencies`, `docs`, `irrelevant`.
+    pub classes: BTreeMap<String, Vec<String>>,
+}
+
+/// An acceptance past its date.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+pub struct ExpiredAcceptance {
+    /// Its subject glob.
+    pub subject: String,
+    /// Its last day.
+    pub expires: String,
+    /// Its reason.
+    pub reason: String,
+    /// Subjects of this comparison it would have accepted.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub would_match: Vec<String>,
 }
 
 /// A compact textual diff of one lockfile's package list.
@@ -163,14 +281,125 @@ pub fn package_list_diffs(old: &Manifest, new: &Manifest) -> Vec<Detail> {
     out
 }
 
-/// Compares two manifests. `repo` is a folder inside a git repository that may hold both
-/// commits (used to list the files changed between them).
+/// A compact word diff of two values: unchanged words as they are, removed ones as `[-…-]`,
+/// added ones as `{+…+}` (the `similar` crate).
+pub fn word_diff(old: &str, new: &str) -> String {
+    use similar::ChangeTag;
+    let diff = similar::TextDiff::from_words(old, new);
+    let mut out = String::new();
+    let mut open: Option<ChangeTag> = None;
+    for c in diff.iter_all_changes() {
+        if open != Some(c.tag()) {
+            match open {
+                Some(ChangeTag::Delete) => out.push_str("-]"),
+                Some(ChangeTag::Insert) => out.push_str("+}"),
+                _ => {}
+            }
+            match c.tag() {
+                ChangeTag::Delete => out.push_str("[-"),
+                ChangeTag::Insert => out.push_str("{+"),
+                ChangeTag::Equal => {}
+            }
+            open = Some(c.tag());
+        }
+        out.push_str(c.value());
+    }
+    match open {
+        Some(ChangeTag::Delete) => out.push_str("-]"),
+        Some(ChangeTag::Insert) => out.push_str("+}"),
+        _ => {}
+    }
+    out
+}
+
+/// Fills each change's `value_diff` and marks the report verbose (`--verbose`).
+pub fn explain_values(report: &mut Report) {
+    report.verbose = true;
+    for c in &mut report.changes {
+        if let (Some(a), Some(b)) = (&c.old, &c.new) {
+            if a != b {
+                c.value_diff = Some(word_diff(a, b));
+            }
+        }
+    }
+}
+
+/// Compares two manifests with the built-in rules. `repo` is a folder inside a git repository
+/// that may hold both commits (used to list the files changed between them).
 pub fn compare(
     old_path: &str,
     old: &Manifest,
     new_path: &str,
     new: &Manifest,
     repo: Option<&Path>,
+) -> Report {
+    compare_with(old_path, old, new_path, new, repo, &Policy::default())
+}
+
+/// What the section comparisons share: the policy, the lockfiles recorded on both sides and
+/// what installed copies say about compiled code.
+pub struct Context<'a> {
+    /// The repository's policy.
+    pub policy: &'a Policy,
+    /// Lockfile paths recorded in both manifests.
+    pub lockfiles: Vec<&'a str>,
+    compiled: BTreeMap<String, bool>,
+}
+
+impl<'a> Context<'a> {
+    /// The context of comparing two manifests' contents.
+    pub fn new(old: &'a Content, new: &'a Content, policy: &'a Policy) -> Context<'a> {
+        let old_locks: BTreeSet<&str> = old.lockfiles.iter().map(|l| l.path.as_str()).collect();
+        let lockfiles = new
+            .lockfiles
+            .iter()
+            .map(|l| l.path.as_str())
+            .filter(|p| old_locks.contains(p))
+            .collect();
+        let mut compiled: BTreeMap<String, bool> = BTreeMap::new();
+        for env in old.python.iter().chain(&new.python) {
+            for d in &env.distributions {
+                *compiled.entry(d.name.to_ascii_lowercase()).or_default() |= d.compiled;
+            }
+        }
+        Context {
+            policy,
+            lockfiles,
+            compiled,
+        }
+    }
+
+    /// What an installed copy says about a package shipping compiled code.
+    pub fn compiled(&self, name: &str) -> Option<bool> {
+        self.compiled.get(&name.to_ascii_lowercase()).copied()
+    }
+
+    /// A package change decided by the rules.
+    #[allow(clippy::too_many_arguments)]
+    pub fn package_change(
+        &self,
+        section: &str,
+        subject: String,
+        name: &str,
+        dev: bool,
+        compiled: Option<bool>,
+        change: PackageChange<'_>,
+        values: (Option<String>, Option<String>),
+    ) -> Change {
+        let class = rules::classify_package(name, dev, compiled, self.policy);
+        let (rule, lead) = rules::package_rule(name, &class, change);
+        Change::from_rule(rule, section, subject, lead, values.0, values.1)
+    }
+}
+
+/// Compares two manifests under a policy (see [`compare`]).
+pub fn compare_with(
+    old_path: &str,
+    old: &Manifest,
+    new_path: &str,
+    new: &Manifest,
+    repo: Option<&Path>,
+    policy: &Policy,
 ) -> Report {
     let mut notes = Vec::new();
     let (old_side, new_side) = (Side::of(old_path, old), Side::of(new_path, new));
@@ -182,65 +411,158 @@ pub fn compare(
             ));
         }
     }
+    let ctx = Context::new(&old.content, &new.content, policy);
     let mut changes = Vec::new();
-    compare_git(&old.content, &new.content, repo, &mut changes, &mut notes);
-    compare_lockfiles(&old.content.lockfiles, &new.content.lockfiles, &mut changes);
+    let code_change = compare_git(
+        &old.content,
+        &new.content,
+        repo,
+        &ctx,
+        &mut changes,
+        &mut notes,
+    );
+    compare_lockfiles(
+        &old.content.lockfiles,
+        &new.content.lockfiles,
+        &ctx,
+        &mut changes,
+    );
     compare_data(&old.content, &new.content, &mut changes);
-    compare_env(&old.content, &new.content, &mut changes);
+    compare_env(&old.content, &new.content, &ctx, &mut changes);
     compare_cpu(&old.content, &new.content, &mut changes);
     compare_system(&old.content, &new.content, &mut changes);
     compare_run(old, new, &mut changes);
-    stack::compare(&old.content, &new.content, &mut changes);
+    stack::compare(&old.content, &new.content, &ctx, &mut changes);
+    let expired_acceptances = apply_acceptances(policy, &mut changes, &mut notes);
     sort_changes(&mut changes);
+    let verdict = changes
+        .iter()
+        .map(|c| c.impact)
+        .max()
+        .unwrap_or(Impact::None);
     Report {
-        verdict: changes
-            .iter()
-            .map(|c| c.impact)
-            .max()
-            .unwrap_or(Impact::None),
+        verdict,
+        most_likely_cause: most_likely_cause(&changes, verdict),
         changes,
         old: old_side,
         new: new_side,
         notes,
+        code_change,
+        policy: policy.path.as_ref().map(|p| p.display().to_string()),
+        expired_acceptances,
         details: Vec::new(),
+        verbose: false,
     }
 }
 
-/// Orders changes most important first; within an impact, by section then subject.
+/// Applies the policy's acceptances; returns the expired ones (which do not apply).
+fn apply_acceptances(
+    policy: &Policy,
+    changes: &mut [Change],
+    notes: &mut Vec<String>,
+) -> Vec<ExpiredAcceptance> {
+    let today = policy.today();
+    let mut expired = Vec::new();
+    for a in &policy.accept {
+        let hits: Vec<usize> = changes
+            .iter()
+            .enumerate()
+            .filter(|(_, c)| {
+                c.impact > Impact::None
+                    && a.matches(&c.subject, &c.rule, c.old.as_deref(), c.new.as_deref())
+            })
+            .map(|(i, _)| i)
+            .collect();
+        if a.is_expired(&today) {
+            let would_match: Vec<String> =
+                hits.iter().map(|&i| changes[i].subject.clone()).collect();
+            notes.push(format!(
+                "the acceptance of `{}` (policy line {}) expired on {} and no longer applies{}",
+                a.subject,
+                a.line,
+                a.expires,
+                if would_match.is_empty() {
+                    String::new()
+                } else {
+                    format!("; it would have accepted {}", would_match.join(", "))
+                }
+            ));
+            expired.push(ExpiredAcceptance {
+                subject: a.subject.clone(),
+                expires: a.expires.clone(),
+                reason: a.reason.clone(),
+                would_match,
+            });
+            continue;
+        }
+        for i in hits {
+            let c = &mut changes[i];
+            if c.accepted.is_some() {
+                continue;
+            }
+            c.accepted = Some(Accepted {
+                impact: c.impact,
+                reason: a.reason.clone(),
+                expires: a.expires.clone(),
+            });
+            c.reason = format!(
+                "accepted by the policy until {} ({}); the rule said {}: {}",
+                a.expires, a.reason, c.impact, c.reason
+            );
+            c.impact = Impact::None;
+        }
+    }
+    expired
+}
+
+/// The one-line "most likely cause": the first change of the verdict's impact after sorting.
+fn most_likely_cause(sorted: &[Change], verdict: Impact) -> Option<String> {
+    if verdict == Impact::None {
+        return None;
+    }
+    let top = sorted.first()?;
+    let title = rules::by_id(&top.rule).map_or("", |r| r.title);
+    let values = match (&top.old, &top.new) {
+        (Some(a), Some(b)) => format!(" {a} → {b}"),
+        (None, Some(b)) => format!(" (absent) → {b}"),
+        (Some(a), None) => format!(" {a} → (absent)"),
+        (None, None) => String::new(),
+    };
+    let others = sorted.iter().filter(|c| c.impact > Impact::None).count() - 1;
+    let mut line = format!("{}{values}", top.subject);
+    if !title.is_empty() {
+        line.push_str(&format!(" — {title}"));
+    }
+    if others > 0 {
+        line.push_str(&format!(
+            "; {others} other change(s) could also move results"
+        ));
+    }
+    Some(line)
+}
+
+/// Orders changes most important first: by impact, then by how likely each explains a
+/// difference in results (its rule's weight), then by section and subject.
 pub fn sort_changes(changes: &mut [Change]) {
     let rank = |s: &str| match s {
         "git" => 0,
         "data" => 1,
         "lockfiles" => 2,
-        "env" => 3,
-        "cpu" => 4,
-        "system" => 5,
-        _ => 6,
+        "python" => 3,
+        "native" => 4,
+        "gpu" => 5,
+        "env" => 6,
+        "cpu" => 7,
+        "system" => 8,
+        _ => 9,
     };
     changes.sort_by(|a, b| {
         b.impact
             .cmp(&a.impact)
+            .then_with(|| b.weight().cmp(&a.weight()))
             .then_with(|| rank(&a.section).cmp(&rank(&b.section)))
             .then_with(|| a.subject.cmp(&b.subject))
     });
-}
-
-fn change(
-    impact: Impact,
-    section: &str,
-    subject: impl Into<String>,
-    reason: impl Into<String>,
-    old: Option<String>,
-    new: Option<String>,
-) -> Change {
-    Change {
-        impact,
-        subject: subject.into(),
-        reason: reason.into(),
-        section: section.to_string(),
-        old,
-        new,
-    }
 }
 
 fn short(commit: &Option<String>) -> Option<String> {
@@ -261,93 +583,129 @@ fn some_paths(paths: &[String]) -> String {
     s
 }
 
-/// Impact of a set of changed files: documentation only, or code.
-fn classify_paths(paths: &[String], what: &str) -> (Impact, String) {
-    let code: Vec<String> = paths
-        .iter()
-        .filter(|p| !rules::is_documentation_path(p))
-        .cloned()
-        .collect();
-    if code.is_empty() && !paths.is_empty() {
-        (
-            Impact::None,
-            format!(
-                "{what} only documentation ({}), which training does not read",
-                some_paths(paths)
-            ),
-        )
-    } else if code.is_empty() {
-        (Impact::None, format!("{what} no file contents"))
-    } else {
-        (
-            Impact::Retrain,
-            format!("{what} {} file(s) of code or configuration ({}), which can change what training computes", code.len(), some_paths(&code)),
-        )
+/// Classes the changed paths and picks the deciding rule; the lead names the files by class.
+fn classify_paths(
+    paths: &[String],
+    stats: Option<(u64, u64)>,
+    scope: &str,
+    ctx: &Context<'_>,
+) -> (&'static Rule, String, CodeChange) {
+    let mut classes: BTreeMap<PathClass, Vec<String>> = BTreeMap::new();
+    for p in paths {
+        classes
+            .entry(rules::path_class(p, ctx.policy, &ctx.lockfiles))
+            .or_default()
+            .push(p.clone());
     }
+    let present: Vec<PathClass> = classes.keys().copied().collect();
+    let rule = rules::git_rule(&present);
+    let size = match stats {
+        Some((a, r)) => format!("{} file(s), +{a} −{r} lines", paths.len()),
+        None => format!("{} file(s)", paths.len()),
+    };
+    let listing = classes
+        .iter()
+        .map(|(c, ps)| format!("{} {}", c.as_str(), some_paths(ps)))
+        .collect::<Vec<_>>()
+        .join("; ");
+    let lead = if paths.is_empty() {
+        format!("{scope}: no file changed")
+    } else {
+        format!("{scope}: {size} ({listing})")
+    };
+    let summary = CodeChange {
+        scope: if stats.is_some() {
+            "commits".into()
+        } else {
+            "uncommitted".into()
+        },
+        files: paths.len(),
+        lines_added: stats.map(|s| s.0),
+        lines_removed: stats.map(|s| s.1),
+        classes: classes
+            .into_iter()
+            .map(|(c, ps)| (c.as_str().to_string(), ps))
+            .collect(),
+    };
+    (rule, lead, summary)
 }
 
 fn compare_git(
     old: &Content,
     new: &Content,
     repo: Option<&Path>,
+    ctx: &Context<'_>,
     out: &mut Vec<Change>,
     notes: &mut Vec<String>,
-) {
+) -> Option<CodeChange> {
     let (o, n) = (&old.git, &new.git);
     if o.present != n.present {
-        out.push(change(
-            Impact::Verify,
+        out.push(Change::from_rule(
+            &rules::GIT_PRESENCE,
             "git",
             "source control",
-            "only one side was stamped inside a git repository, so the code cannot be compared",
+            "",
             Some(o.present.to_string()),
             Some(n.present.to_string()),
         ));
-        return;
+        return None;
     }
     if !o.present {
-        return;
+        return None;
     }
+    let mut summary = None;
     if o.commit != n.commit {
         let listed = match (&o.commit, &n.commit) {
             (Some(a), Some(b)) => {
                 let cwd = std::env::current_dir().ok();
                 repo.or(cwd.as_deref())
-                    .and_then(|dir| git::changed_between(dir, a, b))
+                    .and_then(|dir| git::diff_stats_between(dir, a, b))
             }
             _ => None,
         };
         match listed {
-            Some(mut paths) => {
+            Some(stats) => {
+                let (added, removed) = stats
+                    .iter()
+                    .fold((0, 0), |(a, r), f| (a + f.added, r + f.removed));
+                let mut paths: Vec<String> = stats.into_iter().map(|f| f.path).collect();
                 // Uncommitted edits on either side count too.
                 paths.extend(o.changed_paths.iter().cloned());
                 paths.extend(n.changed_paths.iter().cloned());
                 paths.sort();
                 paths.dedup();
-                let (impact, reason) =
-                    classify_paths(&paths, "the code changed between the two commits:");
-                out.push(change(
-                    impact,
+                let (rule, lead, s) = classify_paths(
+                    &paths,
+                    Some((added, removed)),
+                    "the code changed between the two commits",
+                    ctx,
+                );
+                summary = Some(s);
+                out.push(Change::from_rule(
+                    rule,
                     "git",
                     "commit",
-                    reason,
+                    lead,
                     short(&o.commit),
                     short(&n.commit),
                 ));
             }
             None => {
                 notes.push("the files changed between the two commits could not be listed (run inside the repository or pass --repo)".into());
-                out.push(change(
-                    Impact::Retrain,
+                out.push(Change::from_rule(
+                    &rules::GIT_UNLISTED,
                     "git",
                     "commit",
-                    "the commit changed and the changed files could not be listed, so it is treated as a change to training code",
+                    "",
                     short(&o.commit),
                     short(&n.commit),
                 ));
             }
         }
     } else if o.dirty_digest != n.dirty_digest {
+        // With the same commit, the recorded digests tell whether the uncommitted change
+        // differs, and the recorded path lists name the files. A path changed identically on
+        // both sides cannot be told apart by the lists alone, so all listed paths count.
         let mut paths: Vec<String> = o
             .changed_paths
             .iter()
@@ -356,42 +714,34 @@ fn compare_git(
             .collect();
         paths.sort();
         paths.dedup();
-        // A path changed identically on both sides cannot be told apart by the lists alone, so
-        // all listed paths are considered.
-        let (impact, reason) = classify_paths(&paths, "the uncommitted changes differ in");
-        out.push(change(
-            impact,
+        let (rule, lead, s) = classify_paths(&paths, None, "the uncommitted changes differ", ctx);
+        summary = Some(s);
+        let digest = |d: &Option<String>| Some(d.as_deref().map_or("clean".into(), digest_short));
+        out.push(Change::from_rule(
+            rule,
             "git",
             "uncommitted changes",
-            reason,
-            Some(
-                o.dirty_digest
-                    .as_deref()
-                    .map_or("clean".into(), digest_short),
-            ),
-            Some(
-                n.dirty_digest
-                    .as_deref()
-                    .map_or("clean".into(), digest_short),
-            ),
+            lead,
+            digest(&o.dirty_digest),
+            digest(&n.dirty_digest),
         ));
     }
     if o.branch != n.branch {
-        out.push(change(
-            Impact::None,
+        out.push(Change::from_rule(
+            &rules::GIT_BRANCH,
             "git",
             "branch",
-            "a branch name does not change the code that runs; the commit does",
+            "",
             o.branch.clone(),
             n.branch.clone(),
         ));
     }
     if o.remote != n.remote {
-        out.push(change(
-            Impact::None,
+        out.push(Change::from_rule(
+            &rules::GIT_REMOTE,
             "git",
             "remote",
-            "where the repository was cloned from does not change the code that runs",
+            "",
             o.remote.clone(),
             n.remote.clone(),
         ));
@@ -409,16 +759,17 @@ fn compare_git(
             ns.get(path).cloned().flatten(),
         );
         if a != b {
-            out.push(change(
-                Impact::Retrain,
+            out.push(Change::from_rule(
+                &rules::GIT_SUBMODULE,
                 "git",
                 format!("submodule {path}"),
-                "a submodule holds vendored code built or imported by training; its commit changed",
+                "",
                 short(&a),
                 short(&b),
             ));
         }
     }
+    summary
 }
 
 fn compare_data(old: &Content, new: &Content, out: &mut Vec<Change>) {
@@ -430,22 +781,32 @@ fn compare_data(old: &Content, new: &Content, out: &mut Vec<Change>) {
         let subject = format!("data {path}");
         match (o.get(path), n.get(path)) {
             (Some(a), Some(b)) if a.sha256 != b.sha256 => {
-                let detail = changed_files(a, b).map_or_else(String::new, |d| format!(" ({d})"));
-                out.push(change(
-                    Impact::Retrain,
+                let lead = changed_files(a, b).map_or_else(String::new, |d| format!("files {d}"));
+                out.push(Change::from_rule(
+                    &rules::DATA_CHANGED,
                     "data",
                     subject,
-                    format!("the training data changed{detail}; a model trained on different data is a different model"),
-                    Some(format!("{} files, {} bytes, {}", a.files, a.size, digest_short(&a.sha256))),
-                    Some(format!("{} files, {} bytes, {}", b.files, b.size, digest_short(&b.sha256))),
+                    lead,
+                    Some(format!(
+                        "{} files, {} bytes, {}",
+                        a.files,
+                        a.size,
+                        digest_short(&a.sha256)
+                    )),
+                    Some(format!(
+                        "{} files, {} bytes, {}",
+                        b.files,
+                        b.size,
+                        digest_short(&b.sha256)
+                    )),
                 ));
             }
             (Some(_), Some(_)) => {}
-            (a, b) => out.push(change(
-                Impact::Verify,
+            (a, b) => out.push(Change::from_rule(
+                &rules::DATA_ONE_SIDE,
                 "data",
                 subject,
-                "the data input is declared on one side only, so its content cannot be compared",
+                "",
                 a.map(|d| digest_short(&d.sha256)),
                 b.map(|d| digest_short(&d.sha256)),
             )),
@@ -500,7 +861,7 @@ fn digest_short(d: &str) -> String {
         .collect()
 }
 
-fn compare_lockfiles(old: &[Lockfile], new: &[Lockfile], out: &mut Vec<Change>) {
+fn compare_lockfiles(old: &[Lockfile], new: &[Lockfile], ctx: &Context<'_>, out: &mut Vec<Change>) {
     let index = |ls: &[Lockfile]| -> BTreeMap<String, usize> {
         ls.iter()
             .enumerate()
@@ -515,58 +876,54 @@ fn compare_lockfiles(old: &[Lockfile], new: &[Lockfile], out: &mut Vec<Change>) 
         ) {
             (Some(a), Some(b)) => {
                 if a.sha256 != b.sha256 || a.packages != b.packages {
-                    compare_packages(path, &b.ecosystem, &a.packages, &b.packages, out);
+                    compare_packages(path, &b.ecosystem, &a.packages, &b.packages, ctx, out);
                 }
             }
-            (Some(a), None) => out.push(whole_lockfile(a, false)),
-            (None, Some(b)) => out.push(whole_lockfile(b, true)),
+            (Some(a), None) => out.push(whole_lockfile(a, false, ctx)),
+            (None, Some(b)) => out.push(whole_lockfile(b, true, ctx)),
             (None, None) => {}
         }
     }
 }
 
-fn whole_lockfile(l: &Lockfile, added: bool) -> Change {
+fn whole_lockfile(l: &Lockfile, added: bool, ctx: &Context<'_>) -> Change {
     let numeric: Vec<&str> = l
         .packages
         .iter()
-        .filter(|p| rules::is_numeric_package(&p.name))
+        .filter(|p| {
+            rules::classify_package(&p.name, p.dev, None, ctx.policy).class
+                == rules::PackageClass::Numeric
+        })
         .map(|p| p.name.as_str())
         .collect();
-    let (impact, reason) = if !numeric.is_empty() {
+    let verb = if added { "added" } else { "removed" };
+    let (rule, lead) = if !numeric.is_empty() {
         (
-            Impact::Retrain,
+            &rules::LOCK_NUMERIC,
             format!(
-                "the lockfile was {} with {} package(s), among them numerical libraries ({})",
-                if added { "added" } else { "removed" },
+                "the lockfile was {verb} with {} package(s), among them numerical libraries ({})",
                 l.packages.len(),
-                numeric.join(", ")
+                some_paths(&numeric.iter().map(|s| s.to_string()).collect::<Vec<_>>())
             ),
         )
     } else if l.packages.is_empty() {
-        (
-            Impact::None,
-            format!(
-                "the lockfile was {} and lists no packages",
-                if added { "added" } else { "removed" }
-            ),
-        )
+        (&rules::LOCK_EMPTY, format!("the lockfile was {verb}"))
     } else {
         (
-            Impact::Verify,
+            &rules::LOCK_OTHER,
             format!(
-                "the lockfile was {} with {} package(s) that training may load",
-                if added { "added" } else { "removed" },
+                "the lockfile was {verb} with {} package(s)",
                 l.packages.len()
             ),
         )
     };
     let count = Some(format!("{} packages", l.packages.len()));
     let (old, new) = if added { (None, count) } else { (count, None) };
-    change(
-        impact,
+    Change::from_rule(
+        rule,
         "lockfiles",
         format!("{} ({})", l.path, l.ecosystem),
-        reason,
+        lead,
         old,
         new,
     )
@@ -585,23 +942,11 @@ fn versions(ps: &[&Package]) -> String {
         .join(", ")
 }
 
-/// The kind of change between two sets of versions of one package (a lockfile may hold several
-/// versions of one name): the highest old version against the highest new one.
-fn version_kind(
-    ecosystem: &str,
-    old: &BTreeSet<&String>,
-    new: &BTreeSet<&String>,
-) -> VersionChange {
-    let highest = |vs: &BTreeSet<&String>| -> Option<String> {
-        vs.iter()
-            .copied()
-            .max_by(|x, y| version::compare(ecosystem, x, y).unwrap_or(std::cmp::Ordering::Equal))
-            .cloned()
-    };
-    match (highest(old), highest(new)) {
-        (Some(a), Some(b)) => version::classify(ecosystem, &a, &b),
-        _ => VersionChange::Unknown,
-    }
+/// The highest of several versions of one package (a lockfile may hold several).
+fn highest<'a>(ecosystem: &str, vs: &BTreeSet<&'a String>) -> Option<&'a String> {
+    vs.iter().copied().max_by(|x, y| {
+        crate::version::compare(ecosystem, x, y).unwrap_or(std::cmp::Ordering::Equal)
+    })
 }
 
 fn group_by_name(ps: &[Package]) -> BTreeMap<String, Vec<&Package>> {
@@ -617,6 +962,7 @@ fn compare_packages(
     ecosystem: &str,
     old: &[Package],
     new: &[Package],
+    ctx: &Context<'_>,
     out: &mut Vec<Change>,
 ) {
     let (og, ng) = (group_by_name(old), group_by_name(new));
@@ -628,15 +974,18 @@ fn compare_packages(
             ng.get(name).unwrap_or(&empty),
         );
         let dev = a.iter().chain(b.iter()).all(|p| p.dev);
+        let compiled = ctx.compiled(name);
+        let pkg = |subject: String, change, values| {
+            ctx.package_change("lockfiles", subject, name, dev, compiled, change, values)
+        };
         if a.is_empty() || b.is_empty() {
-            let what = if a.is_empty() {
-                "new dependency"
+            let change = if a.is_empty() {
+                PackageChange::Added
             } else {
-                "removed dependency"
+                PackageChange::Removed
             };
-            let (impact, reason) = rules::package_impact(name, dev, what);
             let v = |ps: &Vec<&Package>| Some(versions(ps)).filter(|s| !s.is_empty());
-            out.push(change(impact, "lockfiles", subject, reason, v(a), v(b)));
+            out.push(pkg(subject, change, (v(a), v(b))));
             continue;
         }
         let key = |p: &&Package| (p.version.clone(), p.source.clone());
@@ -647,24 +996,19 @@ fn compare_packages(
                 a.iter().map(|p| &p.version).collect(),
                 b.iter().map(|p| &p.version).collect(),
             );
-            let (impact, reason) = if av == bv {
-                rules::package_impact(
-                    name,
-                    dev,
-                    "change of source (registry, URL or git revision)",
-                )
+            let change = if av == bv {
+                PackageChange::Source
             } else {
-                let kind = version_kind(ecosystem, &av, &bv);
-                rules::version_change_impact(name, dev, kind)
+                match (highest(ecosystem, &av), highest(ecosystem, &bv)) {
+                    (Some(o), Some(n)) => PackageChange::Version {
+                        ecosystem,
+                        old: o,
+                        new: n,
+                    },
+                    _ => PackageChange::Source,
+                }
             };
-            out.push(change(
-                impact,
-                "lockfiles",
-                subject,
-                reason,
-                Some(versions(a)),
-                Some(versions(b)),
-            ));
+            out.push(pkg(subject, change, (Some(versions(a)), Some(versions(b)))));
             continue;
         }
         // Same versions and sources: look for rebuilt artifacts and feature changes.
@@ -676,57 +1020,41 @@ fn compare_packages(
                 && !pb.hashes.is_empty()
                 && pa.hashes.iter().all(|h| !pb.hashes.contains(h))
             {
-                let (impact, reason) = rules::package_impact(
-                    name,
-                    dev,
-                    "rebuilt artifact with the same version (different hash)",
-                );
-                out.push(change(
-                    impact,
-                    "lockfiles",
+                out.push(pkg(
                     format!("{subject} {}", pa.version),
-                    reason,
-                    pa.hashes.first().cloned(),
-                    pb.hashes.first().cloned(),
+                    PackageChange::Rebuilt,
+                    (pa.hashes.first().cloned(), pb.hashes.first().cloned()),
                 ));
             }
             if pa.features != pb.features {
-                let (impact, reason) = rules::package_impact(
-                    name,
-                    dev,
-                    "change of enabled features (which can select another backend)",
-                );
-                out.push(change(
-                    impact,
-                    "lockfiles",
+                out.push(pkg(
                     format!("{subject} {} features", pa.version),
-                    reason,
-                    Some(pa.features.join(",")),
-                    Some(pb.features.join(",")),
+                    PackageChange::Features,
+                    (Some(pa.features.join(",")), Some(pb.features.join(","))),
                 ));
             }
         }
     }
 }
 
-fn compare_env(old: &Content, new: &Content, out: &mut Vec<Change>) {
+fn compare_env(old: &Content, new: &Content, ctx: &Context<'_>, out: &mut Vec<Change>) {
     let (o, n) = (&old.env.vars, &new.env.vars);
     for name in o.keys().chain(n.keys()).collect::<BTreeSet<_>>() {
         let (a, b) = (o.get(name), n.get(name));
         if a == b {
             continue;
         }
-        let (impact, why) = rules::env_var_impact(name);
+        let rule = rules::env_rule(name, ctx.policy);
         let what = match (a, b) {
             (None, _) => "was set",
             (_, None) => "was unset",
             _ => "changed",
         };
-        out.push(change(
-            impact,
+        out.push(Change::from_rule(
+            rule,
             "env",
             format!("env {name}"),
-            format!("{name} {what}: {why}"),
+            format!("{name} {what}"),
             a.cloned(),
             b.cloned(),
         ));
@@ -736,11 +1064,11 @@ fn compare_env(old: &Content, new: &Content, out: &mut Vec<Change>) {
         new.env.redacted.iter().collect(),
     );
     for name in ro.symmetric_difference(&rn) {
-        out.push(change(
-            Impact::None,
+        out.push(Change::from_rule(
+            &rules::ENV_CREDENTIAL,
             "env",
             format!("env {name}"),
-            "a credential's presence does not change results (its value is never recorded)",
+            "",
             None,
             None,
         ));
@@ -754,7 +1082,14 @@ fn opt(s: &Option<String>) -> String {
 fn compare_cpu(old: &Content, new: &Content, out: &mut Vec<Change>) {
     let (o, n) = (&old.cpu, &new.cpu);
     if o.arch != n.arch {
-        out.push(change(Impact::Retrain, "cpu", "cpu architecture", "a different instruction-set architecture uses different kernels, fused multiply-add contraction and math libraries; results are expected to differ", Some(o.arch.clone()), Some(n.arch.clone())));
+        out.push(Change::from_rule(
+            &rules::CPU_ARCH,
+            "cpu",
+            "cpu architecture",
+            "",
+            Some(o.arch.clone()),
+            Some(n.arch.clone()),
+        ));
     }
     let ident = |c: &crate::manifest::CpuInfo| {
         (
@@ -766,7 +1101,14 @@ fn compare_cpu(old: &Content, new: &Content, out: &mut Vec<Change>) {
         )
     };
     if ident(o) != ident(n) {
-        out.push(change(Impact::Verify, "cpu", "cpu model", "BLAS and frameworks pick kernels for the processor they find, and different kernels round differently; rerun and compare metrics", Some(opt(&o.model_name)), Some(opt(&n.model_name))));
+        out.push(Change::from_rule(
+            &rules::CPU_MODEL,
+            "cpu",
+            "cpu model",
+            "",
+            Some(opt(&o.model_name)),
+            Some(opt(&n.model_name)),
+        ));
     }
     if o.features != n.features {
         let (of, nf): (BTreeSet<_>, BTreeSet<_>) =
@@ -786,47 +1128,66 @@ fn compare_cpu(old: &Content, new: &Content, out: &mut Vec<Change>) {
             .chain(gone.iter().map(|f| format!("-{f}")))
             .collect::<Vec<_>>()
             .join(" ");
-        out.push(change(Impact::Verify, "cpu", "cpu features", format!("the processor {}; numerical libraries dispatch to different code paths (e.g. AVX-512 or FMA kernels), which changes the last digits", parts.join(" and ")), Some(format!("{} features", o.features.len())), Some(format!("{} features ({summary})", n.features.len()))));
+        out.push(Change::from_rule(
+            &rules::CPU_FEATURES,
+            "cpu",
+            "cpu features",
+            format!("the processor {}", parts.join(" and ")),
+            Some(format!("{} features", o.features.len())),
+            Some(format!("{} features ({summary})", n.features.len())),
+        ));
     }
     let counts =
         |c: &crate::manifest::CpuInfo| (c.logical_cores, c.physical_cores, c.allowed_cpu_count);
+    let fmt = |c: &crate::manifest::CpuInfo| {
+        format!(
+            "{} logical, {} allowed",
+            c.logical_cores,
+            c.allowed_cpu_count.map_or("?".into(), |n| n.to_string())
+        )
+    };
     if counts(o) != counts(n) {
-        let fmt = |c: &crate::manifest::CpuInfo| {
-            format!(
-                "{} logical, {} allowed",
-                c.logical_cores,
-                c.allowed_cpu_count.map_or("?".into(), |n| n.to_string())
-            )
-        };
-        out.push(change(Impact::Verify, "cpu", "cpu count", "libraries size their thread pools from the CPU count unless told otherwise, and a different thread count splits reductions differently", Some(fmt(o)), Some(fmt(n))));
+        out.push(Change::from_rule(
+            &rules::CPU_COUNT,
+            "cpu",
+            "cpu count",
+            "",
+            Some(fmt(o)),
+            Some(fmt(n)),
+        ));
+    } else if o.allowed_cpus != n.allowed_cpus {
+        out.push(Change::from_rule(
+            &rules::CPU_AFFINITY,
+            "cpu",
+            "cpu affinity",
+            "",
+            o.allowed_cpus.clone(),
+            n.allowed_cpus.clone(),
+        ));
     }
 }
 
 fn compare_run(old: &Manifest, new: &Manifest, out: &mut Vec<Change>) {
     let (o, n) = (&old.run, &new.run);
-    if o.hostname != n.hostname {
-        out.push(change(Impact::None, "run", "host name", "the machine's name does not change arithmetic (its processor, libraries and drivers are compared separately)", o.hostname.clone(), n.hostname.clone()));
-    }
-    if o.label != n.label {
-        out.push(change(
-            Impact::None,
-            "run",
-            "label",
-            "the label is a note for people",
-            o.label.clone(),
-            n.label.clone(),
-        ));
-    }
-    if o.tool_version != n.tool_version {
-        out.push(change(
-            Impact::None,
-            "run",
-            "runprint version",
-            "the version of runprint that wrote the manifest does not affect training",
-            Some(o.tool_version.clone()),
-            Some(n.tool_version.clone()),
-        ));
-    }
+    let mut push = |subject: &str, a: Option<String>, b: Option<String>| {
+        if a != b {
+            out.push(Change::from_rule(
+                &rules::RUN_INFO,
+                "run",
+                subject,
+                "",
+                a,
+                b,
+            ));
+        }
+    };
+    push("host name", o.hostname.clone(), n.hostname.clone());
+    push("label", o.label.clone(), n.label.clone());
+    push(
+        "runprint version",
+        Some(o.tool_version.clone()),
+        Some(n.tool_version.clone()),
+    );
 }
 
 fn compare_system(old: &Content, new: &Content, out: &mut Vec<Change>) {
@@ -834,22 +1195,50 @@ fn compare_system(old: &Content, new: &Content, out: &mut Vec<Change>) {
     if (&o.libc, &o.libc_version) != (&n.libc, &n.libc_version) {
         let f =
             |s: &crate::manifest::SystemInfo| format!("{} {}", opt(&s.libc), opt(&s.libc_version));
-        out.push(change(Impact::Verify, "system", "libc", "the C library provides libm; its exp/log/sin implementations can differ in the last bit between versions", Some(f(o)), Some(f(n))));
-    }
-    if (&o.os, &o.os_version) != (&n.os, &n.os_version) {
-        out.push(change(Impact::None, "system", "operating system", "the operating system release itself does not do the arithmetic (its C library and drivers are compared separately)", Some(format!("{} {}", o.os, opt(&o.os_version))), Some(format!("{} {}", n.os, opt(&n.os_version)))));
-    }
-    if o.kernel != n.kernel {
-        out.push(change(
-            Impact::None,
+        out.push(Change::from_rule(
+            &rules::SYS_LIBC,
             "system",
-            "kernel",
-            "the kernel schedules work but does not change arithmetic",
-            o.kernel.clone(),
-            n.kernel.clone(),
+            "libc",
+            "",
+            Some(f(o)),
+            Some(f(n)),
         ));
     }
-    if o.memory_bytes != n.memory_bytes {
-        out.push(change(Impact::None, "system", "memory", "the amount of memory does not change arithmetic (unless batch sizes are derived from it, which the training code decides)", Some(o.memory_bytes.to_string()), Some(n.memory_bytes.to_string())));
+    let mut push = |subject: &str, a: Option<String>, b: Option<String>| {
+        if a != b {
+            out.push(Change::from_rule(
+                &rules::SYS_OTHER,
+                "system",
+                subject,
+                "",
+                a,
+                b,
+            ));
+        }
+    };
+    push(
+        "operating system",
+        Some(format!("{} {}", o.os, opt(&o.os_version))),
+        Some(format!("{} {}", n.os, opt(&n.os_version))),
+    );
+    push("kernel", o.kernel.clone(), n.kernel.clone());
+    push(
+        "memory",
+        Some(o.memory_bytes.to_string()),
+        Some(n.memory_bytes.to_string()),
+    );
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn word_diff_marks_removed_and_added_words() {
+        assert_eq!(
+            word_diff("--a --b=1 --c", "--a --b=2 --c"),
+            "--a [---b=1-]{+--b=2+} --c"
+        );
+        assert_eq!(word_diff("8", "16"), "[-8-]{+16+}");
     }
 }

@@ -1,30 +1,456 @@
-//! The starting rule set: which packages, variables and paths matter, and why.
+//! The built-in rule set: one table of rules, each with what it matches, the impact, how
+//! likely it is to explain a difference in results, a one-sentence reason written for
+//! practitioners, and its source.
 //!
-//! Each reason is one sentence a practitioner would accept. The facts behind them are listed
-//! with sources in `docs/rules.md`.
+//! Every [`Change`](super::Change) the comparison produces names the rule that decided it
+//! (`rule`, `source`), so a verdict can always be traced to a documented fact. The table is
+//! [`RULES`]; `runprint rules` prints it and `docs/rules.md` is generated from it.
+//!
+//! Matching is done by small functions below ([`package_rule`], [`env_rule`], [`path_class`]
+//! and [`git_rule`]) and, for the fixed facts of the CPU, system, stack and GPU, by the
+//! comparison code picking the rule directly. A repository's policy file
+//! ([`crate::policy::Policy`]) can add packages, variables and paths to a class before these
+//! functions run.
+//!
+//! Weights order changes of the same impact by how likely each is to explain a difference in
+//! results (100: almost certainly, 0: not at all). They are judgements drawn from the sources,
+//! not measurements.
 
 use super::Impact;
-use crate::version::VersionChange;
+use crate::policy::{EnvClass, PackageClassName, PathClassName, Policy};
+use crate::version::{self, VersionChange};
 
-/// Packages whose code does the arithmetic of training or preprocessing, by ecosystem-neutral
-/// normalized name. A version change of one is a retrain.
+/// One rule of the built-in table.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Rule {
+    /// Stable identifier, e.g. `pkg.numeric.major`.
+    pub id: &'static str,
+    /// The manifest section it applies to.
+    pub section: &'static str,
+    /// What it matches, as a short noun phrase (also used for "Most likely cause").
+    pub title: &'static str,
+    /// The impact it assigns.
+    pub impact: Impact,
+    /// How likely a change matched by this rule explains a difference in results (0–100).
+    pub weight: u8,
+    /// Why, in one sentence for practitioners.
+    pub reason: &'static str,
+    /// Where the behaviour is stated (URLs), or "common practice".
+    pub source: &'static str,
+}
+
+macro_rules! rules {
+    ($( $name:ident = $id:literal, $sec:literal, $imp:ident, $w:literal,
+        $title:literal, $reason:literal, $source:literal; )*) => {
+        $(
+            #[doc = $title]
+            pub static $name: Rule = Rule {
+                id: $id,
+                section: $sec,
+                title: $title,
+                impact: Impact::$imp,
+                weight: $w,
+                reason: $reason,
+                source: $source,
+            };
+        )*
+        /// Every built-in rule, in the order of `docs/rules.md`.
+        pub static RULES: &[&Rule] = &[$(&$name),*];
+    };
+}
+
+rules! {
+    // --- source code, configuration and data -------------------------------------------------
+    GIT_DATA = "git.data", "git", Retrain, 98,
+        "data files tracked in the repository changed",
+        "the training data changed, and a model trained on different data is a different model",
+        "common practice";
+    GIT_CODE = "git.code", "git", Retrain, 95,
+        "training code changed",
+        "the program that computes the model changed",
+        "common practice";
+    GIT_CONFIG = "git.config", "git", Retrain, 93,
+        "training configuration changed",
+        "configuration files set hyperparameters, seeds and data splits, so the computation changed",
+        "common practice";
+    GIT_UNLISTED = "git.unlisted", "git", Retrain, 90,
+        "commit changed and the changed files cannot be listed",
+        "without the list of changed files a change to training code cannot be ruled out",
+        "common practice";
+    GIT_SUBMODULE = "git.submodule", "git", Retrain, 80,
+        "submodule commit changed",
+        "a submodule holds vendored code built or imported by training, so other code runs",
+        "common practice";
+    GIT_PRESENCE = "git.presence", "git", Verify, 40,
+        "source control recorded on one side only",
+        "only one side was stamped inside a git repository, so the code cannot be compared",
+        "common practice";
+    GIT_DEPENDENCIES = "git.dependencies", "git", None, 3,
+        "only lockfiles and dependency manifests changed in the code",
+        "their packages are compared one by one under `lockfiles`, which decides their impact",
+        "common practice";
+    GIT_DOCS = "git.docs", "git", None, 2,
+        "only documentation changed",
+        "training does not read documentation, licences or changelogs",
+        "common practice";
+    GIT_IRRELEVANT = "git.irrelevant", "git", None, 1,
+        "only paths the policy marks irrelevant changed",
+        "the repository's policy file says training does not read these paths",
+        "runprint.toml of the repository";
+    GIT_EMPTY = "git.empty", "git", None, 0,
+        "commit changed without changing any file",
+        "the two commits hold the same files, so the same code runs",
+        "common practice";
+    GIT_BRANCH = "git.branch", "git", None, 0,
+        "branch name changed",
+        "a branch name does not change the code that runs; the commit does",
+        "common practice";
+    GIT_REMOTE = "git.remote", "git", None, 0,
+        "remote URL changed",
+        "where the repository was cloned from does not change the code that runs",
+        "common practice";
+    DATA_CHANGED = "data.changed", "data", Retrain, 100,
+        "declared data input changed",
+        "the training data changed, and a model trained on different data is a different model",
+        "common practice";
+    DATA_ONE_SIDE = "data.one-side", "data", Verify, 45,
+        "data input declared on one side only",
+        "its content cannot be compared, so the same data cannot be confirmed",
+        "common practice";
+
+    // --- packages ------------------------------------------------------------------------------
+    PKG_NUMPY_NEP50 = "pkg.numpy.nep50", "lockfiles", Retrain, 92,
+        "numpy across 2.0 (NEP 50 promotion rules)",
+        "NumPy 2.0 dropped value-based casting, so float32 arithmetic with Python scalars stays float32 and sums lose precision",
+        "https://numpy.org/neps/nep-0050-scalar-promotion.html; https://github.com/numpy/numpy/pull/23912";
+    PKG_TORCH_TF32 = "pkg.torch.tf32-default", "lockfiles", Retrain, 92,
+        "torch across 1.12 (TF32 matmul default)",
+        "PyTorch 1.12 turned TF32 for CUDA matrix products off by default, which changes GPU results by about 1e-3 relative",
+        "https://github.com/pytorch/pytorch/issues/67384; https://pytorch.org/docs/stable/notes/cuda.html";
+    PKG_SKLEARN_MODELS = "pkg.scikit-learn.changed-models", "lockfiles", Retrain, 91,
+        "scikit-learn minor or major release",
+        "every scikit-learn release lists \"changed models\" that fit differently on identical data and parameters, and defaults such as KMeans n_init changed",
+        "https://scikit-learn.org/stable/whats_new/v0.22.html; https://github.com/scikit-learn/scikit-learn/issues/25022";
+    PKG_PANDAS_2 = "pkg.pandas.2", "lockfiles", Retrain, 90,
+        "pandas across 2.0",
+        "pandas 2.0 changed groupby reductions to numeric_only=False and other defaults, so computed features can change",
+        "https://github.com/pandas-dev/pandas/issues/46072";
+    PKG_TF_DEFAULTS = "pkg.tensorflow.defaults", "lockfiles", Retrain, 90,
+        "tensorflow across 2.4, 2.9 or 2.11",
+        "TensorFlow turned on TF32 in 2.4, oneDNN on x86 in 2.9 and new Keras optimizers in 2.11, each changing results",
+        "https://github.com/tensorflow/community/pull/287; https://github.com/tensorflow/tensorflow/issues/56697";
+    PKG_OPENBLAS_BAD = "pkg.openblas.known-bad", "lockfiles", Retrain, 95,
+        "OpenBLAS release known to compute wrong results",
+        "this OpenBLAS release has a documented bug that returns wrong matrix products",
+        "https://github.com/OpenMathLib/OpenBLAS/issues/2182; https://github.com/OpenMathLib/OpenBLAS/issues/2914; https://github.com/numpy/numpy/issues/29391";
+    PKG_NUMERIC_MAJOR = "pkg.numeric.major", "lockfiles", Retrain, 86,
+        "numerical library: major version change",
+        "major releases change kernels, defaults and random streams, and frameworks disclaim reproducibility across releases",
+        "https://pytorch.org/docs/stable/notes/randomness.html; https://numpy.org/neps/nep-0019-rng-policy.html";
+    PKG_NUMERIC_MINOR = "pkg.numeric.minor", "lockfiles", Retrain, 82,
+        "numerical library: minor version change",
+        "minor releases of numerical libraries routinely change defaults and kernels (e.g. PyTorch 2.10 to 2.11 routed more products through cuBLASLt)",
+        "https://github.com/pytorch/pytorch/issues/181737; https://pytorch.org/docs/stable/notes/randomness.html";
+    PKG_NUMERIC_PRE = "pkg.numeric.pre-release", "lockfiles", Retrain, 82,
+        "numerical library: to or from a pre-release",
+        "a pre-release is unfinished code that may change anything before the release",
+        "https://semver.org/spec/v2.0.0.html (item 9); https://peps.python.org/pep-0440/";
+    PKG_NUMERIC_DOWNGRADE = "pkg.numeric.downgrade", "lockfiles", Retrain, 82,
+        "numerical library: downgrade",
+        "going back a release undoes its kernel, default and bug-fix changes",
+        "https://pytorch.org/docs/stable/notes/randomness.html";
+    PKG_NUMERIC_UNKNOWN = "pkg.numeric.unordered", "lockfiles", Retrain, 78,
+        "numerical library: versions that cannot be ordered",
+        "the versions cannot be compared, so a release change of a library doing the arithmetic cannot be ruled out",
+        "common practice";
+    PKG_NUMERIC_ADDED = "pkg.numeric.added-removed", "lockfiles", Retrain, 76,
+        "numerical library added or removed",
+        "optional numerical packages change results by their presence alone (pandas silently uses bottleneck for float32 reductions)",
+        "https://github.com/pandas-dev/pandas/issues/25307";
+    PKG_NUMERIC_SOURCE = "pkg.numeric.source", "lockfiles", Retrain, 75,
+        "numerical library from another source (registry, URL, git revision)",
+        "the same version from another source can be other code",
+        "common practice";
+    PKG_NUMERIC_FEATURES = "pkg.numeric.features", "lockfiles", Retrain, 72,
+        "numerical library with other enabled features",
+        "features select backends (BLAS, GPU, SIMD), which compute differently",
+        "https://doc.rust-lang.org/cargo/reference/features.html";
+    PKG_NUMERIC_LOCAL_DEVICE = "pkg.numeric.build-device", "lockfiles", Retrain, 85,
+        "numerical library: CPU build against a GPU build (local label such as +cpu, +cu121)",
+        "a build for another device family runs other kernels with other precision defaults",
+        "https://peps.python.org/pep-0440/#local-version-identifiers; https://pytorch.org/docs/stable/notes/randomness.html";
+    PKG_NUMERIC_LOCAL = "pkg.numeric.build-variant", "lockfiles", Verify, 60,
+        "numerical library: another build variant (local label such as +cu118, +cu121)",
+        "another build bundles other CUDA libraries, and cuBLAS promises identical bits only within one version",
+        "https://peps.python.org/pep-0440/#local-version-identifiers; https://docs.nvidia.com/cuda/cublas/index.html#results-reproducibility";
+    PKG_NUMERIC_PATCH = "pkg.numeric.patch", "lockfiles", Verify, 58,
+        "numerical library: patch release",
+        "patch releases only fix bugs, but bug fixes in numerical code are exactly what changes numbers; rerun and compare metrics",
+        "https://semver.org/spec/v2.0.0.html (item 6); https://github.com/numpy/numpy/issues/18131";
+    PKG_NUMERIC_POST = "pkg.numeric.post-release", "lockfiles", Verify, 30,
+        "numerical library: post-release",
+        "post-releases are meant for fixes outside the software, but are allowed for real fixes; rerun and compare metrics",
+        "https://peps.python.org/pep-0440/#post-releases";
+    PKG_NUMERIC_REBUILT = "pkg.numeric.rebuilt", "lockfiles", Verify, 50,
+        "numerical library: rebuilt artifact with the same version (other hash)",
+        "a rebuild can use another compiler, BLAS or CPU dispatch, which changes the last digits",
+        "https://github.com/numpy/numpy/issues/23523";
+    PKG_COMPILED = "pkg.compiled", "lockfiles", Verify, 35,
+        "unknown package that ships compiled code: any change",
+        "compiled code can do arithmetic, dispatch on the CPU or link native libraries even when the package is not known to; rerun and compare metrics",
+        "common practice";
+    PKG_PURE_CHANGE = "pkg.pure.change", "lockfiles", Verify, 22,
+        "unknown pure-Python or script package: new, removed, major, minor, pre-release, downgrade or source change",
+        "it is loaded with the training code and may change what it computes, though it is not known to do arithmetic",
+        "common practice";
+    PKG_PURE_PATCH = "pkg.pure.patch", "lockfiles", None, 4,
+        "unknown pure-Python or script package: patch, post-release or rebuild",
+        "patch releases only fix bugs, and pure-script code off the numerical path does not change arithmetic",
+        "https://semver.org/spec/v2.0.0.html (item 6)";
+    PKG_TOOLING = "pkg.tooling", "lockfiles", None, 2,
+        "tooling package (tests, lint, notebooks, progress bars)",
+        "it helps develop, test or display and does not take part in the arithmetic",
+        "common practice";
+    PKG_DEV = "pkg.dev", "lockfiles", None, 1,
+        "development-only or test-only dependency",
+        "dev-only dependencies are used for tests, examples and benchmarks and are not loaded by training",
+        "https://doc.rust-lang.org/rust-by-example/testing/dev_dependencies.html";
+    LOCK_NUMERIC = "lock.numeric", "lockfiles", Retrain, 76,
+        "lockfile with numerical libraries added or removed",
+        "the packages that do the arithmetic appear or disappear with it",
+        "common practice";
+    LOCK_OTHER = "lock.other", "lockfiles", Verify, 30,
+        "lockfile with other packages added or removed",
+        "training may load its packages",
+        "common practice";
+    LOCK_EMPTY = "lock.empty", "lockfiles", None, 0,
+        "empty lockfile added or removed",
+        "it lists no packages",
+        "common practice";
+
+    // --- environment variables -------------------------------------------------------------------
+    ENV_PRECISION = "env.precision", "env", Retrain, 90,
+        "precision-mode variable (TF32, bf16 math, XLA fast-math, JAX x64)",
+        "it changes the floating-point precision of the arithmetic (TF32 keeps 10 mantissa bits, about 1e-3 relative error)",
+        "https://pytorch.org/docs/stable/notes/cuda.html; https://github.com/pytorch/pytorch/pull/77114; https://github.com/jax-ml/jax/issues/276";
+    ENV_THREADS = "env.threads", "env", Verify, 62,
+        "thread-count and thread-placement variable",
+        "the number of threads changes how reductions are split, so sums differ in the last digits and iterative training can drift",
+        "https://github.com/pytorch/pytorch/issues/88718; https://github.com/numpy/numpy/issues/25100; https://github.com/scikit-learn/scikit-learn/issues/18790";
+    ENV_COLLECTIVES = "env.collectives", "env", Verify, 58,
+        "NCCL algorithm, protocol or channel variable",
+        "all-reduce algorithms and channel counts sum in another order, which has changed convergence",
+        "https://github.com/NVIDIA/nccl/issues/1055";
+    ENV_DETERMINISM = "env.determinism", "env", Verify, 55,
+        "determinism and autotuning variable",
+        "it switches deterministic algorithms or autotuning on or off, so run-to-run agreement changes",
+        "https://github.com/pytorch/pytorch/pull/41377; https://github.com/NVIDIA/framework-reproducibility; https://docs.nvidia.com/cuda/cublas/index.html#results-reproducibility";
+    ENV_KERNELS = "env.kernels", "env", Verify, 52,
+        "kernel-choice variable (CPU ISA caps, core types, oneDNN)",
+        "it selects which CPU kernels BLAS or the framework dispatch to, and different kernels round differently",
+        "https://github.com/OpenMathLib/OpenBLAS/issues/4510; https://github.com/pytorch/pytorch/issues/155423; https://github.com/tensorflow/tensorflow/issues/56697";
+    ENV_HASHSEED = "env.hash-seed", "env", Verify, 50,
+        "PYTHONHASHSEED",
+        "it fixes or randomizes string hashing, which decides the iteration order of sets that code may turn into vocabularies or label orders",
+        "https://docs.python.org/3/using/cmdline.html#envvar-PYTHONHASHSEED";
+    ENV_LOADER = "env.loader", "env", Verify, 45,
+        "library and package search path variable",
+        "it changes which libraries or packages are loaded, which can swap a numerical library without any lockfile change",
+        "common practice";
+    ENV_DEVICES = "env.devices", "env", Verify, 45,
+        "visible GPU selection",
+        "another GPU or GPU count changes kernels and the split of work",
+        "https://docs.nvidia.com/cuda/cublas/index.html#results-reproducibility";
+    ENV_CODEGEN = "env.codegen", "env", Verify, 40,
+        "code-generation flags (RUSTFLAGS)",
+        "target-CPU flags change which SIMD code paths are compiled in, which rounds differently",
+        "https://github.com/llvm/llvm-project/issues/91824";
+    ENV_OTHER = "env.other", "env", Verify, 30,
+        "other variable of a numerical library or framework",
+        "it configures a library that takes part in the arithmetic",
+        "common practice";
+    ENV_LOGGING = "env.logging", "env", None, 2,
+        "logging and verbosity variable",
+        "it only changes messages",
+        "common practice";
+    ENV_IRRELEVANT = "env.irrelevant", "env", None, 1,
+        "variable the policy marks irrelevant",
+        "the repository's policy file says it does not affect results",
+        "runprint.toml of the repository";
+    ENV_CREDENTIAL = "env.credential", "env", None, 0,
+        "credential variable set or unset",
+        "a credential's presence does not change results (its value is never recorded)",
+        "common practice";
+
+    // --- processor, system, interpreter ------------------------------------------------------------
+    CPU_ARCH = "cpu.arch", "cpu", Retrain, 80,
+        "CPU architecture",
+        "another instruction-set architecture uses other kernels, fused multiply-add contraction and math libraries",
+        "https://github.com/llvm/llvm-project/issues/91824; https://github.com/microsoft/onnxruntime/issues/13638";
+    CPU_FEATURES = "cpu.features", "cpu", Verify, 50,
+        "CPU instruction-set features (AVX2, AVX-512, FMA, AMX, SVE...)",
+        "libraries dispatch to other code paths on other features (NumPy's AVX-512 math, PyTorch and oneDNN kernels), which changes the last digits",
+        "https://github.com/pytorch/pytorch/issues/155423; https://github.com/numpy/numpy/issues/23523";
+    CPU_MODEL = "cpu.model", "cpu", Verify, 45,
+        "CPU model",
+        "BLAS and frameworks pick kernels for the processor they find (OpenBLAS core types), and different kernels round differently",
+        "https://github.com/OpenMathLib/OpenBLAS/issues/4510";
+    CPU_COUNT = "cpu.count", "cpu", Verify, 42,
+        "CPU core or allowed-CPU count",
+        "libraries size their thread pools from the CPU count unless told otherwise, and another thread count splits reductions differently",
+        "https://github.com/scikit-learn/scikit-learn/issues/18790; https://github.com/pytorch/pytorch/issues/88718";
+    CPU_AFFINITY = "cpu.affinity", "cpu", None, 5,
+        "same number of allowed CPUs in another placement",
+        "the thread count, and so the order of reductions, stays the same; only where threads run changes",
+        "common practice";
+    SYS_LIBC = "system.libc", "system", Verify, 38,
+        "C library or its version",
+        "libm's exp, log, pow and sin can differ in the last bit between versions (glibc 2.28 rewrote them)",
+        "https://github.com/openmc-dev/openmc/issues/1214";
+    SYS_OTHER = "system.other", "system", None, 0,
+        "OS release, kernel or memory",
+        "it does not do the arithmetic (the C library and drivers are compared separately)",
+        "common practice";
+    RUN_INFO = "run.info", "run", None, 0,
+        "host name, label or runprint version",
+        "it describes the stamping, not the computation (the host's processor and libraries are compared separately)",
+        "common practice";
+    PY_IMPLEMENTATION = "python.implementation", "python", Retrain, 72,
+        "Python implementation",
+        "another implementation runs the code with its own numeric built-ins, hashing and random streams",
+        "https://docs.python.org/3/library/random.html#notes-on-reproducibility";
+    PY_MINOR = "python.minor", "python", Retrain, 70,
+        "Python minor version",
+        "a new minor release may change the streams of random's shuffle, sample and choice (only random() is kept stable), so data order changes",
+        "https://docs.python.org/3/library/random.html#notes-on-reproducibility";
+    PY_MICRO = "python.micro", "python", Verify, 30,
+        "Python bug-fix version",
+        "bug-fix releases keep random streams stable but can fix numeric code in the standard library",
+        "https://docs.python.org/3/library/random.html#notes-on-reproducibility";
+    PY_ONE_SIDE = "python.one-side", "python", Verify, 40,
+        "Python environment recorded on one side only",
+        "its packages cannot be compared",
+        "common practice";
+    PY_PATH = "python.path", "python", None, 0,
+        "interpreter location",
+        "the location does not change results; its version and packages are compared separately",
+        "common practice";
+    PY_CONDA_BLAS = "python.conda-blas", "python", Verify, 58,
+        "conda BLAS selector package (libblas, blas)",
+        "its build names the BLAS every package in the environment uses, and vendors order floating-point operations differently",
+        "https://github.com/mne-tools/mne-python/issues/4922";
+
+    // --- numerical stack -----------------------------------------------------------------------
+    BLAS_KNOWN_BAD = "native.blas.known-bad", "native", Retrain, 95,
+        "BLAS release known to compute wrong results",
+        "the new BLAS is a release with a documented wrong-result bug",
+        "https://github.com/OpenMathLib/OpenBLAS/issues/2182; https://github.com/OpenMathLib/OpenBLAS/issues/2914; https://github.com/numpy/numpy/issues/29391";
+    BLAS_VENDOR = "native.blas.vendor", "native", Verify, 62,
+        "BLAS/LAPACK vendor",
+        "vendors order floating-point operations differently, and iterative algorithms amplify that (ICA components flipped between MKL and OpenBLAS)",
+        "https://github.com/mne-tools/mne-python/issues/4922; https://github.com/JuliaLinearAlgebra/MKL.jl/issues/141";
+    BLAS_VERSION = "native.blas.version", "native", Verify, 56,
+        "BLAS version or build (threading layer, integer width, thread limit, kernels)",
+        "each changes blocking, kernels or how reductions are split (an ILP64 build gave other float32 results than LP64)",
+        "https://github.com/OpenMathLib/OpenBLAS/issues/2779; https://github.com/OpenMathLib/OpenBLAS/issues/5735";
+    BLAS_ONE_SIDE = "native.blas.one-side", "native", Verify, 50,
+        "BLAS or OpenMP runtime present on one side only",
+        "the code that does linear algebra or runs threads differs",
+        "https://github.com/mne-tools/mne-python/issues/4922";
+    OPENMP_RUNTIME = "native.openmp", "native", Verify, 46,
+        "OpenMP runtime or its version",
+        "each runtime reads its own variables, sizes its thread pool and splits parallel reductions its own way",
+        "https://github.com/numpy/numpy/issues/25100";
+    FAST_MATH = "native.fast-math", "native", Retrain, 88,
+        "compiled module with fast-math start-up code appeared or disappeared",
+        "loading it turns on flush-to-zero for the whole process, so numbers below 1.2e-38 (float32) become zero in every library",
+        "https://github.com/llvm/llvm-project/issues/57589; https://github.com/numpy/numpy/issues/20895";
+    BUILD_DEVICE = "build.device", "python", Retrain, 85,
+        "framework built for another device family (CPU-only against CUDA)",
+        "training runs on other kernels with other precision defaults",
+        "https://pytorch.org/docs/stable/notes/randomness.html; https://github.com/pytorch/pytorch/issues/67384";
+    BUILD_REVISION = "build.revision", "python", Retrain, 75,
+        "framework built from another source revision under the same version",
+        "different code computes under the same version number",
+        "https://pytorch.org/docs/stable/notes/randomness.html";
+    BUILD_GPU = "build.gpu-libraries", "python", Verify, 56,
+        "framework built against another CUDA, cuDNN or ROCm",
+        "it brings other GPU kernels, and cuBLAS and cuDNN promise identical bits only within one version",
+        "https://docs.nvidia.com/cuda/cublas/index.html#results-reproducibility; https://github.com/pytorch/pytorch/issues/28197";
+    BUILD_BLAS = "build.blas", "python", Verify, 52,
+        "framework built against another BLAS or BLAS configuration",
+        "BLAS vendors and builds order floating-point operations differently",
+        "https://github.com/mne-tools/mne-python/issues/4922";
+
+    // --- GPU stack --------------------------------------------------------------------------------
+    GPU_PRESENCE = "gpu.presence", "gpu", Retrain, 88,
+        "GPUs present on one side only",
+        "training runs on other kernels with other precision defaults (TF32 on Ampere and later, nondeterministic atomics)",
+        "https://pytorch.org/docs/stable/notes/randomness.html; https://github.com/pytorch/pytorch/issues/67384";
+    GPU_TOOLKIT = "gpu.toolkit", "gpu", Verify, 56,
+        "CUDA toolkit or runtime version",
+        "another toolkit brings other compilers and libraries; cuBLAS promises identical bits only within one toolkit version",
+        "https://docs.nvidia.com/cuda/cublas/index.html#results-reproducibility; https://github.com/E3SM-Project/E3SM/issues/5314";
+    GPU_CUDNN = "gpu.cudnn", "gpu", Verify, 56,
+        "cuDNN version",
+        "cuDNN picks convolution algorithms by version and heuristics; identical bits are promised only for one version on one architecture",
+        "https://github.com/davidsandberg/facenet/issues/3; https://github.com/allenai/allennlp/issues/387";
+    GPU_CUBLAS = "gpu.cublas", "gpu", Verify, 55,
+        "cuBLAS version",
+        "cuBLAS promises identical bits only for one version on GPUs of one architecture and SM count",
+        "https://docs.nvidia.com/cuda/cublas/index.html#results-reproducibility";
+    GPU_NCCL = "gpu.nccl", "gpu", Verify, 52,
+        "NCCL version",
+        "NCCL's choice of all-reduce algorithm, protocol and channels depends on its version, and each sums in another order",
+        "https://github.com/NVIDIA/nccl/issues/1055; https://github.com/NVIDIA/nccl/issues/1304";
+    GPU_MODEL = "gpu.model", "gpu", Verify, 50,
+        "GPU model",
+        "another architecture or SM count changes kernels and their order of operations",
+        "https://docs.nvidia.com/cuda/cublas/index.html#results-reproducibility";
+    GPU_COUNT = "gpu.count", "gpu", Verify, 50,
+        "number of GPUs",
+        "the split of work, the collective algorithms and the order of sums change with the GPU count",
+        "https://github.com/NVIDIA/nccl/issues/1304";
+    GPU_DRIVER = "gpu.driver", "gpu", Verify, 40,
+        "NVIDIA driver version",
+        "the driver compiles and schedules GPU kernels, and a driver upgrade alone has changed solver convergence",
+        "https://github.com/NVIDIA/AMGX/issues/60";
+}
+
+/// The rule with this id.
+pub fn by_id(id: &str) -> Option<&'static Rule> {
+    RULES.iter().copied().find(|r| r.id == id)
+}
+
+// ------------------------------------------------------------------------------------------------
+// Packages
+
+/// Packages whose code does the arithmetic of training or preprocessing, by lower-case name in
+/// each ecosystem (PEP 503 for Python). Matching is exact after lower-casing.
 const NUMERIC_PACKAGES: &[&str] = &[
-    // Python (PEP 503 names)
+    // Python and conda
     "numpy",
     "scipy",
     "torch",
+    "pytorch",
     "torchvision",
     "torchaudio",
+    "torchtext",
     "tensorflow",
     "tensorflow-cpu",
     "tensorflow-gpu",
+    "tensorflow-base",
+    "tensorflow-probability",
     "tf-keras",
     "keras",
     "jax",
     "jaxlib",
     "flax",
     "optax",
+    "equinox",
+    "mlx",
     "scikit-learn",
+    "scikit-image",
     "pandas",
     "polars",
     "xgboost",
@@ -44,32 +470,50 @@ const NUMERIC_PACKAGES: &[&str] = &[
     "sentencepiece",
     "accelerate",
     "deepspeed",
+    "lightning",
+    "pytorch-lightning",
+    "timm",
+    "diffusers",
+    "peft",
+    "bitsandbytes",
+    "xformers",
+    "flash-attn",
+    "sentence-transformers",
     "pillow",
     "opencv-python",
     "opencv-python-headless",
+    "opencv-contrib-python",
     "mkl",
+    "mkl-service",
     "intel-openmp",
+    "tbb",
+    "openblas",
+    "libopenblas",
     "scipy-openblas32",
     "scipy-openblas64",
     "paddlepaddle",
     "mxnet",
-    // Rust crates
+    "cudatoolkit",
+    "cudnn",
+    "nccl",
+    "libtorch",
+    // Rust
     "ndarray",
     "ndarray-linalg",
+    "ndarray-rand",
     "nalgebra",
-    "candle-core",
-    "candle-nn",
     "burn",
-    "burn-core",
-    "burn-tensor",
     "linfa",
     "faer",
     "tch",
     "ort",
     "smartcore",
     "rand",
+    "rand_core",
     "rand_distr",
     "rand_chacha",
+    "rand_pcg",
+    "rand_xoshiro",
     "half",
     "matrixmultiply",
     "blas-src",
@@ -79,17 +523,86 @@ const NUMERIC_PACKAGES: &[&str] = &[
     "polars-core",
     "arrow",
     "libm",
+    "rustfft",
+    "realfft",
+    "statrs",
+    "dfdx",
+    // JavaScript
+    "@tensorflow/tfjs",
+    "onnxruntime-node",
+    "onnxruntime-web",
+    "ml-matrix",
+    "mathjs",
+    "@xenova/transformers",
+    "@huggingface/transformers",
+    "brain.js",
+    "numjs",
+    "seedrandom",
+    // Go
+    "gonum.org/v1/gonum",
+    "gorgonia.org/gorgonia",
+    "gorgonia.org/tensor",
+    // R
+    "matrix",
+    "glmnet",
+    "randomforest",
+    "ranger",
+    "caret",
+    "e1071",
+    "mgcv",
+    "lme4",
+    "data.table",
+    "rcppeigen",
+    "rcpparmadillo",
+    // Julia
+    "flux",
+    "lux",
+    "zygote",
+    "cuda",
+    "linearalgebra",
+    "distributions",
+    "optim",
+    "mlj",
+    "statsbase",
+    "random",
+    // .NET
+    "microsoft.ml",
+    "torchsharp",
+    "mathnet.numerics",
+    "microsoft.ml.onnxruntime",
+    "tensorflow.net",
 ];
 
-/// Name prefixes of numerical packages (CUDA runtime wheels, framework plug-ins).
+/// Name prefixes of numerical packages (CUDA runtime wheels, framework plug-ins, scoped
+/// packages).
 const NUMERIC_PREFIXES: &[&str] = &[
-    "nvidia-", "torch-", "jax-cuda", "candle-", "burn-", "linfa-", "faer-",
+    "nvidia-",
+    "torch-",
+    "jax-cuda",
+    "cupy-",
+    "candle-",
+    "burn-",
+    "linfa-",
+    "faer-",
+    "tract-",
+    "@tensorflow/tfjs",
+    "gonum.org/",
+    "gorgonia.org/",
+    "microsoft.ml.",
+    "libblas",
+    "libcblas",
+    "liblapack",
+    "cuda-",
+    "libcublas",
+    "libcudnn",
+    "libnccl",
+    "mkl-",
+    "openblas_",
 ];
 
-/// Packages that only help develop, test, lint or display: a change cannot alter results.
+/// Packages that only help develop, test, lint or display.
 const TOOLING_PACKAGES: &[&str] = &[
     "pytest",
-    "pytest-cov",
     "coverage",
     "black",
     "ruff",
@@ -98,8 +611,12 @@ const TOOLING_PACKAGES: &[&str] = &[
     "isort",
     "pylint",
     "pre-commit",
+    "hypothesis",
+    "tox",
+    "nox",
     "ipython",
     "ipykernel",
+    "ipywidgets",
     "jupyter",
     "jupyterlab",
     "notebook",
@@ -107,6 +624,10 @@ const TOOLING_PACKAGES: &[&str] = &[
     "rich",
     "colorama",
     "tensorboard",
+    "tensorboardx",
+    "wandb",
+    "sphinx",
+    "mkdocs",
     "clap",
     "clap_builder",
     "clap_derive",
@@ -121,133 +642,468 @@ const TOOLING_PACKAGES: &[&str] = &[
     "insta",
     "assert_cmd",
     "proptest",
+    "eslint",
+    "prettier",
+    "jest",
+    "mocha",
+    "vitest",
+    "typescript",
+    "testthat",
+    "roxygen2",
+    "devtools",
+    "xunit",
+    "nunit",
+    "moq",
 ];
 
-/// True when the package does numerical work.
+const TOOLING_PREFIXES: &[&str] = &[
+    "pytest-", "flake8-", "sphinx-", "mkdocs-", "types-", "@types/", "eslint-", "@eslint/",
+    "xunit.", "nunit", "coverlet",
+];
+
+/// Name fragments that suggest a package ships compiled code, for lockfile entries without a
+/// recorded installation (a heuristic, named as such in reasons).
+const COMPILED_HINTS: &[&str] = &[
+    "-sys",
+    "_sys",
+    "cffi",
+    "cython",
+    "-cuda",
+    "-gpu",
+    "-cu1",
+    "-native",
+    "native-",
+    "-bindings",
+    "napi",
+    "node-gyp",
+    "prebuild",
+    "blas",
+    "lapack",
+    "fftw",
+    "-ext",
+    "simd",
+    "-accel",
+];
+
+/// The class a package belongs to for the rules.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum PackageClass {
+    /// Does the arithmetic of training or preprocessing.
+    Numeric,
+    /// Not known, ships compiled code.
+    Compiled,
+    /// Not known, pure Python or pure script code.
+    Pure,
+    /// Helps develop, test or display.
+    Tooling,
+    /// Only needed for development or tests.
+    Dev,
+}
+
+/// A package's class and how it was decided, as a phrase for reasons.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Classified {
+    /// The class.
+    pub class: PackageClass,
+    /// E.g. "a numerical library", "judged by a heuristic on its name (`-sys`)".
+    pub how: String,
+}
+
+/// True when the package does numerical work by the built-in tables.
 pub fn is_numeric_package(name: &str) -> bool {
     let n = name.to_ascii_lowercase();
     NUMERIC_PACKAGES.contains(&n.as_str()) || NUMERIC_PREFIXES.iter().any(|p| n.starts_with(p))
 }
 
-/// True when the package is development tooling.
+/// True when the package is development tooling by the built-in tables.
 pub fn is_tooling_package(name: &str) -> bool {
-    TOOLING_PACKAGES.contains(&name.to_ascii_lowercase().as_str())
+    let n = name.to_ascii_lowercase();
+    TOOLING_PACKAGES.contains(&n.as_str()) || TOOLING_PREFIXES.iter().any(|p| n.starts_with(p))
 }
 
-/// Impact and reason of a package change: `what` is a short phrase such as "version changed".
-pub fn package_impact(name: &str, dev: bool, what: &str) -> (Impact, String) {
+/// Classifies a package. `compiled` is what an installed copy says (the python section's
+/// `compiled` flag), when one was recorded.
+pub fn classify_package(
+    name: &str,
+    dev: bool,
+    compiled: Option<bool>,
+    policy: &Policy,
+) -> Classified {
+    let by_policy = |class, what: &str| Classified {
+        class,
+        how: format!("classed as {what} by the policy file"),
+    };
+    match policy.package_class(name) {
+        Some(PackageClassName::Numeric) => return by_policy(PackageClass::Numeric, "numerical"),
+        Some(PackageClassName::Compiled) => {
+            return by_policy(PackageClass::Compiled, "shipping compiled code")
+        }
+        Some(PackageClassName::Pure) => return by_policy(PackageClass::Pure, "pure script code"),
+        Some(PackageClassName::Tooling) => return by_policy(PackageClass::Tooling, "tooling"),
+        None => {}
+    }
     if is_numeric_package(name) {
-        (
-            Impact::Retrain,
-            format!("{name} does numerical work in training; a {what} changes kernels, defaults or random streams, so results are expected to change"),
-        )
-    } else if dev {
-        (
-            Impact::None,
-            format!("{name} is a development-only dependency and is not loaded by training"),
-        )
-    } else if is_tooling_package(name) {
-        (
-            Impact::None,
-            format!(
-                "{name} is tooling (tests, lint, display) and does not take part in the arithmetic"
-            ),
-        )
+        return Classified {
+            class: PackageClass::Numeric,
+            how: "a numerical library".into(),
+        };
+    }
+    if dev {
+        return Classified {
+            class: PackageClass::Dev,
+            how: "a development-only dependency".into(),
+        };
+    }
+    if is_tooling_package(name) {
+        return Classified {
+            class: PackageClass::Tooling,
+            how: "tooling".into(),
+        };
+    }
+    match compiled {
+        Some(true) => Classified {
+            class: PackageClass::Compiled,
+            how: "not in runprint's tables; its installed copy ships compiled code".into(),
+        },
+        Some(false) => Classified {
+            class: PackageClass::Pure,
+            how: "not in runprint's tables; its installed copy is pure Python".into(),
+        },
+        None => {
+            let n = name.to_ascii_lowercase();
+            match COMPILED_HINTS.iter().find(|h| n.contains(*h)) {
+                Some(hint) => Classified {
+                    class: PackageClass::Compiled,
+                    how: format!("not in runprint's tables; judged by a heuristic, its name (`{hint}`) suggests compiled code"),
+                },
+                None => Classified {
+                    class: PackageClass::Pure,
+                    how: "not in runprint's tables; judged by a heuristic, nothing recorded or in its name suggests compiled code".into(),
+                },
+            }
+        }
+    }
+}
+
+/// What happened to a package between two manifests.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum PackageChange<'a> {
+    /// New dependency.
+    Added,
+    /// Removed dependency.
+    Removed,
+    /// Version change, with the ecosystem and the highest old and new versions.
+    Version {
+        /// Ecosystem (`pypi`, `cargo`...), for version ordering.
+        ecosystem: &'a str,
+        /// Highest old version.
+        old: &'a str,
+        /// Highest new version.
+        new: &'a str,
+    },
+    /// Same versions from another source.
+    Source,
+    /// Same version and source, other artifact hash.
+    Rebuilt,
+    /// Other enabled features.
+    Features,
+}
+
+fn device_of(label: Option<&str>) -> Option<&'static str> {
+    let l = label?.to_ascii_lowercase();
+    if l.starts_with("cpu") {
+        Some("cpu")
+    } else if l.starts_with("cu") {
+        Some("cuda")
+    } else if l.starts_with("rocm") {
+        Some("rocm")
     } else {
-        (
-            Impact::Verify,
-            format!("{name} is not a known numerical library, but it is loaded with the training code; rerun and compare metrics"),
-        )
+        None
     }
 }
 
-/// Impact and reason of a version change of a package, by the kind of change.
-pub fn version_change_impact(name: &str, dev: bool, kind: VersionChange) -> (Impact, String) {
-    let (impact, reason) = package_impact(name, dev, kind.phrase());
-    if impact == Impact::Verify && kind == VersionChange::Patch {
-        return (
-            Impact::None,
-            format!("{name} is not a known numerical library and this is a patch-level release, which by convention only fixes bugs"),
+/// True when `old` and `new` lie on different sides of `boundary` (a version string).
+fn crosses(ecosystem: &str, old: &str, new: &str, boundary: &str) -> bool {
+    use std::cmp::Ordering::Less;
+    let (a, b) = (
+        version::compare(ecosystem, version::public_part(old), boundary),
+        version::compare(ecosystem, version::public_part(new), boundary),
+    );
+    matches!((a, b), (Some(x), Some(y)) if (x == Less) != (y == Less))
+}
+
+/// A release of a version known to compute wrong results, with the reason (OpenBLAS; the
+/// version may carry wheel build numbers such as `0.3.28.0.2`).
+pub fn known_bad_openblas(version: &str) -> Option<&'static str> {
+    let base: Vec<u32> = version
+        .split('.')
+        .take(3)
+        .map(|p| {
+            p.chars()
+                .take_while(char::is_ascii_digit)
+                .collect::<String>()
+                .parse()
+                .unwrap_or(0)
+        })
+        .collect();
+    match base.as_slice() {
+        [0, 3, 4..=6] => Some("OpenBLAS 0.3.4–0.3.6 have an AVX-512 DGEMM kernel that returns wrong results on AVX-512 processors"),
+        [0, 3, 11] => Some("OpenBLAS 0.3.11's SkylakeX sgemm_direct could compile to an empty function and return garbage"),
+        [0, 3, 28..=29] => Some("OpenBLAS 0.3.28–0.3.29 can return another thread's GEMM result when called from several threads"),
+        _ => None,
+    }
+}
+
+fn is_openblas_package(name: &str) -> bool {
+    let n = name.to_ascii_lowercase();
+    n.starts_with("scipy-openblas") || n == "openblas" || n == "libopenblas"
+}
+
+/// The rule for a package change and a lead naming the package and how it was classed.
+pub fn package_rule(
+    name: &str,
+    class: &Classified,
+    change: PackageChange<'_>,
+) -> (&'static Rule, String) {
+    let what = match change {
+        PackageChange::Added => "new dependency".to_string(),
+        PackageChange::Removed => "removed dependency".to_string(),
+        PackageChange::Version {
+            ecosystem,
+            old,
+            new,
+        } => version::classify(ecosystem, old, new).phrase().to_string(),
+        PackageChange::Source => "same version from another source".into(),
+        PackageChange::Rebuilt => "rebuilt artifact with the same version".into(),
+        PackageChange::Features => "other enabled features".into(),
+    };
+    let lead = |what: &str| format!("{name} ({what}) is {}", class.how);
+    match class.class {
+        PackageClass::Tooling => return (&PKG_TOOLING, lead(&what)),
+        PackageClass::Dev => return (&PKG_DEV, lead(&what)),
+        PackageClass::Compiled => return (&PKG_COMPILED, lead(&what)),
+        PackageClass::Pure => {
+            let minor_step = match change {
+                PackageChange::Version {
+                    ecosystem,
+                    old,
+                    new,
+                } => {
+                    version::public_part(old) == version::public_part(new)
+                        || version::is_post_release_step(ecosystem, old, new)
+                        || version::classify(ecosystem, old, new) == VersionChange::Patch
+                }
+                PackageChange::Rebuilt => true,
+                _ => false,
+            };
+            let rule = if minor_step {
+                &PKG_PURE_PATCH
+            } else {
+                &PKG_PURE_CHANGE
+            };
+            return (rule, lead(&what));
+        }
+        PackageClass::Numeric => {}
+    }
+    let PackageChange::Version {
+        ecosystem,
+        old,
+        new,
+    } = change
+    else {
+        let rule = match change {
+            PackageChange::Added | PackageChange::Removed => &PKG_NUMERIC_ADDED,
+            PackageChange::Source => &PKG_NUMERIC_SOURCE,
+            PackageChange::Rebuilt => &PKG_NUMERIC_REBUILT,
+            _ => &PKG_NUMERIC_FEATURES,
+        };
+        return (rule, lead(&what));
+    };
+    let n = name.to_ascii_lowercase();
+    if is_openblas_package(&n) {
+        if let Some(bad) = known_bad_openblas(new) {
+            return (&PKG_OPENBLAS_BAD, format!("{name} {new}: {bad}"));
+        }
+    }
+    let kind = version::classify(ecosystem, old, new);
+    // Documented default changes at known releases come first: they name the real cause.
+    let specific = match n.as_str() {
+        "numpy" if crosses(ecosystem, old, new, "2.0.0") => Some(&PKG_NUMPY_NEP50),
+        "torch" | "pytorch" if crosses(ecosystem, old, new, "1.12.0") => Some(&PKG_TORCH_TF32),
+        "scikit-learn" if matches!(kind, VersionChange::Major | VersionChange::Minor) => {
+            Some(&PKG_SKLEARN_MODELS)
+        }
+        "pandas" if crosses(ecosystem, old, new, "2.0.0") => Some(&PKG_PANDAS_2),
+        "tensorflow" | "tensorflow-cpu" | "tensorflow-gpu"
+            if ["2.4.0", "2.9.0", "2.11.0"]
+                .iter()
+                .any(|b| crosses(ecosystem, old, new, b)) =>
+        {
+            Some(&PKG_TF_DEFAULTS)
+        }
+        _ => None,
+    };
+    if let Some(rule) = specific {
+        return (rule, lead(&what));
+    }
+    let (la, lb) = (version::local_label(old), version::local_label(new));
+    if version::public_part(old) == version::public_part(new) && la != lb {
+        let what = format!(
+            "build {} against {}",
+            la.unwrap_or("without a label"),
+            lb.unwrap_or("without a label")
         );
+        let rule = match (device_of(la), device_of(lb)) {
+            (Some(x), Some(y)) if x != y => &PKG_NUMERIC_LOCAL_DEVICE,
+            _ => &PKG_NUMERIC_LOCAL,
+        };
+        return (rule, lead(&what));
     }
-    (impact, reason)
+    if version::is_post_release_step(ecosystem, old, new) {
+        return (&PKG_NUMERIC_POST, lead("post-release"));
+    }
+    let rule = match kind {
+        VersionChange::Major => &PKG_NUMERIC_MAJOR,
+        VersionChange::Minor => &PKG_NUMERIC_MINOR,
+        VersionChange::Patch => &PKG_NUMERIC_PATCH,
+        VersionChange::PreRelease => &PKG_NUMERIC_PRE,
+        VersionChange::Downgrade => &PKG_NUMERIC_DOWNGRADE,
+        VersionChange::Unknown => &PKG_NUMERIC_UNKNOWN,
+    };
+    (rule, lead(&what))
 }
 
-/// The class of a relevant environment variable.
-pub fn env_var_impact(name: &str) -> (Impact, &'static str) {
-    const PRECISION: &[&str] = &[
-        "NVIDIA_TF32_OVERRIDE",
-        "TORCH_ALLOW_TF32_CUBLAS_OVERRIDE",
-        "HIPBLASLT_ALLOW_TF32",
-        "ONEDNN_DEFAULT_FPMATH_MODE",
-        "XLA_FLAGS",
-        "JAX_DEFAULT_MATMUL_PRECISION",
-        "JAX_ENABLE_X64",
-        "TF_ENABLE_ONEDNN_OPTS",
-        "RUSTFLAGS",
-        "CARGO_BUILD_RUSTFLAGS",
-    ];
-    const DETERMINISM: &[&str] = &[
-        "CUBLAS_WORKSPACE_CONFIG",
-        "TF_DETERMINISTIC_OPS",
-        "TF_CUDNN_DETERMINISTIC",
-        "TF_USE_CUDNN_AUTOTUNE",
-        "TF_CUDNN_USE_AUTOTUNE",
-        "PYTHONHASHSEED",
-        "CUDA_LAUNCH_BLOCKING",
-        "MKL_CBWR",
-    ];
-    const KERNEL_CHOICE: &[&str] = &[
-        "OPENBLAS_CORETYPE",
-        "OPENBLAS_BLOCK_FACTOR",
-        "MKL_ENABLE_INSTRUCTIONS",
-        "MKL_DEBUG_CPU_TYPE",
-        "ATEN_CPU_CAPABILITY",
-        "ONEDNN_MAX_CPU_ISA",
-        "DNNL_MAX_CPU_ISA",
-    ];
-    if PRECISION.contains(&name) {
-        return (Impact::Retrain, "it changes the floating-point precision or code generation used for the arithmetic (TF32/bf16 math modes, fast-math or target-CPU flags), which moves results well beyond the last digit");
-    }
-    if DETERMINISM.contains(&name) {
-        return (Impact::Verify, "it switches deterministic algorithms, hashing or reproducibility modes on or off, so run-to-run agreement changes; rerun and compare metrics");
-    }
-    if KERNEL_CHOICE.contains(&name) {
-        return (Impact::Verify, "it selects which CPU kernels BLAS or the framework dispatch to, and different kernels round differently");
-    }
-    if name.ends_with("_NUM_THREADS")
+// ------------------------------------------------------------------------------------------------
+// Environment variables
+
+const PRECISION_VARS: &[&str] = &[
+    "NVIDIA_TF32_OVERRIDE",
+    "TORCH_ALLOW_TF32_CUBLAS_OVERRIDE",
+    "HIPBLASLT_ALLOW_TF32",
+    "ONEDNN_DEFAULT_FPMATH_MODE",
+    "XLA_FLAGS",
+    "JAX_DEFAULT_MATMUL_PRECISION",
+    "JAX_ENABLE_X64",
+];
+const DETERMINISM_VARS: &[&str] = &[
+    "CUBLAS_WORKSPACE_CONFIG",
+    "CUBLASLT_WORKSPACE_SIZE",
+    "TF_DETERMINISTIC_OPS",
+    "TF_CUDNN_DETERMINISTIC",
+    "TF_USE_CUDNN_AUTOTUNE",
+    "TF_CUDNN_USE_AUTOTUNE",
+    "TORCH_CUDNN_V8_API_DISABLED",
+    "CUDA_LAUNCH_BLOCKING",
+    "MKL_CBWR",
+];
+const KERNEL_VARS: &[&str] = &[
+    "OPENBLAS_CORETYPE",
+    "OPENBLAS_BLOCK_FACTOR",
+    "MKL_ENABLE_INSTRUCTIONS",
+    "MKL_DEBUG_CPU_TYPE",
+    "ATEN_CPU_CAPABILITY",
+    "ONEDNN_MAX_CPU_ISA",
+    "DNNL_MAX_CPU_ISA",
+    "TF_ENABLE_ONEDNN_OPTS",
+    "BLIS_ARCH_TYPE",
+];
+const COLLECTIVE_VARS: &[&str] = &[
+    "NCCL_ALGO",
+    "NCCL_PROTO",
+    "NCCL_MAX_NCHANNELS",
+    "NCCL_MIN_NCHANNELS",
+    "NCCL_TREE_THRESHOLD",
+];
+const LOADER_VARS: &[&str] = &[
+    "LD_LIBRARY_PATH",
+    "LD_PRELOAD",
+    "DYLD_LIBRARY_PATH",
+    "DYLD_INSERT_LIBRARIES",
+    "PYTHONPATH",
+    "VIRTUAL_ENV",
+    "CONDA_PREFIX",
+    "CONDA_DEFAULT_ENV",
+    "PYTHONNOUSERSITE",
+];
+
+fn is_thread_var(name: &str) -> bool {
+    name.ends_with("_NUM_THREADS")
         || name.ends_with("_MAX_THREADS")
         || name.ends_with("_DYNAMIC")
         || name.ends_with("_THREAD_LIMIT")
         || name.contains("AFFINITY")
         || name.starts_with("OMP_P")
-    {
-        return (Impact::Verify, "the number or placement of threads changes how reductions are split, so sums can differ in the last digits and iterative training can drift; rerun and compare metrics");
+}
+
+/// The rule for a changed environment variable (the policy's classes first).
+pub fn env_rule(name: &str, policy: &Policy) -> &'static Rule {
+    if let Some(class) = policy.env_class(name) {
+        return match class {
+            EnvClass::Precision => &ENV_PRECISION,
+            EnvClass::Threads => &ENV_THREADS,
+            EnvClass::Determinism => &ENV_DETERMINISM,
+            EnvClass::Kernels => &ENV_KERNELS,
+            EnvClass::Loader => &ENV_LOADER,
+            EnvClass::Irrelevant => &ENV_IRRELEVANT,
+        };
     }
-    if name.contains("VERBOSE") || name.contains("DEBUG") || name.contains("LOG") {
-        return (Impact::None, "it only controls logging");
+    if PRECISION_VARS.contains(&name) {
+        &ENV_PRECISION
+    } else if name == "PYTHONHASHSEED" {
+        &ENV_HASHSEED
+    } else if DETERMINISM_VARS.contains(&name) {
+        &ENV_DETERMINISM
+    } else if KERNEL_VARS.contains(&name) {
+        &ENV_KERNELS
+    } else if COLLECTIVE_VARS.contains(&name) {
+        &ENV_COLLECTIVES
+    } else if is_thread_var(name) {
+        &ENV_THREADS
+    } else if name.contains("VERBOSE") || name.contains("DEBUG") || name.contains("LOG") {
+        &ENV_LOGGING
+    } else if LOADER_VARS.contains(&name) {
+        &ENV_LOADER
+    } else if name == "CUDA_VISIBLE_DEVICES" || name == "HIP_VISIBLE_DEVICES" {
+        &ENV_DEVICES
+    } else if name == "RUSTFLAGS" || name == "CARGO_BUILD_RUSTFLAGS" {
+        &ENV_CODEGEN
+    } else {
+        &ENV_OTHER
     }
-    if matches!(
-        name,
-        "LD_LIBRARY_PATH"
-            | "LD_PRELOAD"
-            | "DYLD_LIBRARY_PATH"
-            | "DYLD_INSERT_LIBRARIES"
-            | "PYTHONPATH"
-            | "VIRTUAL_ENV"
-            | "CONDA_PREFIX"
-            | "CONDA_DEFAULT_ENV"
-            | "PYTHONNOUSERSITE"
-    ) {
-        return (Impact::Verify, "it changes which libraries or packages are loaded, which can swap a numerical library without any lockfile change");
+}
+
+// ------------------------------------------------------------------------------------------------
+// Paths
+
+/// The class of a changed file, for code changes.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash)]
+pub enum PathClass {
+    /// Training data stored in the repository.
+    Data,
+    /// Training code (anything not otherwise classed).
+    Code,
+    /// Configuration.
+    Config,
+    /// Lockfiles and dependency manifests judged by the lockfile comparison.
+    Dependencies,
+    /// Documentation.
+    Docs,
+    /// Marked irrelevant by the policy.
+    Irrelevant,
+}
+
+impl PathClass {
+    /// The word used in reports.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            PathClass::Data => "data",
+            PathClass::Code => "code",
+            PathClass::Config => "config",
+            PathClass::Dependencies => "dependencies",
+            PathClass::Docs => "docs",
+            PathClass::Irrelevant => "irrelevant",
+        }
     }
-    if name == "CUDA_VISIBLE_DEVICES" {
-        return (Impact::Verify, "it changes which or how many GPUs the run uses, which changes kernels and the split of work");
-    }
-    (
-        Impact::Verify,
-        "it belongs to a numerical library or framework whose behaviour it configures",
-    )
 }
 
 /// Paths whose change cannot alter training: documentation and licences. Common practice.
@@ -273,9 +1129,229 @@ pub fn is_documentation_path(path: &str) -> bool {
         || file == ".mailmap"
 }
 
+const DATA_EXTENSIONS: &[&str] = &[
+    ".csv",
+    ".tsv",
+    ".parquet",
+    ".npy",
+    ".npz",
+    ".h5",
+    ".hdf5",
+    ".pkl",
+    ".pickle",
+    ".arrow",
+    ".feather",
+    ".tfrecord",
+    ".jsonl",
+    ".avro",
+    ".orc",
+];
+const CONFIG_EXTENSIONS: &[&str] = &[
+    ".yaml", ".yml", ".json", ".toml", ".ini", ".cfg", ".conf", ".gin", ".jsonnet", ".env",
+];
+/// Dependency manifests: they only matter through the lockfile beside them.
+const DEPENDENCY_MANIFESTS: &[&str] = &[
+    "pyproject.toml",
+    "cargo.toml",
+    "package.json",
+    "pipfile",
+    "environment.yml",
+    "environment.yaml",
+    "go.mod",
+    "description",
+    "project.toml",
+];
+
+/// Classifies a changed path: the policy's globs first, then the defaults. `lockfiles` are the
+/// lockfile paths recorded in both manifests (their packages are compared one by one).
+pub fn path_class(path: &str, policy: &Policy, lockfiles: &[&str]) -> PathClass {
+    if let Some(class) = policy.path_class(path) {
+        return match class {
+            PathClassName::Code => PathClass::Code,
+            PathClassName::Config => PathClass::Config,
+            PathClassName::Data => PathClass::Data,
+            PathClassName::Docs => PathClass::Docs,
+            PathClassName::Irrelevant => PathClass::Irrelevant,
+        };
+    }
+    if lockfiles.contains(&path) {
+        return PathClass::Dependencies;
+    }
+    let lower = path.to_ascii_lowercase();
+    let (folder, file) = match lower.rsplit_once('/') {
+        Some((d, f)) => (d.to_string(), f.to_string()),
+        None => (String::new(), lower.clone()),
+    };
+    if DEPENDENCY_MANIFESTS.contains(&file.as_str())
+        && lockfiles.iter().any(|l| {
+            let lf = l.to_ascii_lowercase();
+            lf.rsplit_once('/')
+                .map_or(String::new(), |(d, _)| d.to_string())
+                == folder
+        })
+    {
+        return PathClass::Dependencies;
+    }
+    if is_documentation_path(path) {
+        return PathClass::Docs;
+    }
+    let in_folder = |names: &[&str]| lower.split('/').rev().skip(1).any(|d| names.contains(&d));
+    if DATA_EXTENSIONS.iter().any(|e| file.ends_with(e)) || in_folder(&["data", "datasets"]) {
+        return PathClass::Data;
+    }
+    if CONFIG_EXTENSIONS.iter().any(|e| file.ends_with(e))
+        || in_folder(&["config", "configs", "conf"])
+    {
+        return PathClass::Config;
+    }
+    PathClass::Code
+}
+
+/// The rule for a set of changed-file classes: the most result-relevant class decides.
+pub fn git_rule(classes: &[PathClass]) -> &'static Rule {
+    let has = |c| classes.contains(&c);
+    if has(PathClass::Data) {
+        &GIT_DATA
+    } else if has(PathClass::Code) {
+        &GIT_CODE
+    } else if has(PathClass::Config) {
+        &GIT_CONFIG
+    } else if has(PathClass::Dependencies) {
+        &GIT_DEPENDENCIES
+    } else if has(PathClass::Docs) {
+        &GIT_DOCS
+    } else if has(PathClass::Irrelevant) {
+        &GIT_IRRELEVANT
+    } else {
+        &GIT_EMPTY
+    }
+}
+
+// ------------------------------------------------------------------------------------------------
+// Rendering the table
+
+/// Output formats of `runprint rules`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum TableFormat {
+    /// One block per rule.
+    Text,
+    /// A JSON array.
+    Json,
+    /// The whole of `docs/rules.md`.
+    Markdown,
+}
+
+/// Renders the built-in table.
+pub fn render_table(format: TableFormat) -> String {
+    use std::fmt::Write;
+    let mut out = String::new();
+    match format {
+        TableFormat::Text => {
+            for r in RULES {
+                let _ = writeln!(out, "{:<7}  {}  ({})", r.impact.as_str(), r.id, r.title);
+                let _ = writeln!(out, "         {}", r.reason);
+                let _ = writeln!(out, "         source: {}", r.source);
+            }
+        }
+        TableFormat::Json => {
+            let rows: Vec<serde_json::Value> = RULES
+                .iter()
+                .map(|r| {
+                    serde_json::json!({
+                        "id": r.id, "section": r.section, "title": r.title,
+                        "impact": r.impact, "weight": r.weight,
+                        "reason": r.reason, "source": r.source,
+                    })
+                })
+                .collect();
+            out = serde_json::to_string_pretty(&rows).expect("rules serialize");
+            out.push('\n');
+        }
+        TableFormat::Markdown => {
+            out.push_str(MARKDOWN_HEAD);
+            out.push_str("\n| rule | what changed | impact | weight | why | source |\n|---|---|---|---|---|---|\n");
+            let cell = |s: &str| s.replace('|', "\\|");
+            for r in RULES {
+                let sources = r
+                    .source
+                    .split("; ")
+                    .map(|s| match s.split_once(' ') {
+                        Some((url, rest)) if url.starts_with("https://") => {
+                            format!("<{url}> {rest}")
+                        }
+                        _ if s.starts_with("https://") => format!("<{s}>"),
+                        _ => s.to_string(),
+                    })
+                    .collect::<Vec<_>>()
+                    .join("; ");
+                let _ = writeln!(
+                    out,
+                    "| `{}` | {} | {} | {} | {} | {} |",
+                    r.id,
+                    cell(r.title),
+                    r.impact,
+                    r.weight,
+                    cell(r.reason),
+                    cell(&sources)
+                );
+            }
+            out.push_str(MARKDOWN_TAIL);
+        }
+    }
+    out
+}
+
+const MARKDOWN_HEAD: &str = "# Why a difference gets its verdict
+
+<!-- Generated by `runprint rules --format markdown > docs/rules.md`; a test checks that it is
+current. Edit the table in src/diff/rules.rs, not this file. -->
+
+Every change `runprint diff` reports names the rule below that decided it (`rule` and `source`
+in the JSON report, shown with `--verbose`). *Common practice* marks a fact of the trade with no
+single source. The weight orders changes of one impact by how likely each is to explain a
+difference in results; the highest-weighted change of the verdict's impact is the report's
+\"Most likely cause\".
+
+Packages the tables do not know are judged by a heuristic, and the reason says so: one whose
+installed copy ships compiled code (the `python` section's `compiled` flag), or whose name
+suggests it (`-sys`, `cffi`, `-cuda`, `blas`...), weighs more than a pure-Python or pure-script
+one; development-only and tooling packages weigh least. Changed files are classed as data,
+code, config, dependencies (lockfiles and the manifests beside them), docs or irrelevant, by the
+policy file's globs first and then by name; the most result-relevant class decides the commit's
+rule.
+";
+
+const MARKDOWN_TAIL: &str = "
+A repository can adjust these rules with a `runprint.toml` policy file (see the README): add
+paths, packages or variables to a class, accept a known change until a date, and choose which
+verdict makes `diff` exit non-zero.
+";
+
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn ids_are_unique_and_every_rule_has_a_source_and_a_sentence() {
+        let mut ids: Vec<&str> = RULES.iter().map(|r| r.id).collect();
+        ids.sort_unstable();
+        let before = ids.len();
+        ids.dedup();
+        assert_eq!(before, ids.len(), "duplicate rule ids");
+        for r in RULES {
+            assert!(!r.reason.is_empty() && !r.source.is_empty() && !r.title.is_empty());
+            assert!(r.weight <= 100, "{}", r.id);
+            assert!(
+                r.source == "common practice"
+                    || r.source.contains("https://")
+                    || r.source.contains("runprint.toml"),
+                "{}: {}",
+                r.id,
+                r.source
+            );
+            assert!(by_id(r.id).is_some());
+        }
+    }
 
     #[test]
     fn doc_paths() {
@@ -300,10 +1376,86 @@ mod tests {
     }
 
     #[test]
+    fn path_classes_by_default() {
+        let p = Policy::default();
+        let locks = ["requirements.txt", "trainer/uv.lock"];
+        for (path, want) in [
+            ("train.py", PathClass::Code),
+            ("configs/base.yaml", PathClass::Config),
+            ("data/train.csv", PathClass::Data),
+            ("README.md", PathClass::Docs),
+            ("requirements.txt", PathClass::Dependencies),
+            ("trainer/pyproject.toml", PathClass::Dependencies),
+            ("pyproject.toml", PathClass::Dependencies),
+            ("tools/pyproject.toml", PathClass::Config),
+        ] {
+            assert_eq!(path_class(path, &p, &locks), want, "{path}");
+        }
+    }
+
+    #[test]
     fn env_classes() {
-        assert_eq!(env_var_impact("OMP_NUM_THREADS").0, Impact::Verify);
-        assert_eq!(env_var_impact("NVIDIA_TF32_OVERRIDE").0, Impact::Retrain);
-        assert_eq!(env_var_impact("TF_CPP_MIN_LOG_LEVEL").0, Impact::None);
-        assert_eq!(env_var_impact("CUBLAS_WORKSPACE_CONFIG").0, Impact::Verify);
+        let p = Policy::default();
+        assert_eq!(env_rule("OMP_NUM_THREADS", &p).impact, Impact::Verify);
+        assert_eq!(env_rule("NVIDIA_TF32_OVERRIDE", &p).impact, Impact::Retrain);
+        assert_eq!(env_rule("TF_CPP_MIN_LOG_LEVEL", &p).impact, Impact::None);
+        assert_eq!(env_rule("NCCL_ALGO", &p).id, "env.collectives");
+        assert_eq!(env_rule("PYTHONHASHSEED", &p).id, "env.hash-seed");
+    }
+
+    #[test]
+    fn package_rules_by_kind() {
+        let p = Policy::default();
+        let numeric = classify_package("numpy", false, None, &p);
+        let v = |o, n| PackageChange::Version {
+            ecosystem: "pypi",
+            old: o,
+            new: n,
+        };
+        assert_eq!(
+            package_rule("numpy", &numeric, v("1.26.4", "2.1.3")).0.id,
+            "pkg.numpy.nep50"
+        );
+        assert_eq!(
+            package_rule("numpy", &numeric, v("2.0.0", "2.1.3")).0.id,
+            "pkg.numeric.minor"
+        );
+        assert_eq!(
+            package_rule("numpy", &numeric, v("2.1.2", "2.1.3")).0.id,
+            "pkg.numeric.patch"
+        );
+        let torch = classify_package("torch", false, None, &p);
+        assert_eq!(
+            package_rule("torch", &torch, v("2.1.0+cpu", "2.1.0+cu121"))
+                .0
+                .id,
+            "pkg.numeric.build-device"
+        );
+        assert_eq!(
+            package_rule("torch", &torch, v("2.1.0+cu118", "2.1.0+cu121"))
+                .0
+                .id,
+            "pkg.numeric.build-variant"
+        );
+        let pure = classify_package("attrs", false, None, &p);
+        assert_eq!(pure.class, PackageClass::Pure);
+        assert!(pure.how.contains("heuristic"));
+        assert_eq!(
+            package_rule("attrs", &pure, v("23.1.0", "23.1.1")).0.impact,
+            Impact::None
+        );
+        let sys = classify_package("zstd-sys", false, None, &p);
+        assert_eq!(sys.class, PackageClass::Compiled);
+        assert_eq!(
+            classify_package("left-pad", true, None, &p).class,
+            PackageClass::Dev
+        );
+        let blas = classify_package("scipy-openblas64", false, None, &p);
+        assert_eq!(
+            package_rule("scipy-openblas64", &blas, v("0.3.27.44.3", "0.3.28.0.2"))
+                .0
+                .id,
+            "pkg.openblas.known-bad"
+        );
     }
 }

@@ -1,11 +1,11 @@
 //! Comparing the numerical stack: Python environments, native BLAS/OpenMP libraries,
 //! fast-math modules and the GPU stack. Each difference becomes a [`Change`] in section
-//! `python`, `native` or `gpu`, with an impact grounded in the facts listed (with sources) in
-//! `/docs/rules.md` and the numeric-facts notes (ids such as B1, C9, G10 refer to those).
+//! `python`, `native` or `gpu`, decided by a rule of the table in [`rules`] (listed with
+//! sources in `docs/rules.md`).
 //!
 //! Rules, in short:
-//! * a distribution's version or source: [`rules::package_impact`] (numerical packages are
-//!   retrain-level);
+//! * a distribution's version or source: [`rules::package_rule`], with the installed copy's
+//!   `compiled` flag deciding how much an unknown package weighs;
 //! * Python minor version: retrain (the `random` module's methods other than `random()` may
 //!   change their streams between minor releases, P2); micro version: verify;
 //! * BLAS vendor, version, threading layer, integer width or kernel choice, OpenMP runtime:
@@ -21,30 +21,24 @@
 
 use std::collections::{BTreeMap, BTreeSet};
 
-use super::{rules, Change, Impact};
+use super::rules::{self, PackageChange, Rule};
+use super::{Change, Context};
 use crate::manifest::{Content, FrameworkBuild, GpuInfo, NativeLibrary, PythonEnv};
 
 fn change(
-    impact: Impact,
+    rule: &Rule,
     section: &str,
     subject: String,
-    reason: String,
+    lead: String,
     old: Option<String>,
     new: Option<String>,
 ) -> Change {
-    Change {
-        impact,
-        subject,
-        reason,
-        section: section.into(),
-        old,
-        new,
-    }
+    Change::from_rule(rule, section, subject, lead, old, new)
 }
 
 /// Adds the stack's changes between two manifests' contents.
-pub fn compare(old: &Content, new: &Content, out: &mut Vec<Change>) {
-    compare_python(&old.python, &new.python, out);
+pub fn compare(old: &Content, new: &Content, ctx: &Context<'_>, out: &mut Vec<Change>) {
+    compare_python(&old.python, &new.python, ctx, out);
     compare_native(old, new, out);
     if let (Some(o), Some(n)) = (&old.gpu, &new.gpu) {
         compare_gpu(o, n, out);
@@ -59,17 +53,17 @@ fn env_label(i: usize, count: usize) -> String {
     }
 }
 
-fn compare_python(old: &[PythonEnv], new: &[PythonEnv], out: &mut Vec<Change>) {
+fn compare_python(old: &[PythonEnv], new: &[PythonEnv], ctx: &Context<'_>, out: &mut Vec<Change>) {
     let count = old.len().max(new.len());
     for i in 0..count {
         let label = env_label(i, count);
         match (old.get(i), new.get(i)) {
-            (Some(o), Some(n)) => compare_env(&label, o, n, out),
+            (Some(o), Some(n)) => compare_env(&label, o, n, ctx, out),
             (o, n) => out.push(change(
-                Impact::Verify,
+                &rules::PY_ONE_SIDE,
                 "python",
                 format!("{label} environment"),
-                "a Python environment was recorded on one side only, so its packages cannot be compared".into(),
+                String::new(),
                 o.map(|e| e.interpreter.clone()),
                 n.map(|e| e.interpreter.clone()),
             )),
@@ -81,13 +75,19 @@ fn minor(v: &str) -> String {
     v.split('.').take(2).collect::<Vec<_>>().join(".")
 }
 
-fn compare_env(label: &str, o: &PythonEnv, n: &PythonEnv, out: &mut Vec<Change>) {
+fn compare_env(
+    label: &str,
+    o: &PythonEnv,
+    n: &PythonEnv,
+    ctx: &Context<'_>,
+    out: &mut Vec<Change>,
+) {
     if o.implementation != n.implementation {
         out.push(change(
-            Impact::Retrain,
+            &rules::PY_IMPLEMENTATION,
             "python",
             format!("{label} implementation"),
-            "another Python implementation runs the code, with its own numeric built-ins, hashing and random streams".into(),
+            String::new(),
             o.implementation.clone(),
             n.implementation.clone(),
         ));
@@ -97,32 +97,32 @@ fn compare_env(label: &str, o: &PythonEnv, n: &PythonEnv, out: &mut Vec<Change>)
             o.version.as_deref().unwrap_or(""),
             n.version.as_deref().unwrap_or(""),
         );
-        let (impact, reason) = if minor(a) != minor(b) {
-            (Impact::Retrain, "a new Python minor release may change the streams of `random` (shuffle, sample, choice…; only `random()` is kept stable) and the standard library's numeric code, so data order and results are expected to change")
+        let rule = if minor(a) != minor(b) {
+            &rules::PY_MINOR
         } else {
-            (Impact::Verify, "a Python bug-fix release keeps `random` streams stable but can still fix numeric code in the standard library; rerun and compare metrics")
+            &rules::PY_MICRO
         };
         out.push(change(
-            impact,
+            rule,
             "python",
             format!("{label} version"),
-            reason.into(),
+            String::new(),
             o.version.clone(),
             n.version.clone(),
         ));
     }
     if o.interpreter != n.interpreter {
         out.push(change(
-            Impact::None,
+            &rules::PY_PATH,
             "python",
             format!("{label} interpreter path"),
-            "the interpreter's location does not change results; its version and packages are compared separately".into(),
+            String::new(),
             Some(o.interpreter.clone()),
             Some(n.interpreter.clone()),
         ));
     }
-    compare_distributions(label, o, n, out);
-    compare_conda(label, o, n, out);
+    compare_distributions(label, o, n, ctx, out);
+    compare_conda(label, o, n, ctx, out);
     compare_builds(label, &o.builds, &n.builds, out);
 }
 
@@ -130,83 +130,121 @@ fn compare_distributions<'a>(
     label: &str,
     o: &'a PythonEnv,
     n: &'a PythonEnv,
+    ctx: &Context<'_>,
     out: &mut Vec<Change>,
 ) {
-    type Keyed<'a> = BTreeMap<&'a str, Vec<(String, Option<String>)>>;
+    type Keyed<'a> = BTreeMap<&'a str, Vec<(String, Option<String>, bool)>>;
     let group = |e: &'a PythonEnv| -> Keyed<'a> {
         let mut m: Keyed = BTreeMap::new();
         for d in &e.distributions {
             m.entry(&d.name)
                 .or_default()
-                .push((d.version.clone(), d.source.clone()));
+                .push((d.version.clone(), d.source.clone(), d.compiled));
         }
         m
     };
     let (og, ng) = (group(o), group(n));
-    let versions = |v: Option<&Vec<(String, Option<String>)>>| {
+    let versions = |v: Option<&Vec<(String, Option<String>, bool)>>| {
         v.map(|v| {
             v.iter()
-                .map(|(ver, _)| ver.clone())
+                .map(|(ver, _, _)| ver.clone())
                 .collect::<Vec<_>>()
                 .join(", ")
         })
     };
+    let key = |v: Option<&Vec<(String, Option<String>, bool)>>| {
+        v.map(|v| {
+            v.iter()
+                .map(|(a, b, _)| (a.clone(), b.clone()))
+                .collect::<Vec<_>>()
+        })
+    };
     for name in og.keys().chain(ng.keys()).collect::<BTreeSet<_>>() {
         let (a, b) = (og.get(name), ng.get(name));
-        if a == b {
+        if key(a) == key(b) {
             continue;
         }
-        let what = match (a, b) {
-            (None, _) => "newly installed package",
-            (_, None) => "removed package",
-            (Some(a), Some(b))
-                if a.iter().map(|x| &x.0).collect::<Vec<_>>()
-                    == b.iter().map(|x| &x.0).collect::<Vec<_>>() =>
-            {
-                "change of source (index, URL, path or VCS revision)"
+        // The installed copies say exactly whether the distribution ships compiled code.
+        let compiled = a.into_iter().chain(b).flatten().any(|(_, _, c)| *c);
+        let change = match (a, b) {
+            (None, _) => PackageChange::Added,
+            (_, None) => PackageChange::Removed,
+            (Some(a), Some(b)) => {
+                let (x, y) = (&a[a.len() - 1].0, &b[b.len() - 1].0);
+                if x == y {
+                    PackageChange::Source
+                } else {
+                    PackageChange::Version {
+                        ecosystem: "pypi",
+                        old: x,
+                        new: y,
+                    }
+                }
             }
-            _ => "version change",
         };
-        let (impact, reason) = rules::package_impact(name, false, what);
-        out.push(change(
-            impact,
+        out.push(ctx.package_change(
             "python",
             format!("{label}: {name}"),
-            reason,
-            versions(a),
-            versions(b),
+            name,
+            false,
+            Some(compiled),
+            change,
+            (versions(a), versions(b)),
         ));
     }
 }
 
-fn compare_conda(label: &str, o: &PythonEnv, n: &PythonEnv, out: &mut Vec<Change>) {
-    let m = |e: &PythonEnv| -> BTreeMap<String, String> {
+fn compare_conda(
+    label: &str,
+    o: &PythonEnv,
+    n: &PythonEnv,
+    ctx: &Context<'_>,
+    out: &mut Vec<Change>,
+) {
+    let m = |e: &PythonEnv| -> BTreeMap<String, (String, String)> {
         e.conda_packages
             .iter()
-            .map(|p| (p.name.clone(), format!("{} ({})", p.version, p.build)))
+            .map(|p| (p.name.clone(), (p.version.clone(), p.build.clone())))
             .collect()
     };
+    let show = |v: Option<&(String, String)>| v.map(|(ver, build)| format!("{ver} ({build})"));
     let (om, nm) = (m(o), m(n));
     for name in om.keys().chain(nm.keys()).collect::<BTreeSet<_>>() {
         let (a, b) = (om.get(name), nm.get(name));
         if a == b {
             continue;
         }
-        let (impact, reason) = if matches!(
-            name.as_str(),
-            "libblas" | "libcblas" | "liblapack" | "blas"
-        ) {
-            (Impact::Verify, format!("conda's {name} build names the BLAS every package in the environment uses; another vendor or version orders floating-point operations differently (last digits, amplified by iterative training)"))
-        } else {
-            rules::package_impact(name, false, "conda package change")
+        let subject = format!("{label}: conda {name}");
+        if matches!(name.as_str(), "libblas" | "libcblas" | "liblapack" | "blas") {
+            out.push(change(
+                &rules::PY_CONDA_BLAS,
+                "python",
+                subject,
+                String::new(),
+                show(a),
+                show(b),
+            ));
+            continue;
+        }
+        let change = match (a, b) {
+            (None, _) => PackageChange::Added,
+            (_, None) => PackageChange::Removed,
+            (Some(x), Some(y)) if x.0 == y.0 => PackageChange::Rebuilt,
+            (Some(x), Some(y)) => PackageChange::Version {
+                ecosystem: "conda",
+                old: &x.0,
+                new: &y.0,
+            },
         };
-        out.push(change(
-            impact,
+        // conda packages are mostly compiled; the name heuristics decide for unknown ones.
+        out.push(ctx.package_change(
             "python",
-            format!("{label}: conda {name}"),
-            reason,
-            a.cloned(),
-            b.cloned(),
+            subject,
+            name,
+            false,
+            None,
+            change,
+            (show(a), show(b)),
         ));
     }
 }
@@ -233,61 +271,40 @@ fn compare_builds<'a>(
                     x.rocm.as_deref().unwrap_or("none")
                 )
             };
-            let (impact, reason) = if a.cuda.is_some() != b.cuda.is_some() {
-                (Impact::Retrain, format!("{name} was built for another device family (CPU-only against CUDA): training runs on different kernels with different precision defaults"))
+            let rule = if a.cuda.is_some() != b.cuda.is_some() {
+                &rules::BUILD_DEVICE
             } else {
-                (Impact::Verify, format!("{name} was built against another CUDA/cuDNN/ROCm, which brings other GPU kernels (cuBLAS and cuDNN guarantee identical bits only within one version); rerun and compare metrics"))
+                &rules::BUILD_GPU
             };
             out.push(change(
-                impact,
+                rule,
                 "python",
                 format!("{label}: {name} build"),
-                reason,
+                String::new(),
                 Some(show(a)),
                 Some(show(b)),
             ));
         }
         if a.git_revision != b.git_revision && a.version == b.version {
             out.push(change(
-                Impact::Retrain,
+                &rules::BUILD_REVISION,
                 "python",
                 format!("{label}: {name} source revision"),
-                format!("{name} reports the same version but was built from another source revision, so different code computes"),
+                String::new(),
                 a.git_revision.clone(),
                 b.git_revision.clone(),
             ));
         }
         if (&a.blas, &a.blas_config) != (&b.blas, &b.blas_config) {
             out.push(change(
-                Impact::Verify,
+                &rules::BUILD_BLAS,
                 "python",
                 format!("{label}: {name} BLAS build"),
-                format!("{name} was built against another BLAS or BLAS configuration; BLAS vendors and builds order floating-point operations differently, which iterative training can amplify"),
+                String::new(),
                 a.blas.clone().or(a.blas_config.clone()),
                 b.blas.clone().or(b.blas_config.clone()),
             ));
         }
-    }
-}
-
-/// OpenBLAS releases known to compute wrong results, with the reason (numeric-facts B27–B29).
-fn known_bad_openblas(version: &str) -> Option<&'static str> {
-    let base: Vec<u32> = version
-        .split('.')
-        .take(3)
-        .map(|p| {
-            p.chars()
-                .take_while(char::is_ascii_digit)
-                .collect::<String>()
-                .parse()
-                .unwrap_or(0)
-        })
-        .collect();
-    match base.as_slice() {
-        [0, 3, 4..=6] => Some("OpenBLAS 0.3.4–0.3.6 have an AVX-512 DGEMM kernel that returns wrong results on AVX-512 processors (OpenBLAS issues 1955, 2029, 2182)"),
-        [0, 3, 11] => Some("OpenBLAS 0.3.11's SkylakeX sgemm_direct could compile to an empty function and return garbage (OpenBLAS issue 2914)"),
-        [0, 3, 28..=29] => Some("OpenBLAS 0.3.28–0.3.29 can return another thread's GEMM result when called from several threads (numpy issue 29391)"),
-        _ => None,
     }
 }
 
@@ -371,33 +388,27 @@ fn compare_native<'a>(old: &'a Content, new: &'a Content, out: &mut Vec<Change>)
         let bad = b
             .iter()
             .filter(|l| l.implementation == "openblas")
-            .find_map(|l| known_bad_openblas(l.version.as_deref()?));
-        let (impact, reason) = if let Some(bad) = bad {
-            (
-                Impact::Retrain,
-                format!("the new {what} is a release known to compute wrong results: {bad}"),
-            )
+            .find_map(|l| rules::known_bad_openblas(l.version.as_deref()?));
+        let (rule, lead) = if let Some(bad) = bad {
+            (&rules::BLAS_KNOWN_BAD, bad.to_string())
         } else if a.is_empty() || b.is_empty() {
-            (Impact::Verify, format!("{} {what} is present on one side only ({owner}); the code that does linear algebra or runs threads differs, so results can differ in the last digits and iterative training can drift", if role == "blas" { "a" } else { "an" }))
+            (&rules::BLAS_ONE_SIDE, format!("{what} of {owner}"))
+        } else if role != "blas" {
+            (&rules::OPENMP_RUNTIME, format!("{what} of {owner}"))
         } else if a.iter().map(|l| &l.implementation).collect::<Vec<_>>()
             != b.iter().map(|l| &l.implementation).collect::<Vec<_>>()
         {
-            if role == "blas" {
-                (Impact::Verify, format!("{owner} uses another BLAS vendor; vendors order floating-point operations differently, so matrix products differ in the last digits and iterative algorithms can amplify that to visibly different models (e.g. ICA signs flipped between MKL and OpenBLAS)"))
-            } else {
-                (Impact::Verify, format!("{owner} uses another OpenMP runtime, which reads its own variables, sizes its thread pool and splits parallel reductions its own way; sums can differ in the last digits"))
-            }
+            (
+                &rules::BLAS_VENDOR,
+                format!("{owner} uses another BLAS vendor"),
+            )
         } else {
-            (Impact::Verify, format!("{owner}'s {what} changed version or build (threading, integer width, thread limit or kernel choice); each changes blocking, kernels or how reductions are split, so results differ in the last digits and iterative training can drift; rerun and compare metrics"))
+            (
+                &rules::BLAS_VERSION,
+                format!("{owner}'s {what} changed version or build"),
+            )
         };
-        out.push(change(
-            impact,
-            "native",
-            subject,
-            reason,
-            show(&a),
-            show(&b),
-        ));
+        out.push(change(rule, "native", subject, lead, show(&a), show(&b)));
     }
 
     let fm = |c: &Content| -> BTreeSet<(String, String)> {
@@ -410,20 +421,20 @@ fn compare_native<'a>(old: &'a Content, new: &'a Content, out: &mut Vec<Change>)
     let (of, nf) = (fm(old), fm(new));
     for (owner, path) in nf.difference(&of) {
         out.push(change(
-            Impact::Retrain,
+            &rules::FAST_MATH,
             "native",
             format!("fast-math module {path}"),
-            format!("{owner} now ships a compiled module with fast-math start-up code: loading it turns on flush-to-zero and denormals-are-zero for the whole process, so numbers below 1.2e-38 (float32) or 2.2e-308 (float64) become zero in every library"),
+            format!("{owner} now ships a compiled module with fast-math start-up code"),
             None,
             Some(owner.clone()),
         ));
     }
     for (owner, path) in of.difference(&nf) {
         out.push(change(
-            Impact::Retrain,
+            &rules::FAST_MATH,
             "native",
             format!("fast-math module {path}"),
-            format!("the fast-math module of {owner} is gone: subnormal numbers are no longer flushed to zero for the whole process, so results in that range change"),
+            format!("the fast-math module of {owner} is gone, so subnormals are no longer flushed"),
             Some(owner.clone()),
             None,
         ));
@@ -433,10 +444,10 @@ fn compare_native<'a>(old: &'a Content, new: &'a Content, out: &mut Vec<Change>)
 fn compare_gpu(o: &GpuInfo, n: &GpuInfo, out: &mut Vec<Change>) {
     if o.nvidia_driver != n.nvidia_driver {
         out.push(change(
-            Impact::Verify,
+            &rules::GPU_DRIVER,
             "gpu",
             "NVIDIA driver".into(),
-            "the driver compiles and schedules GPU kernels; a driver upgrade alone has changed solver convergence before; rerun and compare metrics".into(),
+            String::new(),
             o.nvidia_driver.clone(),
             n.nvidia_driver.clone(),
         ));
@@ -454,10 +465,10 @@ fn compare_gpu(o: &GpuInfo, n: &GpuInfo, out: &mut Vec<Change>) {
     };
     if tk(o) != tk(n) {
         out.push(change(
-            Impact::Verify,
+            &rules::GPU_TOOLKIT,
             "gpu",
             "CUDA toolkit".into(),
-            "another CUDA toolkit brings other compiler and library versions; cuBLAS promises identical bits only within one toolkit version".into(),
+            String::new(),
             Some(tk(o).join(", ")),
             Some(tk(n).join(", ")),
         ));
@@ -477,20 +488,20 @@ fn compare_gpu(o: &GpuInfo, n: &GpuInfo, out: &mut Vec<Change>) {
         if a == b {
             continue;
         }
-        let why = match k.0.as_str() {
-            "cudnn" => "cuDNN picks convolution algorithms by version and heuristics; identical bits are promised only for the same version on the same architecture",
-            "cublas" => "cuBLAS promises identical bits only for the same version on GPUs of the same architecture and SM count",
-            "nccl" => "NCCL's choice of all-reduce algorithm, protocol and channels depends on its version, and each sums in another order",
-            _ => "another CUDA runtime brings other GPU math and library versions",
+        let rule = match k.0.as_str() {
+            "cudnn" => &rules::GPU_CUDNN,
+            "cublas" => &rules::GPU_CUBLAS,
+            "nccl" => &rules::GPU_NCCL,
+            _ => &rules::GPU_TOOLKIT,
         };
         let join = |s: Option<&BTreeSet<String>>| {
             s.map(|s| s.iter().cloned().collect::<Vec<_>>().join(", "))
         };
         out.push(change(
-            Impact::Verify,
+            rule,
             "gpu",
             format!("{} ({})", k.0, k.1),
-            format!("{why}; rerun and compare metrics"),
+            String::new(),
             join(a),
             join(b),
         ));
@@ -498,18 +509,18 @@ fn compare_gpu(o: &GpuInfo, n: &GpuInfo, out: &mut Vec<Change>) {
     let devs = |g: &GpuInfo| -> Vec<String> { g.devices.iter().map(|d| d.model.clone()).collect() };
     let (od, nd) = (devs(o), devs(n));
     if od != nd {
-        let (impact, reason) = if od.is_empty() || nd.is_empty() {
-            (Impact::Retrain, "GPUs are present on one side only: training runs on other kernels with other precision defaults (TF32 on Ampere and later, nondeterministic atomics), which changes results")
+        let rule = if od.is_empty() || nd.is_empty() {
+            &rules::GPU_PRESENCE
         } else if od.len() != nd.len() {
-            (Impact::Verify, "the number of GPUs changed: the split of work, the collective algorithms and the order of sums change with it")
+            &rules::GPU_COUNT
         } else {
-            (Impact::Verify, "another GPU model has another architecture or SM count, so kernels and their order of operations change; rerun and compare metrics")
+            &rules::GPU_MODEL
         };
         out.push(change(
-            impact,
+            rule,
             "gpu",
             "GPUs".into(),
-            reason.into(),
+            String::new(),
             Some(od.join(", ")).filter(|s| !s.is_empty()),
             Some(nd.join(", ")).filter(|s| !s.is_empty()),
         ));
@@ -519,7 +530,14 @@ fn compare_gpu(o: &GpuInfo, n: &GpuInfo, out: &mut Vec<Change>) {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::diff::Impact;
     use crate::manifest::{Distribution, FastMathModule};
+
+    fn ctx() -> Context<'static> {
+        static POLICY: std::sync::OnceLock<crate::policy::Policy> = std::sync::OnceLock::new();
+        let c = Box::leak(Box::new(Content::default()));
+        Context::new(c, c, POLICY.get_or_init(crate::policy::Policy::default))
+    }
 
     fn lib(owner: &str, version: &str) -> NativeLibrary {
         NativeLibrary {
@@ -552,7 +570,7 @@ mod tests {
         a.native.libraries.push(lib("numpy", "0.3.23.dev"));
         b.native.libraries.push(lib("numpy", "0.3.31.188.0"));
         let mut out = Vec::new();
-        compare(&a, &b, &mut out);
+        compare(&a, &b, &ctx(), &mut out);
         assert!(out
             .iter()
             .any(|c| c.subject == "python: numpy" && c.impact == Impact::Retrain));
@@ -572,12 +590,12 @@ mod tests {
             path: "fastpkg/_x.so".into(),
         });
         let mut out = Vec::new();
-        compare(&a, &b, &mut out);
+        compare(&a, &b, &ctx(), &mut out);
         assert_eq!(out.len(), 2);
         assert!(out.iter().all(|c| c.impact == Impact::Retrain), "{out:#?}");
         // Same content: nothing.
         let mut none = Vec::new();
-        compare(&b, &b, &mut none);
+        compare(&b, &b, &ctx(), &mut none);
         assert!(none.is_empty());
     }
 
@@ -594,7 +612,7 @@ mod tests {
             ("3.11.7", "3.11.9", Impact::Verify),
         ] {
             let mut out = Vec::new();
-            compare_python(&[env(a)], &[env(b)], &mut out);
+            compare_python(&[env(a)], &[env(b)], &ctx(), &mut out);
             assert_eq!(out[0].impact, want);
         }
     }

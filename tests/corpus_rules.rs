@@ -1,0 +1,970 @@
+//! A labelled corpus of situations: each is built from real inputs (git repositories made with
+//! the `git` executable, manifests written by `runprint stamp` with environment variables set
+//! per stamp, lockfiles written by pip, uv, npm and cargo where the test environment has them,
+//! and the Python environments of `.ci/run`), compared, and its verdict checked against a label
+//! whose source is named beside it.
+//!
+//! Situations a single machine cannot produce (another CPU, C library, GPU stack or BLAS) are
+//! made by editing one section of a real stamp and fingerprinting it again; the comment says so.
+//!
+//! The test asserts that every case labelled `retrain` is reported as `retrain` and that the
+//! overall agreement is at least 95%; it prints the counts. Cases needing a tool are skipped
+//! (and counted) only when the variable naming the tool is unset:
+//! `RUNPRINT_TEST_STACK_PYTHON` / `_OLD`, `RUNPRINT_TEST_PYTHON_TOOLS`, `RUNPRINT_TEST_NODE_TOOLS`.
+
+mod common;
+
+use std::path::{Path, PathBuf};
+use std::process::Command;
+
+use common::{git, repo_with, runprint, write_files};
+use runprint::diff::{compare_with, Impact, Report};
+use runprint::manifest::{Content, Manifest};
+use runprint::policy::Policy;
+
+struct Lab {
+    out: tempfile::TempDir,
+    n: usize,
+    results: Vec<(String, Impact, Option<Impact>, String)>,
+    skipped: Vec<(String, String)>,
+}
+
+impl Lab {
+    fn new() -> Lab {
+        Lab {
+            out: tempfile::tempdir().unwrap(),
+            n: 0,
+            results: Vec::new(),
+            skipped: Vec::new(),
+        }
+    }
+
+    /// Stamps `dir` with the given variables and extra arguments.
+    fn stamp(&mut self, dir: &Path, vars: &[(&str, &str)], args: &[&str]) -> Manifest {
+        self.n += 1;
+        let path = self.out.path().join(format!("{}.toml", self.n));
+        let mut cmd = runprint();
+        cmd.args(["stamp", "--quiet", "--repo"])
+            .arg(dir)
+            .arg("--out")
+            .arg(&path)
+            .args(args);
+        for (k, v) in vars {
+            cmd.env(k, v);
+        }
+        let r = cmd.output().unwrap();
+        assert!(r.status.success(), "{}", String::from_utf8_lossy(&r.stderr));
+        Manifest::load(&path).unwrap()
+    }
+
+    fn check(&mut self, name: &str, expected: Impact, old: &Manifest, new: &Manifest, repo: &Path) {
+        let report = compare_with("old", old, "new", new, Some(repo), &Policy::default());
+        self.record(name, expected, report);
+    }
+
+    fn record(&mut self, name: &str, expected: Impact, report: Report) {
+        let top = report
+            .changes
+            .first()
+            .map(|c| format!("{} [{}] {}", c.subject, c.rule, c.impact))
+            .unwrap_or_default();
+        self.results
+            .push((name.into(), expected, Some(report.verdict), top));
+    }
+
+    fn skip(&mut self, name: &str, why: &str) {
+        self.skipped.push((name.into(), why.into()));
+    }
+}
+
+/// A copy of `base` with its content edited and its fingerprint computed again.
+fn edited(base: &Manifest, f: impl FnOnce(&mut Content)) -> Manifest {
+    let mut content = base.content.clone();
+    f(&mut content);
+    Manifest::new(base.run.clone(), content)
+}
+
+fn env_path(var: &str) -> Option<PathBuf> {
+    std::env::var_os(var).map(PathBuf::from)
+}
+
+fn run_tool(program: &Path, dir: &Path, args: &[&str]) -> String {
+    let out = Command::new(program)
+        .args(args)
+        .current_dir(dir)
+        .env("NO_COLOR", "1")
+        .env("PIP_DISABLE_PIP_VERSION_CHECK", "1")
+        .env_remove("VIRTUAL_ENV")
+        .output()
+        .unwrap_or_else(|e| panic!("cannot run {}: {e}", program.display()));
+    assert!(
+        out.status.success(),
+        "{} {args:?}: {}",
+        program.display(),
+        String::from_utf8_lossy(&out.stderr)
+    );
+    String::from_utf8(out.stdout).unwrap()
+}
+
+use Impact::{None as NONE, Retrain as RETRAIN, Verify as VERIFY};
+
+/// A case: its name, the files or variables it sets, and its label.
+type Step = (
+    &'static str,
+    &'static [(&'static str, &'static str)],
+    Impact,
+);
+
+/// Environment variables, one stamp each, against a stamp without them.
+fn env_cases(lab: &mut Lab) {
+    let repo = repo_with(&[("train.py", "print(1)\n")]);
+    let base = lab.stamp(repo.path(), &[], &[]);
+    let cases: &[Step] = &[
+        // numeric-facts B23; https://github.com/pytorch/pytorch/issues/88718
+        ("OMP_NUM_THREADS set", &[("OMP_NUM_THREADS", "16")], VERIFY),
+        // B20; https://github.com/OpenFAST/openfast/issues/29
+        ("MKL_NUM_THREADS set", &[("MKL_NUM_THREADS", "4")], VERIFY),
+        // B22; https://github.com/scikit-learn/scikit-learn/issues/18790
+        (
+            "OPENBLAS_NUM_THREADS set",
+            &[("OPENBLAS_NUM_THREADS", "2")],
+            VERIFY,
+        ),
+        // B15: oneMKL reproducibility conditions need a fixed thread count
+        ("OMP_DYNAMIC set", &[("OMP_DYNAMIC", "true")], VERIFY),
+        // common practice: placement variables steer the OpenMP pool
+        ("KMP_AFFINITY set", &[("KMP_AFFINITY", "compact")], VERIFY),
+        // G15; https://github.com/pytorch/pytorch/pull/77114
+        (
+            "NVIDIA_TF32_OVERRIDE=0",
+            &[("NVIDIA_TF32_OVERRIDE", "0")],
+            RETRAIN,
+        ),
+        // G15; PyTorch CUDA semantics notes on TF32
+        (
+            "TORCH_ALLOW_TF32_CUBLAS_OVERRIDE=1",
+            &[("TORCH_ALLOW_TF32_CUBLAS_OVERRIDE", "1")],
+            RETRAIN,
+        ),
+        // C5; oneDNN developer guide, floating-point math mode
+        (
+            "ONEDNN_DEFAULT_FPMATH_MODE=bf16",
+            &[("ONEDNN_DEFAULT_FPMATH_MODE", "bf16")],
+            RETRAIN,
+        ),
+        // G20; https://github.com/jax-ml/jax/issues/276
+        (
+            "XLA_FLAGS fast math",
+            &[("XLA_FLAGS", "--xla_cpu_enable_fast_math=true")],
+            RETRAIN,
+        ),
+        // G17; JAX docs "Matmul precision"
+        (
+            "JAX_DEFAULT_MATMUL_PRECISION=bfloat16",
+            &[("JAX_DEFAULT_MATMUL_PRECISION", "bfloat16")],
+            RETRAIN,
+        ),
+        // JAX docs on 64-bit precision: the default dtype changes from float32 (from memory)
+        ("JAX_ENABLE_X64=1", &[("JAX_ENABLE_X64", "1")], RETRAIN),
+        // ROCm counterpart of G15 (numeric-facts G15: ROCm/pytorch PR#1838)
+        (
+            "HIPBLASLT_ALLOW_TF32=1",
+            &[("HIPBLASLT_ALLOW_TF32", "1")],
+            RETRAIN,
+        ),
+        // G3; https://github.com/pytorch/pytorch/pull/41377
+        (
+            "CUBLAS_WORKSPACE_CONFIG",
+            &[("CUBLAS_WORKSPACE_CONFIG", ":4096:8")],
+            VERIFY,
+        ),
+        // G18; NVIDIA/framework-reproducibility
+        (
+            "TF_DETERMINISTIC_OPS=1",
+            &[("TF_DETERMINISTIC_OPS", "1")],
+            VERIFY,
+        ),
+        // G18: autotuning off
+        (
+            "TF_USE_CUDNN_AUTOTUNE=0",
+            &[("TF_USE_CUDNN_AUTOTUNE", "0")],
+            VERIFY,
+        ),
+        // P1; Python docs, PYTHONHASHSEED
+        ("PYTHONHASHSEED=0", &[("PYTHONHASHSEED", "0")], VERIFY),
+        // B10; https://github.com/OpenMathLib/OpenBLAS/issues/4510
+        (
+            "OPENBLAS_CORETYPE=HASWELL",
+            &[("OPENBLAS_CORETYPE", "HASWELL")],
+            VERIFY,
+        ),
+        // B19; oneMKL mkl_enable_instructions
+        (
+            "MKL_ENABLE_INSTRUCTIONS=AVX2",
+            &[("MKL_ENABLE_INSTRUCTIONS", "AVX2")],
+            VERIFY,
+        ),
+        // B14; oneMKL CNR guide
+        ("MKL_CBWR=AVX2", &[("MKL_CBWR", "AVX2")], VERIFY),
+        // C2; https://github.com/pytorch/pytorch/issues/82881
+        (
+            "ATEN_CPU_CAPABILITY=avx512",
+            &[("ATEN_CPU_CAPABILITY", "avx512")],
+            VERIFY,
+        ),
+        // C3; https://github.com/uxlfoundation/oneDNN/issues/829
+        (
+            "ONEDNN_MAX_CPU_ISA=AVX2",
+            &[("ONEDNN_MAX_CPU_ISA", "AVX2")],
+            VERIFY,
+        ),
+        // G22; https://github.com/tensorflow/tensorflow/issues/56697
+        (
+            "TF_ENABLE_ONEDNN_OPTS=0",
+            &[("TF_ENABLE_ONEDNN_OPTS", "0")],
+            VERIFY,
+        ),
+        // G23; https://github.com/NVIDIA/nccl/issues/1055
+        ("NCCL_ALGO=Ring", &[("NCCL_ALGO", "Ring")], VERIFY),
+        // G24; https://github.com/NVIDIA/nccl/issues/1055
+        (
+            "NCCL_MAX_NCHANNELS=16",
+            &[("NCCL_MAX_NCHANNELS", "16")],
+            VERIFY,
+        ),
+        // G1; cuBLAS "Results reproducibility"
+        (
+            "CUDA_VISIBLE_DEVICES=0,1",
+            &[("CUDA_VISIBLE_DEVICES", "0,1")],
+            VERIFY,
+        ),
+        // common practice: a preloaded library can replace BLAS
+        (
+            "LD_PRELOAD set",
+            &[("LD_PRELOAD", "/opt/blas/libblas.so.3")],
+            VERIFY,
+        ),
+        // H5 (verbosity variables have no numeric effect)
+        ("NCCL_DEBUG=INFO", &[("NCCL_DEBUG", "INFO")], NONE),
+        // H5
+        ("OPENBLAS_VERBOSE=2", &[("OPENBLAS_VERBOSE", "2")], NONE),
+        // H5 (TensorFlow's log level)
+        (
+            "TF_CPP_MIN_LOG_LEVEL=3",
+            &[("TF_CPP_MIN_LOG_LEVEL", "3")],
+            NONE,
+        ),
+        // common practice: a credential's presence does not change arithmetic
+        (
+            "credential variable",
+            &[("TORCH_HUB_TOKEN", "hf_abcdefghijklmnopqrstuvwxyz0123")],
+            NONE,
+        ),
+    ];
+    for (name, vars, expected) in cases {
+        let new = lab.stamp(repo.path(), vars, &[]);
+        lab.check(name, *expected, &base, &new, repo.path());
+    }
+    // The same variable with the same value on both sides: nothing changed.
+    let a = lab.stamp(repo.path(), &[("OMP_NUM_THREADS", "8")], &[]);
+    let b = lab.stamp(repo.path(), &[("OMP_NUM_THREADS", "8")], &[]);
+    // common practice: identical state
+    lab.check("same variables twice", NONE, &a, &b, repo.path());
+}
+
+/// Commits and uncommitted changes in one repository, stamped after each step.
+fn git_cases(lab: &mut Lab) {
+    let repo = repo_with(&[
+        ("train.py", "lr = 0.1\n"),
+        ("model/net.py", "layers = 3\n"),
+        ("configs/base.yaml", "batch: 32\n"),
+        ("README.md", "# kelp\n"),
+        ("docs/guide.txt", "a\n"),
+        ("data/labels.csv", "id,label\n1,a\n"),
+        ("LICENSE", "MIT\n"),
+        (
+            "requirements.txt",
+            "numpy==1.26.4\ntqdm==4.66.4\nattrs==23.1.0\n",
+        ),
+    ]);
+    let dir = repo.path().to_path_buf();
+    let mut prev = lab.stamp(&dir, &[], &[]);
+    // (name, files to write, expected, source)
+    let steps: &[Step] = &[
+        // common practice: documentation is not read by training
+        ("commit: README only", &[("README.md", "# kelp\nMore.\n")], NONE),
+        // common practice
+        ("commit: docs folder only", &[("docs/guide.txt", "b\n")], NONE),
+        // common practice: licence text
+        ("commit: LICENSE only", &[("LICENSE", "MIT or Apache-2.0\n")], NONE),
+        // common practice: the training program changed
+        ("commit: training script", &[("train.py", "lr = 0.2\n")], RETRAIN),
+        // common practice
+        ("commit: model module", &[("model/net.py", "layers = 4\n")], RETRAIN),
+        // common practice: configuration sets hyperparameters
+        ("commit: configuration", &[("configs/base.yaml", "batch: 64\n")], RETRAIN),
+        // common practice: tracked data
+        ("commit: data file", &[("data/labels.csv", "id,label\n1,b\n")], RETRAIN),
+        // common practice: code and docs together, code decides
+        ("commit: code and docs", &[("train.py", "lr = 0.3\n"), ("README.md", "# kelp v2\n")], RETRAIN),
+        // numeric-facts P5 (NEP 50): numpy 2.0
+        ("commit: requirements numpy 1.26.4 -> 2.1.3", &[("requirements.txt", "numpy==2.1.3\ntqdm==4.66.4\nattrs==23.1.0\n")], RETRAIN),
+        // H1: patch release on the numeric path, rerun and compare
+        ("commit: requirements numpy 2.1.3 -> 2.1.4", &[("requirements.txt", "numpy==2.1.4\ntqdm==4.66.4\nattrs==23.1.0\n")], VERIFY),
+        // H5: progress bars are not arithmetic
+        ("commit: requirements tqdm minor", &[("requirements.txt", "numpy==2.1.4\ntqdm==4.67.1\nattrs==23.1.0\n")], NONE),
+        // SemVer 2.0.0 item 6: patch of a pure-Python utility
+        ("commit: requirements attrs patch", &[("requirements.txt", "numpy==2.1.4\ntqdm==4.67.1\nattrs==23.1.1\n")], NONE),
+        // common practice: a pure utility's major release can change behaviour
+        ("commit: requirements attrs major", &[("requirements.txt", "numpy==2.1.4\ntqdm==4.67.1\nattrs==24.1.0\n")], VERIFY),
+        // P22: https://github.com/pandas-dev/pandas/issues/25307 (optional package changes numerics)
+        ("commit: requirements add bottleneck", &[("requirements.txt", "numpy==2.1.4\ntqdm==4.67.1\nattrs==24.1.0\nbottleneck==1.3.8\n")], RETRAIN),
+        // P12: scikit-learn "changed models" in every minor release
+        ("commit: requirements add then bump scikit-learn 1.3 -> 1.4 (add)", &[("requirements.txt", "numpy==2.1.4\ntqdm==4.67.1\nattrs==24.1.0\nbottleneck==1.3.8\nscikit-learn==1.3.2\n")], RETRAIN),
+        // P10/P12: https://github.com/scikit-learn/scikit-learn/issues/25022
+        ("commit: requirements scikit-learn 1.3.2 -> 1.4.0", &[("requirements.txt", "numpy==2.1.4\ntqdm==4.67.1\nattrs==24.1.0\nbottleneck==1.3.8\nscikit-learn==1.4.0\n")], RETRAIN),
+        // P23: https://github.com/pandas-dev/pandas/issues/46072
+        ("commit: requirements pandas 1.5.3 (added) ", &[("requirements.txt", "numpy==2.1.4\ntqdm==4.67.1\nattrs==24.1.0\nbottleneck==1.3.8\nscikit-learn==1.4.0\npandas==1.5.3\n")], RETRAIN),
+        ("commit: requirements pandas 1.5.3 -> 2.0.0", &[("requirements.txt", "numpy==2.1.4\ntqdm==4.67.1\nattrs==24.1.0\nbottleneck==1.3.8\nscikit-learn==1.4.0\npandas==2.0.0\n")], RETRAIN),
+        // G12: https://github.com/pytorch/pytorch/issues/67384 (torch 1.12 TF32 default)
+        ("commit: requirements torch 1.11.0 (added)", &[("requirements.txt", "numpy==2.1.4\ntqdm==4.67.1\nattrs==24.1.0\nbottleneck==1.3.8\nscikit-learn==1.4.0\npandas==2.0.0\ntorch==1.11.0\n")], RETRAIN),
+        ("commit: requirements torch 1.11.0 -> 1.12.0", &[("requirements.txt", "numpy==2.1.4\ntqdm==4.67.1\nattrs==24.1.0\nbottleneck==1.3.8\nscikit-learn==1.4.0\npandas==2.0.0\ntorch==1.12.0\n")], RETRAIN),
+        // H3 and G1: another CUDA build of the same version
+        ("commit: requirements torch 1.12.0 -> 1.12.0+cu121", &[("requirements.txt", "numpy==2.1.4\ntqdm==4.67.1\nattrs==24.1.0\nbottleneck==1.3.8\nscikit-learn==1.4.0\npandas==2.0.0\ntorch==1.12.0+cu121\n")], VERIFY),
+        // H3 and G8: CPU build against a CUDA build
+        ("commit: requirements torch +cu121 -> +cpu", &[("requirements.txt", "numpy==2.1.4\ntqdm==4.67.1\nattrs==24.1.0\nbottleneck==1.3.8\nscikit-learn==1.4.0\npandas==2.0.0\ntorch==1.12.0+cpu\n")], RETRAIN),
+        // PEP 440 / SemVer item 9: a pre-release of a numerical library
+        ("commit: requirements numpy pre-release", &[("requirements.txt", "numpy==2.2.0rc1\ntqdm==4.67.1\nattrs==24.1.0\nbottleneck==1.3.8\nscikit-learn==1.4.0\npandas==2.0.0\ntorch==1.12.0+cpu\n")], RETRAIN),
+        // G8: a downgrade undoes release changes
+        ("commit: requirements numpy downgrade", &[("requirements.txt", "numpy==2.0.2\ntqdm==4.67.1\nattrs==24.1.0\nbottleneck==1.3.8\nscikit-learn==1.4.0\npandas==2.0.0\ntorch==1.12.0+cpu\n")], RETRAIN),
+        // common practice: removing a utility the code may import
+        ("commit: requirements remove attrs", &[("requirements.txt", "numpy==2.0.2\ntqdm==4.67.1\nbottleneck==1.3.8\nscikit-learn==1.4.0\npandas==2.0.0\ntorch==1.12.0+cpu\n")], VERIFY),
+        // H5 and PEP 440 post-releases: a progress bar's post-release
+        ("commit: requirements tqdm post-release", &[("requirements.txt", "numpy==2.0.2\ntqdm==4.67.1.post1\nbottleneck==1.3.8\nscikit-learn==1.4.0\npandas==2.0.0\ntorch==1.12.0+cpu\n")], NONE),
+    ];
+    for (name, files, expected) in steps {
+        write_files(&dir, files);
+        git(&dir, &["commit", "-qam", name]);
+        let next = lab.stamp(&dir, &[], &[]);
+        lab.check(name, *expected, &prev, &next, &dir);
+        prev = next;
+    }
+    // A commit changing no file (common practice: the same files run).
+    git(&dir, &["commit", "-q", "--allow-empty", "-m", "empty"]);
+    let next = lab.stamp(&dir, &[], &[]);
+    lab.check("commit: no file changed", NONE, &prev, &next, &dir);
+    prev = next;
+    // Another branch at the same commit (common practice: the commit decides).
+    git(&dir, &["checkout", "-q", "-b", "experiment"]);
+    let next = lab.stamp(&dir, &[], &[]);
+    lab.check("branch name only", NONE, &prev, &next, &dir);
+    prev = next;
+    // Commits that cannot be listed (common practice: cannot rule out a code change).
+    let elsewhere = tempfile::tempdir().unwrap();
+    write_files(&dir, &[("README.md", "# kelp v3\n")]);
+    git(&dir, &["commit", "-qam", "docs"]);
+    let next = lab.stamp(&dir, &[], &[]);
+    lab.check(
+        "commit: files not listable",
+        RETRAIN,
+        &prev,
+        &next,
+        elsewhere.path(),
+    );
+    prev = next;
+    // Uncommitted changes, against the clean state.
+    let dirty: &[Step] = &[
+        // common practice
+        (
+            "uncommitted: training script",
+            &[("train.py", "lr = 0.9\n")],
+            RETRAIN,
+        ),
+        // common practice
+        ("uncommitted: README", &[("README.md", "# draft\n")], NONE),
+        // common practice: an untracked new module can be imported
+        (
+            "untracked: new module",
+            &[("model/extra.py", "x = 1\n")],
+            RETRAIN,
+        ),
+        // common practice
+        ("untracked: new notes", &[("NOTES.md", "todo\n")], NONE),
+        // common practice
+        (
+            "uncommitted: configuration",
+            &[("configs/base.yaml", "batch: 128\n")],
+            RETRAIN,
+        ),
+    ];
+    for (name, files, expected) in dirty {
+        write_files(&dir, files);
+        let next = lab.stamp(&dir, &[], &[]);
+        lab.check(name, *expected, &prev, &next, &dir);
+        git(&dir, &["checkout", "-q", "--", "."]);
+        git(&dir, &["clean", "-qfd"]);
+    }
+    // A submodule's commit (common practice: vendored code).
+    let sub = repo_with(&[("lib.py", "k = 1\n")]);
+    let main = repo_with(&[("train.py", "\n")]);
+    git(
+        main.path(),
+        &[
+            "-c",
+            "protocol.file.allow=always",
+            "submodule",
+            "add",
+            "-q",
+            sub.path().to_str().unwrap(),
+            "vendor/lib",
+        ],
+    );
+    git(main.path(), &["commit", "-qm", "add submodule"]);
+    let before = lab.stamp(main.path(), &[], &[]);
+    let inner = main.path().join("vendor/lib");
+    write_files(&inner, &[("lib.py", "k = 2\n")]);
+    git(&inner, &["commit", "-qam", "bump"]);
+    let after = lab.stamp(main.path(), &[], &[]);
+    lab.check("submodule commit", RETRAIN, &before, &after, main.path());
+}
+
+/// Declared data inputs (`stamp --data`).
+fn data_cases(lab: &mut Lab) {
+    let repo = repo_with(&[("train.py", "\n")]);
+    let data = tempfile::tempdir().unwrap();
+    write_files(data.path(), &[("a.csv", "1,2\n"), ("b.csv", "3,4\n")]);
+    let d = data.path().to_str().unwrap();
+    let cache = ["--data", d, "--rehash"];
+    let a = lab.stamp(repo.path(), &[], &cache);
+    write_files(data.path(), &[("a.csv", "1,2\n")]);
+    let same = lab.stamp(repo.path(), &[], &cache);
+    // common practice (and sha256sum): rewriting the same bytes is the same data
+    lab.check("data: rewritten, same bytes", NONE, &a, &same, repo.path());
+    write_files(data.path(), &[("b.csv", "3,5\n")]);
+    let changed = lab.stamp(repo.path(), &[], &cache);
+    // common practice: other data, other model
+    lab.check(
+        "data: file content changed",
+        RETRAIN,
+        &same,
+        &changed,
+        repo.path(),
+    );
+    write_files(data.path(), &[("c.csv", "5,6\n")]);
+    let added = lab.stamp(repo.path(), &[], &cache);
+    // common practice
+    lab.check("data: file added", RETRAIN, &changed, &added, repo.path());
+    let undeclared = lab.stamp(repo.path(), &[], &[]);
+    // common practice: cannot be compared
+    lab.check(
+        "data: declared on one side only",
+        VERIFY,
+        &added,
+        &undeclared,
+        repo.path(),
+    );
+}
+
+/// Sections one machine cannot vary, edited from a real stamp.
+fn edited_cases(lab: &mut Lab) {
+    let repo = repo_with(&[("train.py", "\n")]);
+    let base = lab.stamp(repo.path(), &[], &[]);
+    let r = repo.path();
+    type Edit = fn(&mut Content);
+    let cases: &[(&str, Edit, Impact)] = &[
+        // C13, C14: https://github.com/llvm/llvm-project/issues/91824
+        (
+            "cpu: x86_64 -> aarch64",
+            |c| {
+                c.cpu.arch = if c.cpu.arch == "aarch64" {
+                    "x86_64".into()
+                } else {
+                    "aarch64".into()
+                }
+            },
+            RETRAIN,
+        ),
+        // B9: https://github.com/OpenMathLib/OpenBLAS/issues/4510
+        (
+            "cpu: another model",
+            |c| c.cpu.model_name = Some("Example CPU 9000".into()),
+            VERIFY,
+        ),
+        // B22: thread pools follow the CPU count
+        (
+            "cpu: twice the cores",
+            |c| {
+                c.cpu.logical_cores *= 2;
+                c.cpu.allowed_cpu_count = c.cpu.allowed_cpu_count.map(|n| n * 2);
+            },
+            VERIFY,
+        ),
+        // common practice: same count, other placement
+        (
+            "cpu: same count, other CPUs",
+            |c| c.cpu.allowed_cpus = Some("64-127".into()),
+            NONE,
+        ),
+        // L1: https://github.com/openmc-dev/openmc/issues/1214
+        (
+            "system: glibc 2.27 -> this machine's C library",
+            |c| {
+                c.system.libc = Some("glibc".into());
+                c.system.libc_version = Some("2.27".into());
+            },
+            VERIFY,
+        ),
+        // common practice
+        (
+            "system: OS release only",
+            |c| c.system.os_version = Some("Example OS 1.0".into()),
+            NONE,
+        ),
+        // common practice
+        (
+            "system: kernel only",
+            |c| c.system.kernel = Some("1.2.3-example".into()),
+            NONE,
+        ),
+        // common practice
+        (
+            "system: memory only",
+            |c| c.system.memory_bytes += 1 << 30,
+            NONE,
+        ),
+    ];
+    for (name, edit, expected) in cases {
+        let new = edited(&base, *edit);
+        // Old is the edit for "gains": the real machine may or may not have the feature.
+        lab.check(name, *expected, &new, &base, r);
+    }
+    // C1, C6: https://github.com/pytorch/pytorch/issues/155423 (AVX-512 kernels)
+    let without = edited(&base, |c| c.cpu.features.retain(|f| f != "avx512f"));
+    let with = edited(&base, |c| {
+        if !c.cpu.features.iter().any(|f| f == "avx512f") {
+            c.cpu.features.push("avx512f".into());
+            c.cpu.features.sort();
+        }
+    });
+    lab.check("cpu: gains avx512f", VERIFY, &without, &with, r);
+    use runprint::manifest::{
+        FastMathModule, GpuDevice, GpuInfo, GpuLibrary, NativeLibrary, PythonEnv,
+    };
+    let blas = |implementation: &str, version: &str| NativeLibrary {
+        role: "blas".into(),
+        implementation: implementation.into(),
+        owner: "numpy".into(),
+        path: "numpy.libs/libblas.so".into(),
+        file: "libblas.so".into(),
+        version: Some(version.into()),
+        ..NativeLibrary::default()
+    };
+    let gpu = |driver: &str, cudnn: &str, model: &str, n: usize| GpuInfo {
+        nvidia_driver: Some(driver.into()),
+        libraries: vec![GpuLibrary {
+            name: "cudnn".into(),
+            version: cudnn.into(),
+            owner: "torch".into(),
+            from: "header".into(),
+        }],
+        devices: (0..n)
+            .map(|i| GpuDevice {
+                bus_id: format!("0000:0{i}:00.0"),
+                model: model.into(),
+                ..GpuDevice::default()
+            })
+            .collect(),
+        ..GpuInfo::default()
+    };
+    let py = |v: &str| PythonEnv {
+        interpreter: "/venv/bin/python".into(),
+        kind: "venv".into(),
+        version: Some(v.into()),
+        ..PythonEnv::default()
+    };
+    let pairs: Vec<(&str, Content, Content, Impact)> = vec![
+        // B2: https://github.com/mne-tools/mne-python/issues/4922
+        (
+            "native: OpenBLAS -> MKL",
+            Content {
+                native: runprint::manifest::NativeInfo {
+                    libraries: vec![blas("openblas", "0.3.27")],
+                    ..Default::default()
+                },
+                ..Default::default()
+            },
+            Content {
+                native: runprint::manifest::NativeInfo {
+                    libraries: vec![blas("mkl", "2024.2")],
+                    ..Default::default()
+                },
+                ..Default::default()
+            },
+            VERIFY,
+        ),
+        // B29: https://github.com/numpy/numpy/issues/29391
+        (
+            "native: OpenBLAS 0.3.27 -> 0.3.28",
+            Content {
+                native: runprint::manifest::NativeInfo {
+                    libraries: vec![blas("openblas", "0.3.27")],
+                    ..Default::default()
+                },
+                ..Default::default()
+            },
+            Content {
+                native: runprint::manifest::NativeInfo {
+                    libraries: vec![blas("openblas", "0.3.28")],
+                    ..Default::default()
+                },
+                ..Default::default()
+            },
+            RETRAIN,
+        ),
+        // B13: https://github.com/OpenMathLib/OpenBLAS/issues/5735 (point release changed sums)
+        (
+            "native: OpenBLAS 0.3.26 -> 0.3.27",
+            Content {
+                native: runprint::manifest::NativeInfo {
+                    libraries: vec![blas("openblas", "0.3.26")],
+                    ..Default::default()
+                },
+                ..Default::default()
+            },
+            Content {
+                native: runprint::manifest::NativeInfo {
+                    libraries: vec![blas("openblas", "0.3.27")],
+                    ..Default::default()
+                },
+                ..Default::default()
+            },
+            VERIFY,
+        ),
+        // C9: https://github.com/llvm/llvm-project/issues/57589
+        (
+            "native: fast-math module appears",
+            Content::default(),
+            Content {
+                native: runprint::manifest::NativeInfo {
+                    fast_math: vec![FastMathModule {
+                        owner: "fastpkg".into(),
+                        path: "fastpkg/_x.so".into(),
+                    }],
+                    ..Default::default()
+                },
+                ..Default::default()
+            },
+            RETRAIN,
+        ),
+        // G5: cuDNN identical bits only within one version
+        (
+            "gpu: cuDNN 8.9 -> 9.1",
+            Content {
+                gpu: Some(gpu("550.54", "8.9.7", "GPU A", 1)),
+                ..Default::default()
+            },
+            Content {
+                gpu: Some(gpu("550.54", "9.1.0", "GPU A", 1)),
+                ..Default::default()
+            },
+            VERIFY,
+        ),
+        // G11: https://github.com/NVIDIA/AMGX/issues/60
+        (
+            "gpu: driver upgrade",
+            Content {
+                gpu: Some(gpu("535.104", "8.9.7", "GPU A", 1)),
+                ..Default::default()
+            },
+            Content {
+                gpu: Some(gpu("550.54", "8.9.7", "GPU A", 1)),
+                ..Default::default()
+            },
+            VERIFY,
+        ),
+        // G26: collectives depend on GPU count
+        (
+            "gpu: 1 -> 8 GPUs",
+            Content {
+                gpu: Some(gpu("550.54", "8.9.7", "GPU A", 1)),
+                ..Default::default()
+            },
+            Content {
+                gpu: Some(gpu("550.54", "8.9.7", "GPU A", 8)),
+                ..Default::default()
+            },
+            VERIFY,
+        ),
+        // G8, G12: CPU-only against GPU training
+        (
+            "gpu: none -> one GPU",
+            Content {
+                gpu: Some(GpuInfo::default()),
+                ..Default::default()
+            },
+            Content {
+                gpu: Some(gpu("550.54", "8.9.7", "GPU A", 1)),
+                ..Default::default()
+            },
+            RETRAIN,
+        ),
+        // P2: https://docs.python.org/3/library/random.html#notes-on-reproducibility
+        (
+            "python: 3.11 -> 3.12",
+            Content {
+                python: vec![py("3.11.9")],
+                ..Default::default()
+            },
+            Content {
+                python: vec![py("3.12.4")],
+                ..Default::default()
+            },
+            RETRAIN,
+        ),
+        // P2: micro releases keep random streams
+        (
+            "python: 3.11.7 -> 3.11.9",
+            Content {
+                python: vec![py("3.11.7")],
+                ..Default::default()
+            },
+            Content {
+                python: vec![py("3.11.9")],
+                ..Default::default()
+            },
+            VERIFY,
+        ),
+    ];
+    for (name, a, b, expected) in pairs {
+        let (old, new) = (
+            edited(&base, |c| {
+                c.native = a.native;
+                c.gpu = a.gpu;
+                c.python = a.python;
+            }),
+            edited(&base, |c| {
+                c.native = b.native;
+                c.gpu = b.gpu;
+                c.python = b.python;
+            }),
+        );
+        lab.check(name, expected, &old, &new, r);
+    }
+}
+
+/// Lockfiles and environments written by real package managers.
+fn tool_cases(lab: &mut Lab) {
+    let (stack, stack_old) = (
+        env_path("RUNPRINT_TEST_STACK_PYTHON"),
+        env_path("RUNPRINT_TEST_STACK_PYTHON_OLD"),
+    );
+    let names = [
+        "pip freeze: numpy 1.26 env -> 2.x env",
+        "python section: numpy 1.26 env -> 2.x env",
+        "python section: same env twice",
+    ];
+    match (&stack, &stack_old) {
+        (Some(new_py), Some(old_py)) => {
+            let repo = repo_with(&[("train.py", "\n")]);
+            let dir = repo.path();
+            let freeze = |py: &Path| run_tool(py, dir, &["-m", "pip", "freeze"]);
+            std::fs::write(dir.join("requirements.txt"), freeze(old_py)).unwrap();
+            git(dir, &["add", "-A"]);
+            git(dir, &["commit", "-qm", "old env"]);
+            let a = lab.stamp(dir, &[], &[]);
+            std::fs::write(dir.join("requirements.txt"), freeze(new_py)).unwrap();
+            git(dir, &["commit", "-qam", "new env"]);
+            let b = lab.stamp(dir, &[], &[]);
+            // P5 (NEP 50): numpy 1.26 -> 2.x, files written by real pip
+            lab.check(names[0], RETRAIN, &a, &b, dir);
+            let (o, n) = (old_py.to_str().unwrap(), new_py.to_str().unwrap());
+            let x = lab.stamp(dir, &[], &["--python", o]);
+            let y = lab.stamp(dir, &[], &["--python", n]);
+            // P5: the installed numpy, read from the real environments
+            lab.check(names[1], RETRAIN, &x, &y, dir);
+            let z = lab.stamp(dir, &[], &["--python", n]);
+            // common practice: the same environment
+            lab.check(names[2], NONE, &y, &z, dir);
+        }
+        _ => {
+            for n in names {
+                lab.skip(n, "RUNPRINT_TEST_STACK_PYTHON(_OLD) unset");
+            }
+        }
+    }
+    let uv_name = "uv pip freeze: numpy 1.26 env -> 2.x env";
+    match (env_path("RUNPRINT_TEST_PYTHON_TOOLS"), &stack, &stack_old) {
+        (Some(tools), Some(new_py), Some(old_py)) => {
+            let uv = tools.join("uv");
+            let repo = repo_with(&[("train.py", "\n")]);
+            let dir = repo.path();
+            let freeze = |py: &Path| {
+                run_tool(
+                    &uv,
+                    dir,
+                    &["pip", "freeze", "--python", py.to_str().unwrap()],
+                )
+            };
+            std::fs::write(dir.join("requirements.txt"), freeze(old_py)).unwrap();
+            git(dir, &["add", "-A"]);
+            git(dir, &["commit", "-qm", "old"]);
+            let a = lab.stamp(dir, &[], &[]);
+            std::fs::write(dir.join("requirements.txt"), freeze(new_py)).unwrap();
+            git(dir, &["commit", "-qam", "new"]);
+            let b = lab.stamp(dir, &[], &[]);
+            // P5 (NEP 50), file written by real uv
+            lab.check(uv_name, RETRAIN, &a, &b, dir);
+        }
+        _ => lab.skip(
+            uv_name,
+            "RUNPRINT_TEST_PYTHON_TOOLS or the stack pythons unset",
+        ),
+    }
+    let npm_names = [
+        "npm: seedrandom 3.0.5 -> 2.4.4",
+        "npm: dev-only dependency bump",
+    ];
+    match env_path("RUNPRINT_TEST_NODE_TOOLS") {
+        Some(_) => {
+            let repo = repo_with(&[("train.js", "\n")]);
+            let dir = repo.path();
+            let npm = Path::new("npm");
+            let lock = |deps: &str, dev: &str| {
+                std::fs::write(
+                    dir.join("package.json"),
+                    format!("{{\"name\":\"kelp\",\"version\":\"1.0.0\",\"dependencies\":{{{deps}}},\"devDependencies\":{{{dev}}}}}"),
+                )
+                .unwrap();
+                run_tool(
+                    npm,
+                    dir,
+                    &[
+                        "install",
+                        "--package-lock-only",
+                        "--ignore-scripts",
+                        "--no-audit",
+                        "--no-fund",
+                    ],
+                );
+                git(dir, &["add", "-A"]);
+                git(dir, &["commit", "-qm", "lock"]);
+            };
+            lock("\"seedrandom\":\"3.0.5\"", "\"is-number\":\"7.0.0\"");
+            let a = lab.stamp(dir, &[], &[]);
+            lock("\"seedrandom\":\"2.4.4\"", "\"is-number\":\"7.0.0\"");
+            let b = lab.stamp(dir, &[], &[]);
+            // G8/common practice: a random-number library's downgrade changes streams
+            lab.check(npm_names[0], RETRAIN, &a, &b, dir);
+            lock("\"seedrandom\":\"2.4.4\"", "\"is-number\":\"6.0.0\"");
+            let c = lab.stamp(dir, &[], &[]);
+            // H4: dev-only dependencies are not loaded by training
+            lab.check(npm_names[1], NONE, &b, &c, dir);
+        }
+        None => {
+            for n in npm_names {
+                lab.skip(n, "RUNPRINT_TEST_NODE_TOOLS unset");
+            }
+        }
+    }
+    // Cargo is always here (it builds this test). Path dependencies outside the repository
+    // keep it offline; only the lockfile changes inside the repository.
+    let repo = repo_with(&[("train.rs", "\n")]);
+    let dir = repo.path();
+    let crates = tempfile::tempdir().unwrap();
+    let cargo = std::env::var_os("CARGO").map_or_else(|| PathBuf::from("cargo"), PathBuf::from);
+    let krate = |name: &str, version: &str, deps: &str| {
+        let d = if name == "app" {
+            dir.join(name)
+        } else {
+            crates.path().join(name)
+        };
+        std::fs::create_dir_all(d.join("src")).unwrap();
+        std::fs::write(
+            d.join("Cargo.toml"),
+            format!("[package]\nname = \"{name}\"\nversion = \"{version}\"\nedition = \"2021\"\n\n[dependencies]\n{deps}"),
+        )
+        .unwrap();
+        std::fs::write(d.join("src/lib.rs"), "").unwrap();
+    };
+    let relock = |lab: &mut Lab, kelp: &str, rand: &str| {
+        krate("kelp-util", kelp, "");
+        krate("rand", rand, "");
+        let c = crates.path().display();
+        krate(
+            "app",
+            "0.1.0",
+            &format!(
+                "kelp-util = {{ path = \"{c}/kelp-util\" }}\nrand = {{ path = \"{c}/rand\" }}\n"
+            ),
+        );
+        let out = Command::new(&cargo)
+            .args(["generate-lockfile", "--offline", "--manifest-path"])
+            .arg(dir.join("app/Cargo.toml"))
+            .output()
+            .unwrap();
+        assert!(
+            out.status.success(),
+            "{}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+        git(dir, &["add", "-A"]);
+        git(dir, &["commit", "-qm", "lock"]);
+        lab.stamp(dir, &[], &[])
+    };
+    let a = relock(lab, "0.1.0", "0.8.5");
+    let b = relock(lab, "0.2.0", "0.8.5");
+    // SemVer item 4 (0.x minor may break); an unknown pure crate: verify
+    lab.check("cargo: unknown crate 0.1 -> 0.2", VERIFY, &a, &b, dir);
+    let c = relock(lab, "0.2.0", "0.9.0");
+    // SemVer item 4; rand's streams are part of its API (common practice)
+    lab.check("cargo: rand 0.8 -> 0.9", RETRAIN, &b, &c, dir);
+    let d = relock(lab, "0.2.1", "0.9.0");
+    // SemVer item 6: patch of an unknown pure crate
+    lab.check("cargo: unknown crate patch", NONE, &c, &d, dir);
+}
+
+#[test]
+fn labelled_corpus_agrees_with_the_rules() {
+    let mut lab = Lab::new();
+    env_cases(&mut lab);
+    git_cases(&mut lab);
+    data_cases(&mut lab);
+    edited_cases(&mut lab);
+    tool_cases(&mut lab);
+    let total = lab.results.len();
+    let agree = lab
+        .results
+        .iter()
+        .filter(|(_, want, got, _)| Some(*want) == *got)
+        .count();
+    let mut missed_retrain = Vec::new();
+    for (name, want, got, top) in &lab.results {
+        let mark = if Some(*want) == *got { "ok  " } else { "DIFF" };
+        eprintln!(
+            "{mark} {name}: label {want}, got {}  ({top})",
+            got.map_or("-".into(), |g| g.to_string())
+        );
+        if *want == Impact::Retrain && *got != Some(Impact::Retrain) {
+            missed_retrain.push(name.clone());
+        }
+    }
+    for (name, why) in &lab.skipped {
+        eprintln!("skip {name}: {why}");
+    }
+    let share = agree as f64 / total as f64;
+    eprintln!(
+        "corpus: {total} run, {agree} agree ({:.1}%), {} skipped",
+        share * 100.0,
+        lab.skipped.len()
+    );
+    assert!(total >= 60, "only {total} cases ran");
+    assert!(
+        missed_retrain.is_empty(),
+        "retrain cases not reported as retrain: {missed_retrain:?}"
+    );
+    assert!(
+        share >= 0.95,
+        "agreement {:.1}% is below 95%",
+        share * 100.0
+    );
+}
