@@ -147,13 +147,44 @@ def make_reference_repo(path, rng):
     return lockfiles, counts
 
 
+def real_lockfiles(scratch):
+    """Large lockfiles written by the real tools (network to the registries needed); a tool that
+    is missing or fails is skipped. This repository's own Cargo.lock is real too."""
+    files = [ROOT / "Cargo.lock"]
+    npm_dir = scratch / "npm-big"
+    npm_dir.mkdir()
+    (npm_dir / "package.json").write_text(json.dumps({"name": "bench", "version": "1.0.0", "private": True,
+        "dependencies": {"webpack": "^5", "jest": "^29", "eslint": "^8", "@babel/core": "^7", "typescript": "^5"}}))
+    if subprocess.run(["npm", "install", "--package-lock-only", "--ignore-scripts", "--no-audit", "--no-fund"],
+                      cwd=npm_dir, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL).returncode == 0:
+        files.append(npm_dir / "package-lock.json")
+    uv = ROOT / ".ci-venv" / "bin" / "uv"
+    if uv.exists():
+        uv_dir = scratch / "uv-big"
+        uv_dir.mkdir()
+        (uv_dir / "pyproject.toml").write_text('[project]\nname = "bench"\nversion = "0.1.0"\nrequires-python = ">=3.11"\n'
+            'dependencies = ["jupyterlab", "pandas", "scikit-learn", "matplotlib", "torch"]\n')
+        if subprocess.run([str(uv), "lock", "--quiet"], cwd=uv_dir, stdout=subprocess.DEVNULL,
+                          stderr=subprocess.DEVNULL).returncode == 0:
+            files.append(uv_dir / "uv.lock")
+            req = uv_dir / "requirements.txt"
+            with open(req, "w") as f:
+                if subprocess.run([str(uv), "export", "--quiet", "--format", "requirements-txt"], cwd=uv_dir,
+                                  stdout=f, stderr=subprocess.DEVNULL).returncode != 0:
+                    req.unlink()
+            if req.exists():
+                files.append(req)
+    return files
+
+
 def main():
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="256 MiB of data instead of 2 GiB")
     ap.add_argument("--write", action="store_true", help="record the table in docs/performance.md")
     ap.add_argument("--keep", action="store_true", help="keep the scratch folder")
     args = ap.parse_args()
-    run(["cargo", "build", "--release", "--quiet", "--bin", "runprint", "--example", "synth_manifests"], cwd=ROOT)
+    run(["cargo", "build", "--release", "--quiet", "--bin", "runprint", "--example", "synth_manifests",
+         "--example", "parse_bench"], cwd=ROOT)
     rng = random.Random(7)
     scratch = Path(tempfile.mkdtemp(prefix="runprint-bench-"))
     rows = []
@@ -236,6 +267,19 @@ def main():
         r = parse / (2 * t_cat)
         row(f"find, read and parse 5 lockfiles ({total / 1e6:.1f} MB, {total / parse / 1e6:.0f} MB/s)", f"{parse * 1000:.1f} ms",
             "cat of the same files, twice", f"{2 * t_cat * 1000:.1f} ms", f"{r:.2f}x", "< 1x", r < 1)
+
+        # 6b. Parsing throughput of large real lockfiles, per ecosystem, against reading them.
+        for f in real_lockfiles(scratch):
+            out_line = subprocess.run([str(ROOT / "target/release/examples/parse_bench"), str(f)],
+                                      capture_output=True, text=True).stdout.strip()
+            if not out_line:
+                continue
+            eco, _, n_pkgs, n_bytes, mbps = out_line.split("\t")
+            warm([f])
+            t_read = timed(["cat", str(f)], runs=7)
+            parse_s = int(n_bytes) / (float(mbps) * 1e6)
+            row(f"parse a real {f.name} ({eco}, {n_pkgs} packages, {int(n_bytes) / 1e6:.2f} MB)", f"{float(mbps):.0f} MB/s",
+                "cat of the file", f"{t_read * 1000:.1f} ms", f"parse {parse_s * 1000:.1f} ms", "reported", True)
 
         # 7. diff of two manifests of 10,000 packages, and linearity up to 40,000.
         times = {}
