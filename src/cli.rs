@@ -28,7 +28,7 @@ const EXIT_CODES: &str = "Exit codes:
   3  verdict verify: results may shift slightly; rerun and compare metrics
   4  verdict retrain: results are expected to change
   2  bad input: unreadable or malformed manifest (the file is named), bad arguments,
-     or a failed collector under --strict";
+     a failed collector under `stamp --strict`, or a modified manifest under `diff --strict`";
 
 /// Record what can change a training run's results, and tell whether a difference needs a
 /// retrain.
@@ -111,6 +111,10 @@ struct DiffArgs {
     /// Also show a compact diff of each changed lockfile's package list.
     #[arg(long, short)]
     verbose: bool,
+    /// Exit 2 when either manifest was modified after stamping (its fingerprint does not
+    /// match its content).
+    #[arg(long)]
+    strict: bool,
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -130,7 +134,11 @@ pub fn main() -> ExitCode {
 }
 
 fn fail(message: impl std::fmt::Display) -> ExitCode {
-    eprintln!("error: {message}");
+    // Errors may quote a line of a file the user did not write; never echo a credential.
+    eprintln!(
+        "error: {}",
+        crate::redact::scrub_secrets(&message.to_string())
+    );
     ExitCode::from(EXIT_BAD_INPUT)
 }
 
@@ -204,6 +212,17 @@ fn run_diff(args: DiffArgs) -> ExitCode {
         Ok(m) => m,
         Err(e) => return fail(e),
     };
+    if args.strict {
+        for (path, m) in [(&args.old, &old), (&args.new, &new)] {
+            if m.is_modified() {
+                return fail(format!(
+                    "`{}` was modified after stamping (its fingerprint does not match its \
+                     content) and --strict was given",
+                    path.display()
+                ));
+            }
+        }
+    }
     let mut report = compare(
         &args.old.display().to_string(),
         &old,

@@ -16,7 +16,22 @@ pub const BLOCK: usize = 1 << 20;
 /// Hex SHA-256 and size of a file's content, read in blocks. `on_bytes` is called after each
 /// block with its length (for progress bars).
 pub fn sha256_file(path: &Path, on_bytes: &dyn Fn(u64)) -> std::io::Result<(String, u64)> {
-    let mut file = std::fs::File::open(path)?;
+    let mut options = std::fs::OpenOptions::new();
+    options.read(true);
+    #[cfg(unix)]
+    {
+        // A file swapped for a FIFO after it was listed must not block the stamp; regular
+        // files ignore the flag.
+        use std::os::unix::fs::OpenOptionsExt;
+        options.custom_flags(libc::O_NONBLOCK);
+    }
+    let mut file = options.open(path)?;
+    if !file.metadata()?.is_file() {
+        return Err(std::io::Error::new(
+            std::io::ErrorKind::InvalidInput,
+            "not a regular file",
+        ));
+    }
     let mut hasher = Sha256::new();
     let mut buf = vec![0u8; BLOCK];
     let mut total = 0u64;

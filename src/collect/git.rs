@@ -93,10 +93,12 @@ fn uncommitted_change(
         .include_ignored(false)
         .renames_head_to_index(false);
     let statuses = repo.statuses(Some(&mut opts))?;
-    let mut entries: Vec<(String, Status)> = statuses
+    // Paths as raw bytes: a file name that is not UTF-8 is still hashed and opened by its
+    // real name, and listed in `changed-paths` with replacement characters.
+    let mut entries: Vec<(Vec<u8>, Status)> = statuses
         .iter()
         .filter(|e| e.status() != Status::CURRENT && !e.status().contains(Status::IGNORED))
-        .filter_map(|e| e.path().map(|p| (p.to_string(), e.status())))
+        .map(|e| (e.path_bytes().to_vec(), e.status()))
         .collect();
     entries.sort();
     entries.dedup_by(|a, b| a.0 == b.0);
@@ -105,20 +107,37 @@ fn uncommitted_change(
     }
     let mut digest = Sha256::new();
     for (path, status) in &entries {
-        digest.update(path.as_bytes());
+        digest.update(path);
         digest.update([0]);
+        let on_disk = root.join(path_from_bytes(path));
         let deleted = status.intersects(Status::WT_DELETED)
-            || (status.intersects(Status::INDEX_DELETED) && !root.join(path).exists());
+            || (status.intersects(Status::INDEX_DELETED) && !on_disk.exists());
         let state = if deleted {
             "deleted".to_string()
         } else {
-            content_digest(&root.join(path))
+            content_digest(&on_disk)
         };
         digest.update(state.as_bytes());
         digest.update(b"\n");
     }
-    let paths = entries.into_iter().map(|(p, _)| p).collect();
+    let paths = entries
+        .into_iter()
+        .map(|(p, _)| String::from_utf8_lossy(&p).into_owned())
+        .collect();
     Ok((paths, Some(format!("sha256:{}", hex(&digest.finalize())))))
+}
+
+/// A path as git stores it (bytes) in the platform's form.
+fn path_from_bytes(bytes: &[u8]) -> PathBuf {
+    #[cfg(unix)]
+    {
+        use std::os::unix::ffi::OsStrExt;
+        PathBuf::from(std::ffi::OsStr::from_bytes(bytes))
+    }
+    #[cfg(not(unix))]
+    {
+        PathBuf::from(String::from_utf8_lossy(bytes).into_owned())
+    }
 }
 
 /// SHA-256 of a work-tree file's content (a symbolic link's target, a folder's marker).
@@ -134,6 +153,10 @@ fn content_digest(path: &Path) -> String {
     if meta.is_dir() {
         // A submodule or nested repository: its own commit is recorded elsewhere.
         return "dir".into();
+    }
+    if !meta.is_file() {
+        // A FIFO would block the open; a socket or device has no content to hash.
+        return "special".into();
     }
     let mut hasher = Sha256::new();
     let Ok(mut file) = std::fs::File::open(path) else {

@@ -17,7 +17,7 @@ use std::collections::BTreeMap;
 use std::path::PathBuf;
 
 use crate::manifest::{Content, Manifest, RunInfo};
-use crate::redact::scrub_url_credentials;
+use crate::redact::scrub_secrets;
 
 /// What to stamp and how.
 #[derive(Debug, Clone)]
@@ -86,6 +86,12 @@ pub fn stamp(opts: &StampOptions) -> Manifest {
     }
 
     content.data = data::collect(&opts.data, &root, opts.private, &mut warnings);
+    if opts.private {
+        let user = ["USER", "LOGNAME", "USERNAME"]
+            .iter()
+            .find_map(|k| opts.env.get(*k).filter(|v| !v.is_empty()));
+        crate::privacy::apply(&mut content, &mut warnings, user.map(String::as_str));
+    }
 
     let run = RunInfo {
         tool_version: env!("CARGO_PKG_VERSION").to_string(),
@@ -96,7 +102,7 @@ pub fn stamp(opts: &StampOptions) -> Manifest {
         } else {
             system::hostname()
         },
-        warnings: warnings.iter().map(|w| scrub_url_credentials(w)).collect(),
+        warnings: warnings.iter().map(|w| scrub_secrets(w)).collect(),
     };
     Manifest::new(run, content)
 }
