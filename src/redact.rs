@@ -80,10 +80,7 @@ pub fn looks_secret_value(value: &str) -> bool {
         return true;
     }
     // Path lists (`a:b`) and paths (`/x/ghp_…`) can hide a token in one element.
-    if value
-        .split([':', '/', '@', '='])
-        .any(has_token_prefix)
-    {
+    if value.split([':', '/', '@', '=']).any(has_token_prefix) {
         return true;
     }
     for word in
@@ -215,11 +212,9 @@ pub fn scrub_secrets(text: &str) -> String {
             w.chars()
                 .all(|c| c.is_ascii_digit() || ('a'..='f').contains(&c))
         };
-        let secret = word
-            .split([':', '/', '@', '=', ',', ';'])
-            .any(|part| {
-                has_token_prefix(part) || (is_random_looking(part) && !is_hex_digest(part))
-            });
+        let secret = word.split([':', '/', '@', '=', ',', ';']).any(|part| {
+            has_token_prefix(part) || (is_random_looking(part) && !is_hex_digest(part))
+        });
         if secret {
             out.push_str("[redacted]");
         } else {

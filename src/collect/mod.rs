@@ -60,13 +60,51 @@ impl StampOptions {
     }
 }
 
+/// The environment variable that sets, in seconds, how long the git collector may take.
+pub const GIT_TIMEOUT_VAR: &str = "RUNPRINT_GIT_TIMEOUT_SECS";
+
+/// Default for [`GIT_TIMEOUT_VAR`]: far longer than the status of a large repository takes.
+pub const DEFAULT_GIT_TIMEOUT_SECS: u64 = 120;
+
+/// Runs the git collector on a watchdog thread. libgit2 can loop forever on a damaged
+/// repository (a truncated loose object makes its zlib reader spin, see
+/// `tests/fs_traps.rs`), and a stamp must never hang the job it records: after the timeout the
+/// git section is left empty with a warning, and the stuck thread ends with the process.
+fn collect_git_with_timeout(opts: &StampOptions) -> Result<git::GitFacts, String> {
+    let secs = opts
+        .env
+        .get(GIT_TIMEOUT_VAR)
+        .and_then(|v| v.trim().parse::<u64>().ok())
+        .filter(|&s| s > 0)
+        .unwrap_or(DEFAULT_GIT_TIMEOUT_SECS);
+    let (tx, rx) = std::sync::mpsc::channel();
+    let (repo, private) = (opts.repo.clone(), opts.private);
+    let spawned = std::thread::Builder::new()
+        .name("runprint-git".into())
+        .spawn(move || {
+            let _ = tx.send(git::collect(&repo, private));
+        });
+    if spawned.is_err() {
+        return git::collect(&opts.repo, opts.private);
+    }
+    rx.recv_timeout(std::time::Duration::from_secs(secs))
+        .unwrap_or_else(|_| {
+            Err(format!(
+                "git: no answer from the repository at `{}` within {secs} s (a damaged object \
+                 can make the git library loop; `git fsck` checks the repository); git facts \
+                 not recorded",
+                opts.repo.display()
+            ))
+        })
+}
+
 /// Runs every collector and builds the manifest. Failures are recorded in `run.warnings`.
 pub fn stamp(opts: &StampOptions) -> Manifest {
     let mut warnings = Vec::new();
     let mut content = Content::default();
 
     let mut root = opts.repo.clone();
-    match git::collect(&opts.repo, opts.private) {
+    match collect_git_with_timeout(opts) {
         Ok(facts) => {
             content.git = facts.info;
             if let Some(w) = facts.workdir {
