@@ -10,7 +10,10 @@ use runprint::lockfile::Format;
 fn main() {
     for arg in std::env::args().skip(1) {
         let path = std::path::Path::new(&arg);
-        let name = path.file_name().and_then(|n| n.to_str()).unwrap_or_default();
+        let name = path
+            .file_name()
+            .and_then(|n| n.to_str())
+            .unwrap_or_default();
         let Some(format) = Format::detect(name) else {
             eprintln!("{arg}: not a lockfile runprint reads");
             continue;

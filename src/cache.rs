@@ -126,7 +126,7 @@ impl DigestCache {
             cache.dirty = true;
             return cache;
         }
-        match std::fs::read(&path) {
+        match crate::limits::read_regular_file(&path) {
             Ok(bytes) => match serde_json::from_slice::<CacheFile>(&bytes) {
                 Ok(f) if f.kind == CACHE_KIND && f.version == CACHE_VERSION => {
                     cache.entries = f.entries;

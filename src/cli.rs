@@ -33,7 +33,8 @@ const EXIT_CODES: &str = "Exit codes:
   3  verdict verify: results may shift slightly; rerun and compare metrics
   4  verdict retrain: results are expected to change
   2  bad input: unreadable or malformed manifest or policy (the file is named), bad
-     arguments, or a failed collector under --strict
+     arguments, a failed collector under `stamp --strict`, or a modified manifest under
+     `diff --strict`
 A policy file (runprint.toml at the repository root, or --policy) can set
 fail-on = \"retrain\" (verify exits 0) or \"never\" (every verdict exits 0); the verdict
 word in the report is unchanged.";
@@ -178,6 +179,10 @@ struct DiffArgs {
     /// or of the current folder's repository, when there is one).
     #[arg(long, value_name = "FILE")]
     policy: Option<PathBuf>,
+    /// Exit 2 when either manifest was modified after stamping (its fingerprint does not
+    /// match its content).
+    #[arg(long)]
+    strict: bool,
 }
 
 #[derive(Debug, clap::Args)]
@@ -257,7 +262,11 @@ pub fn main() -> ExitCode {
 }
 
 fn fail(message: impl std::fmt::Display) -> ExitCode {
-    eprintln!("error: {message}");
+    // Errors may quote a line of a file the user did not write; never echo a credential.
+    eprintln!(
+        "error: {}",
+        crate::redact::scrub_secrets(&message.to_string())
+    );
     ExitCode::from(EXIT_BAD_INPUT)
 }
 
@@ -392,6 +401,17 @@ fn run_diff(args: DiffArgs) -> ExitCode {
         Ok(p) => p,
         Err(e) => return fail(e),
     };
+    if args.strict {
+        for (path, m) in [(&args.old, &old), (&args.new, &new)] {
+            if m.is_modified() {
+                return fail(format!(
+                    "`{}` was modified after stamping (its fingerprint does not match its \
+                     content) and --strict was given",
+                    path.display()
+                ));
+            }
+        }
+    }
     let mut report = compare_with(
         &args.old.display().to_string(),
         &old,

@@ -107,8 +107,10 @@ pub struct DataInput {
     /// file changes it.
     pub sha256: String,
     /// Total size in bytes.
+    #[serde(deserialize_with = "toml_u64")]
     pub size: u64,
     /// Number of files.
+    #[serde(deserialize_with = "toml_u64")]
     pub files: u64,
     /// Per-file digests of a folder (omitted above [`DATA_ENTRY_LIMIT`] files), so that `diff`
     /// can name which files changed.
@@ -128,6 +130,7 @@ pub struct DataEntry {
     /// Hex SHA-256 of the content.
     pub sha256: String,
     /// Size in bytes.
+    #[serde(deserialize_with = "toml_u64")]
     pub size: u64,
 }
 
@@ -200,7 +203,7 @@ pub struct SystemInfo {
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub libc_version: Option<String>,
     /// Total physical memory in bytes.
-    #[serde(default)]
+    #[serde(default, deserialize_with = "toml_u64")]
     pub memory_bytes: u64,
 }
 
@@ -552,6 +555,21 @@ fn is_false(b: &bool) -> bool {
     !*b
 }
 
+/// The largest integer a manifest holds: TOML integers are signed 64-bit (TOML 1.0.0,
+/// "Integer"), so a larger value read from JSON could never be written back as TOML.
+pub const MAX_INTEGER: u64 = i64::MAX as u64;
+
+/// Reads a `u64` that TOML can represent, refusing larger values with a clear message.
+fn toml_u64<'de, D: serde::Deserializer<'de>>(d: D) -> Result<u64, D::Error> {
+    let n = u64::deserialize(d)?;
+    if n > MAX_INTEGER {
+        return Err(serde::de::Error::custom(format!(
+            "integer {n} is larger than a manifest holds (at most {MAX_INTEGER})"
+        )));
+    }
+    Ok(n)
+}
+
 /// Output format of a manifest.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum ManifestFormat {
@@ -614,6 +632,16 @@ impl Manifest {
     /// a leading `{`, anything else is read as TOML.
     pub fn parse(text: &str, path: &Path) -> Result<Manifest, ManifestError> {
         let text = text.strip_prefix('\u{feff}').unwrap_or(text);
+        if let Some((offset, c)) = crate::lockfile::find_control_character(text) {
+            return Err(ManifestError::Syntax {
+                path: path.to_path_buf(),
+                line: Some(crate::lockfile::line_of(text, offset)),
+                message: format!(
+                    "control character U+{:04X}: not a text file (binary or damaged?)",
+                    c as u32
+                ),
+            });
+        }
         let manifest: Manifest = if text.trim_start().starts_with('{') {
             serde_json::from_str(text).map_err(|e| ManifestError::Syntax {
                 path: path.to_path_buf(),
@@ -644,13 +672,19 @@ impl Manifest {
 
     /// Reads and parses a manifest file.
     pub fn load(path: &Path) -> Result<Manifest, ManifestError> {
-        let bytes = std::fs::read(path).map_err(|source| ManifestError::Read {
+        let bytes = crate::limits::read_named_file(path).map_err(|source| ManifestError::Read {
             path: path.to_path_buf(),
             source,
         })?;
         let text = String::from_utf8(bytes).map_err(|e| ManifestError::Syntax {
             path: path.to_path_buf(),
-            line: None,
+            line: Some(
+                e.as_bytes()[..e.utf8_error().valid_up_to()]
+                    .iter()
+                    .filter(|&&b| b == b'\n')
+                    .count()
+                    + 1,
+            ),
             message: format!(
                 "not UTF-8 text (invalid byte at offset {})",
                 e.utf8_error().valid_up_to()

@@ -65,12 +65,27 @@ const TOKEN_PREFIXES: &[&str] = &[
     "eyJ",
 ];
 
+/// Words after which an HTTP-style credential follows (`Authorization: Bearer …`).
+const AUTH_SCHEMES: &[&str] = &["bearer ", "basic ", "token "];
+
 /// True when a value looks like it carries a credential.
 pub fn looks_secret_value(value: &str) -> bool {
     if value.contains("-----BEGIN") || has_url_credentials(value) {
         return true;
     }
-    for word in value.split(|c: char| c.is_whitespace() || matches!(c, ',' | ';' | '"' | '\'')) {
+    let lower = value.to_ascii_lowercase();
+    if AUTH_SCHEMES.iter().any(|s| {
+        lower.starts_with(s) || lower.contains(&format!(" {s}")) || lower.contains(&format!(":{s}"))
+    }) {
+        return true;
+    }
+    // Path lists (`a:b`) and paths (`/x/ghp_…`) can hide a token in one element.
+    if value.split([':', '/', '@', '=']).any(has_token_prefix) {
+        return true;
+    }
+    for word in
+        value.split(|c: char| c.is_whitespace() || matches!(c, ',' | ';' | '"' | '\'' | ':'))
+    {
         let word = word.split_once('=').map_or(word, |(k, v)| {
             if k.starts_with('-') || k.chars().all(|c| c.is_ascii_alphanumeric() || c == '_') {
                 v
@@ -78,10 +93,7 @@ pub fn looks_secret_value(value: &str) -> bool {
                 word
             }
         });
-        if TOKEN_PREFIXES
-            .iter()
-            .any(|p| word.starts_with(p) && word.len() >= p.len() + 12)
-        {
+        if has_token_prefix(word) {
             return true;
         }
         if is_random_looking(word) {
@@ -93,14 +105,22 @@ pub fn looks_secret_value(value: &str) -> bool {
             return true;
         }
     }
-    let lower = value.to_ascii_lowercase();
     lower.contains("password=")
         || lower.contains("accountkey=")
         || lower.contains("sharedaccesssignature")
 }
 
-/// A run of at least 32 characters from the base64/hex alphabets that mixes letters and digits
-/// and is not a path: the shape of generated keys.
+/// True when a word starts with a well-known token prefix and is long enough to be a token.
+fn has_token_prefix(word: &str) -> bool {
+    let word = word.trim_matches(|c: char| matches!(c, '"' | '\'' | '`' | '(' | ')' | '[' | ']'));
+    TOKEN_PREFIXES
+        .iter()
+        .any(|p| word.starts_with(p) && word.len() >= p.len() + 12)
+}
+
+/// A run of at least 32 characters from the base64/hex alphabets that is not a path and mixes
+/// letters and digits (hex keys) or upper case, lower case and a digit (base64 keys): the shape
+/// of generated keys.
 fn is_random_looking(word: &str) -> bool {
     let run = word.trim_matches(|c: char| !c.is_ascii_alphanumeric());
     if run.len() < 32 || run.contains('/') && run.matches('/').count() > 2 {
@@ -111,7 +131,120 @@ fn is_random_looking(word: &str) -> bool {
         .all(|c| c.is_ascii_alphanumeric() || matches!(c, '+' | '/' | '=' | '_'));
     let digits = run.chars().filter(|c| c.is_ascii_digit()).count();
     let letters = run.chars().filter(|c| c.is_ascii_alphabetic()).count();
-    alphabet && digits >= 4 && letters >= 4
+    let upper = run.chars().any(|c| c.is_ascii_uppercase());
+    let lower = run.chars().any(|c| c.is_ascii_lowercase());
+    alphabet && ((digits >= 4 && letters >= 4) || (digits >= 1 && upper && lower))
+}
+
+/// Query-parameter and connection-string keys whose value is a credential (lower-cased
+/// substring match; common practice: signed-URL and connection-string conventions).
+const SECRET_PARAM_WORDS: &[&str] = &[
+    "token",
+    "secret",
+    "password",
+    "passwd",
+    "pwd",
+    "sig",
+    "key",
+    "auth",
+    "credential",
+];
+
+/// True when a `name=value` key names a credential.
+fn is_secret_param(name: &str) -> bool {
+    let lower = name.trim().to_ascii_lowercase();
+    !lower.is_empty() && SECRET_PARAM_WORDS.iter().any(|w| lower.contains(w))
+}
+
+/// Replaces the value of every `?name=`, `&name=` or `;name=` pair whose name marks a
+/// credential (`?access_token=…`, `&sig=…`, `;Password=…`) by `REDACTED`.
+fn scrub_secret_params(text: &str) -> String {
+    let mut out = String::with_capacity(text.len());
+    let mut rest = text;
+    while let Some(pos) = rest.find(['?', '&', ';']) {
+        let (head, tail) = rest.split_at(pos + 1);
+        out.push_str(head);
+        let name_end = tail
+            .find(|c: char| c == '=' || matches!(c, '?' | '&' | ';' | '#') || c.is_whitespace())
+            .unwrap_or(tail.len());
+        if tail[name_end..].starts_with('=') && is_secret_param(&tail[..name_end]) {
+            out.push_str(&tail[..=name_end]);
+            let value = &tail[name_end + 1..];
+            let value_end = value
+                .find(|c: char| {
+                    matches!(c, '&' | ';' | '#' | '"' | '\'' | '`') || c.is_whitespace()
+                })
+                .unwrap_or(value.len());
+            if value_end > 0 {
+                out.push_str("REDACTED");
+            }
+            rest = &value[value_end..];
+        } else {
+            rest = tail;
+        }
+    }
+    out.push_str(rest);
+    out
+}
+
+/// Removes everything that looks like a credential from free text (warnings and error
+/// messages, which may quote a line of a file): credentials in URLs, secret query parameters,
+/// private-key blocks, and words that look like tokens or generated keys (git object ids and
+/// SHA-256 digests, plain lower-case hex, are kept).
+pub fn scrub_secrets(text: &str) -> String {
+    let mut text = scrub_url_credentials(text);
+    while let Some(start) = text.find("-----BEGIN") {
+        let end = text[start..]
+            .find("-----END")
+            .and_then(|e| {
+                let after = start + e + "-----END".len();
+                text[after..].find("-----").map(|t| after + t + 5)
+            })
+            .unwrap_or(text.len());
+        text.replace_range(start..end, "[redacted private key]");
+    }
+    let mut out = String::with_capacity(text.len());
+    let mut word = String::new();
+    let flush = |word: &mut String, out: &mut String| {
+        let is_hex_digest = |w: &str| {
+            let w = w.trim_matches(|c: char| !c.is_ascii_alphanumeric());
+            let w = w.strip_prefix("sha256").unwrap_or(w);
+            w.chars()
+                .all(|c| c.is_ascii_digit() || ('a'..='f').contains(&c))
+        };
+        let secret = word.split([':', '/', '@', '=', ',', ';']).any(|part| {
+            has_token_prefix(part) || (is_random_looking(part) && !is_hex_digest(part))
+        });
+        if secret {
+            out.push_str("[redacted]");
+        } else {
+            out.push_str(word);
+        }
+        word.clear();
+    };
+    for c in text.chars() {
+        if c.is_whitespace() || matches!(c, '`' | '"' | '\'') {
+            flush(&mut word, &mut out);
+            out.push(c);
+        } else {
+            word.push(c);
+        }
+    }
+    flush(&mut word, &mut out);
+    let lower = out.to_ascii_lowercase();
+    // `Bearer TOKEN`: the word after an authorization scheme.
+    if let Some(pos) = ["bearer ", "basic "]
+        .iter()
+        .find_map(|s| lower.find(s).map(|p| p + s.len()))
+    {
+        let end = out[pos..]
+            .find(|c: char| c.is_whitespace() || matches!(c, '`' | '"' | '\''))
+            .map_or(out.len(), |e| pos + e);
+        if end > pos {
+            out.replace_range(pos..end, "[redacted]");
+        }
+    }
+    out
 }
 
 /// True when the text contains `scheme://user:password@` or `scheme://token@`.
@@ -119,9 +252,15 @@ pub fn has_url_credentials(text: &str) -> bool {
     scrub_url_credentials(text) != text
 }
 
-/// Removes the user-information part (`user:password@`) of every URL in a text. An
+/// Removes the user-information part (`user:password@`) of every URL in a text, and the value
+/// of every query parameter whose name marks a credential (`?access_token=`, `&sig=`). An
 /// `ssh://git@host` style user without a password is kept, as it is no secret.
 pub fn scrub_url_credentials(text: &str) -> String {
+    scrub_secret_params(&scrub_userinfo(text))
+}
+
+/// Removes `user:password@` from every URL in a text.
+fn scrub_userinfo(text: &str) -> String {
     let mut out = String::with_capacity(text.len());
     let mut rest = text;
     while let Some(pos) = rest.find("://") {

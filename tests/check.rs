@@ -139,7 +139,11 @@ fn a_branch_with_a_numpy_bump_is_retrain_without_touching_the_work_tree() {
         .find(|c| c.subject == "commit")
         .unwrap();
     assert_eq!(commit.impact, "none", "{}", commit.reason);
-    assert!(commit.reason.contains("requirements.txt"), "{}", commit.reason);
+    assert!(
+        commit.reason.contains("requirements.txt"),
+        "{}",
+        commit.reason
+    );
     // Reference: git names the same commit, and nothing was checked out.
     assert!(
         report.new.path.contains(&bumped[..12]),

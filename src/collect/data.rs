@@ -67,6 +67,14 @@ pub fn collect(
                 continue;
             }
         };
+        if !meta.is_dir() && !meta.is_file() {
+            // A FIFO would block the stamp forever and a device could stream without end.
+            warnings.push(format!(
+                "data `{}`: not a regular file or folder; not read",
+                path.display()
+            ));
+            continue;
+        }
         let index = inputs.len();
         if meta.is_dir() {
             inputs.push((shown, true));

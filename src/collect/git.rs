@@ -114,6 +114,9 @@ pub fn collect(dir: &Path, private: bool) -> Result<GitFacts, String> {
 
 /// One changed path of the work tree.
 struct StatusEntry {
+    /// The path as git stores it (bytes; a name need not be UTF-8).
+    raw: Vec<u8>,
+    /// The path for the manifest (invalid UTF-8 replaced).
     path: String,
     /// Deleted from the work tree.
     deleted: bool,
@@ -149,9 +152,11 @@ fn status_with_git_cli(root: &Path) -> Option<Vec<StatusEntry>> {
     let mut entries = Vec::new();
     for record in out.stdout.split(|&b| b == 0).filter(|r| r.len() > 3) {
         let (x, y) = (record[0], record[1]);
-        let path = String::from_utf8_lossy(&record[3..]).into_owned();
-        let abs = root.join(&path);
+        let raw = record[3..].to_vec();
+        let path = String::from_utf8_lossy(&raw).into_owned();
+        let abs = root.join(path_from_bytes(&raw));
         entries.push(StatusEntry {
+            raw,
             deleted: y == b'D' || (x == b'D' && !abs.exists()),
             untracked: x == b'?',
             path,
@@ -172,18 +177,20 @@ fn status_with_libgit2(repo: &Repository, root: &Path) -> Result<Vec<StatusEntry
     Ok(statuses
         .iter()
         .filter(|e| e.status() != Status::CURRENT && !e.status().contains(Status::IGNORED))
-        .filter_map(|e| {
+        .map(|e| {
             let status = e.status();
-            let path = e.path()?.to_string();
-            let abs = root.join(&path);
-            Some(StatusEntry {
+            let raw = e.path_bytes().to_vec();
+            let path = String::from_utf8_lossy(&raw).into_owned();
+            let abs = root.join(path_from_bytes(&raw));
+            StatusEntry {
+                raw,
                 deleted: status.intersects(Status::WT_DELETED)
                     || (status.intersects(Status::INDEX_DELETED) && !abs.exists()),
                 untracked: status.intersects(Status::WT_NEW)
                     && !status.intersects(Status::INDEX_NEW),
                 path,
                 abs,
-            })
+            }
         })
         .collect())
 }
@@ -202,8 +209,8 @@ fn tracked_files(repo: &Repository) -> Option<Vec<String>> {
 
 /// Changed paths (tracked changes and untracked, not-ignored files) and the digest over them.
 fn uncommitted_change(mut entries: Vec<StatusEntry>) -> (Vec<String>, Option<String>) {
-    entries.sort_by(|a, b| a.path.cmp(&b.path));
-    entries.dedup_by(|a, b| a.path == b.path);
+    entries.sort_by(|a, b| a.raw.cmp(&b.raw));
+    entries.dedup_by(|a, b| a.raw == b.raw);
     if entries.is_empty() {
         return (Vec::new(), None);
     }
@@ -223,13 +230,26 @@ fn uncommitted_change(mut entries: Vec<StatusEntry>) -> (Vec<String>, Option<Str
     };
     let mut digest = Sha256::new();
     for (e, state) in entries.iter().zip(&states) {
-        digest.update(e.path.as_bytes());
+        digest.update(&e.raw);
         digest.update([0]);
         digest.update(state.as_bytes());
         digest.update(b"\n");
     }
     let paths = entries.into_iter().map(|e| e.path).collect();
     (paths, Some(format!("sha256:{}", hex(&digest.finalize()))))
+}
+
+/// A path as git stores it (bytes) in the platform's form.
+fn path_from_bytes(bytes: &[u8]) -> PathBuf {
+    #[cfg(unix)]
+    {
+        use std::os::unix::ffi::OsStrExt;
+        PathBuf::from(std::ffi::OsStr::from_bytes(bytes))
+    }
+    #[cfg(not(unix))]
+    {
+        PathBuf::from(String::from_utf8_lossy(bytes).into_owned())
+    }
 }
 
 /// SHA-256 of a work-tree file's content (a symbolic link's target, a folder's marker).
@@ -245,6 +265,10 @@ fn content_digest(path: &Path) -> String {
     if meta.is_dir() {
         // A submodule or nested repository: its own commit is recorded elsewhere.
         return "dir".into();
+    }
+    if !meta.is_file() {
+        // A FIFO would block the open; a socket or device has no content to hash.
+        return "special".into();
     }
     let mut hasher = Sha256::new();
     let Ok(mut file) = std::fs::File::open(path) else {

@@ -165,32 +165,44 @@ fn read_one(
         ));
         return None;
     };
-    let bytes = match std::fs::read(abs) {
+    let bytes = match crate::limits::read_regular_file(abs) {
         Ok(b) => b,
         Err(e) => {
             warnings.push(format!("lockfile `{shown}`: cannot read: {e}"));
             return None;
         }
     };
-    let text = match std::str::from_utf8(&bytes) {
+    let text = match crate::lockfile::decode(&bytes, shown) {
         Ok(t) => t,
         Err(e) => {
-            warnings.push(format!(
-                "lockfile `{shown}`: not UTF-8 text (invalid byte at offset {})",
-                e.valid_up_to()
-            ));
+            warnings.push(format!("lockfile {e}"));
             return None;
         }
     };
     // A companion file (go.sum beside go.mod) is read with it; its hashes reach the packages.
     let companion = format.companion().and_then(|name| {
         let path = abs.with_file_name(name);
-        let text = std::fs::read_to_string(&path).ok()?;
         let shown = match shown.rsplit_once('/') {
             Some((dir, _)) => format!("{dir}/{name}"),
             None => name.to_string(),
         };
-        Some((text, shown))
+        if std::fs::symlink_metadata(&path).is_err() {
+            return None;
+        }
+        let bytes = match crate::limits::read_regular_file(&path) {
+            Ok(b) => b,
+            Err(e) => {
+                warnings.push(format!("lockfile `{shown}`: cannot read: {e}"));
+                return None;
+            }
+        };
+        match crate::lockfile::decode(&bytes, &shown) {
+            Ok(text) => Some((text.to_string(), shown)),
+            Err(e) => {
+                warnings.push(format!("lockfile {e}"));
+                None
+            }
+        }
     });
     let mut parsed = match format.parse_with_companion(
         text,
@@ -247,9 +259,12 @@ fn merge_includes(root: &Path, file: &Path, parsed: &mut Parsed, warnings: &mut 
             continue;
         }
         let target = from.parent().unwrap_or(Path::new(".")).join(&inc.target);
-        let loaded = target
-            .canonicalize()
-            .and_then(|c| std::fs::read_to_string(&c).map(|text| (text, c)));
+        let loaded = target.canonicalize().and_then(|c| {
+            let bytes = crate::limits::read_regular_file(&c)?;
+            let text = crate::lockfile::decode(&bytes, &inc.target)
+                .map_err(|e| std::io::Error::new(std::io::ErrorKind::InvalidData, e.message))?;
+            Ok((text.to_string(), c))
+        });
         let (text, canonical) = match loaded {
             Ok(v) => v,
             Err(e) => {

@@ -23,7 +23,7 @@ use std::collections::BTreeMap;
 use std::path::PathBuf;
 
 use crate::manifest::{Content, Manifest, RunInfo};
-use crate::redact::scrub_url_credentials;
+use crate::redact::scrub_secrets;
 
 /// What to stamp and how.
 #[derive(Debug, Clone)]
@@ -72,6 +72,44 @@ impl StampOptions {
             keep_patch: None,
         }
     }
+}
+
+/// The environment variable that sets, in seconds, how long the git collector may take.
+pub const GIT_TIMEOUT_VAR: &str = "RUNPRINT_GIT_TIMEOUT_SECS";
+
+/// Default for [`GIT_TIMEOUT_VAR`]: far longer than the status of a large repository takes.
+pub const DEFAULT_GIT_TIMEOUT_SECS: u64 = 120;
+
+/// Runs the git collector on a watchdog thread. libgit2 can loop forever on a damaged
+/// repository (a truncated loose object makes its zlib reader spin, see
+/// `tests/fs_traps.rs`), and a stamp must never hang the job it records: after the timeout the
+/// git section is left empty with a warning, and the stuck thread ends with the process.
+fn collect_git_with_timeout(opts: &StampOptions) -> Result<git::GitFacts, String> {
+    let secs = opts
+        .env
+        .get(GIT_TIMEOUT_VAR)
+        .and_then(|v| v.trim().parse::<u64>().ok())
+        .filter(|&s| s > 0)
+        .unwrap_or(DEFAULT_GIT_TIMEOUT_SECS);
+    let (tx, rx) = std::sync::mpsc::channel();
+    let (repo, private) = (opts.repo.clone(), opts.private);
+    let spawned = std::thread::Builder::new()
+        .name("runprint-git".into())
+        .spawn(move || {
+            let _ = tx.send(git::collect(&repo, private));
+        });
+    if spawned.is_err() {
+        return git::collect(&opts.repo, opts.private);
+    }
+    rx.recv_timeout(std::time::Duration::from_secs(secs))
+        .unwrap_or_else(|_| {
+            Err(format!(
+                "git: no answer from the repository at `{}` within {secs} s (a damaged object \
+                 can make the git library loop; `git fsck` checks the repository); git facts \
+                 not recorded",
+                opts.repo.display()
+            ))
+        })
 }
 
 /// The numerical stack: Python environments, native libraries, GPU. With `RUNPRINT_TIMINGS`
@@ -149,7 +187,7 @@ pub fn stamp(opts: &StampOptions) -> Manifest {
         ((data, data_warnings), (stack, stack_warnings)),
     ) = rayon::join(
         || {
-            let git_result = timed(t, "git", || git::collect(&opts.repo, opts.private));
+            let git_result = timed(t, "git", || collect_git_with_timeout(opts));
             let (root, listed) = match &git_result {
                 Ok(facts) => (
                     facts.workdir.clone().unwrap_or_else(|| opts.repo.clone()),
@@ -215,6 +253,12 @@ pub fn stamp(opts: &StampOptions) -> Manifest {
     warnings.extend(lock_warnings);
     warnings.extend(data_warnings);
     warnings.extend(stack_warnings);
+    if opts.private {
+        let user = ["USER", "LOGNAME", "USERNAME"]
+            .iter()
+            .find_map(|k| opts.env.get(*k).filter(|v| !v.is_empty()));
+        crate::privacy::apply(&mut content, &mut warnings, user.map(String::as_str));
+    }
 
     let run = RunInfo {
         tool_version: env!("CARGO_PKG_VERSION").to_string(),
@@ -225,7 +269,7 @@ pub fn stamp(opts: &StampOptions) -> Manifest {
         } else {
             system::hostname()
         },
-        warnings: warnings.iter().map(|w| scrub_url_credentials(w)).collect(),
+        warnings: warnings.iter().map(|w| scrub_secrets(w)).collect(),
     };
     Manifest::new(run, content)
 }

@@ -143,6 +143,12 @@ impl Format {
 
     /// Parses a file of this format.
     pub fn parse(self, text: &str, path: &str) -> Result<Parsed, LockfileError> {
+        if matches!(
+            self,
+            Format::PnpmLock | Format::YarnLock | Format::CondaEnvironment
+        ) {
+            support::check_yaml_depth(text, path)?;
+        }
         match self {
             Format::CargoLock => cargo::parse(text, path),
             Format::Requirements => requirements::parse(text, path),
@@ -185,6 +191,42 @@ impl Format {
             _ => self.parse(text, path),
         }
     }
+}
+
+/// A lockfile's bytes as text: UTF-8, with a leading byte-order mark dropped (editors on
+/// Windows add one; every format here is UTF-8 and none gives the mark a meaning). Anything
+/// else is an error naming the file and the line of the first invalid byte.
+pub fn decode<'a>(bytes: &'a [u8], path: &str) -> Result<&'a str, LockfileError> {
+    let bytes = bytes.strip_prefix(b"\xef\xbb\xbf").unwrap_or(bytes);
+    let text = std::str::from_utf8(bytes).map_err(|e| {
+        let valid = e.valid_up_to();
+        let line = bytes[..valid].iter().filter(|&&b| b == b'\n').count() + 1;
+        LockfileError::at(
+            path,
+            Some(line),
+            format!("not UTF-8 text (invalid byte at offset {valid})"),
+        )
+    })?;
+    match find_control_character(text) {
+        Some((offset, c)) => Err(LockfileError::at(
+            path,
+            Some(line_of(text, offset)),
+            format!(
+                "control character U+{:04X} at offset {offset}: not a text file (binary or damaged?)",
+                c as u32
+            ),
+        )),
+        None => Ok(text),
+    }
+}
+
+/// The first C0 control character other than tab, line feed, carriage return and form feed,
+/// with its byte offset. None of the formats read here allows one outside escapes: TOML 1.0.0
+/// ("Control characters other than tab are not permitted"), RFC 8259 section 7 for JSON
+/// strings, YAML 1.2 section 5.1 (printable characters only), and the PEP 508 grammar.
+pub fn find_control_character(text: &str) -> Option<(usize, char)> {
+    text.char_indices()
+        .find(|&(_, c)| c < ' ' && !matches!(c, '\t' | '\n' | '\r' | '\x0c'))
 }
 
 /// 1-based line number of a byte offset.

@@ -133,8 +133,10 @@ fn logical_lines(text: &str) -> Vec<(usize, String)> {
     let mut out = Vec::new();
     let mut current = String::new();
     let mut start = 0;
+    // pip splits with Python's `str.splitlines`, so a lone `\r` (old Mac line endings) ends a
+    // line too (pip's `req_file.py`, from memory).
+    let text = text.replace("\r\n", "\n").replace('\r', "\n");
     for (i, raw) in text.lines().enumerate() {
-        let raw = raw.strip_suffix('\r').unwrap_or(raw);
         if current.is_empty() {
             start = i + 1;
         }

@@ -35,6 +35,64 @@ fn strip_position(message: &str) -> &str {
     }
 }
 
+/// The deepest flow nesting (`[`, `{`) a YAML lockfile may have. Real lockfiles nest a few
+/// levels; the YAML parser slows down sharply on deep flow nesting (100,000 levels take over a
+/// minute), so deeper input is refused before it reaches the parser.
+pub(crate) const MAX_YAML_FLOW_DEPTH: usize = 256;
+
+/// Refuses YAML whose flow collections nest deeper than [`MAX_YAML_FLOW_DEPTH`]. Brackets
+/// inside quoted scalars and comments are not counted; a bracket inside a plain scalar is, which
+/// can only over-count and never lets deep input through.
+pub(crate) fn check_yaml_depth(text: &str, path: &str) -> Result<(), LockfileError> {
+    let mut depth = 0usize;
+    let mut line = 1;
+    let mut quote: Option<char> = None;
+    let mut prev = '\n';
+    let mut chars = text.chars().peekable();
+    while let Some(c) = chars.next() {
+        if c == '\n' {
+            line += 1;
+        }
+        match quote {
+            Some('"') if c == '\\' => {
+                chars.next();
+            }
+            Some('\'') if c == '\'' && chars.peek() == Some(&'\'') => {
+                chars.next();
+            }
+            Some(q) if c == q => quote = None,
+            Some(_) => {}
+            None => match c {
+                '"' | '\'' => quote = Some(c),
+                '#' if prev.is_whitespace() => {
+                    for n in chars.by_ref() {
+                        if n == '\n' {
+                            line += 1;
+                            break;
+                        }
+                    }
+                }
+                '[' | '{' => {
+                    depth += 1;
+                    if depth > MAX_YAML_FLOW_DEPTH {
+                        return Err(LockfileError::at(
+                            path,
+                            Some(line),
+                            format!(
+                                "YAML nested more than {MAX_YAML_FLOW_DEPTH} levels deep; not a lockfile"
+                            ),
+                        ));
+                    }
+                }
+                ']' | '}' => depth = depth.saturating_sub(1),
+                _ => {}
+            },
+        }
+        prev = c;
+    }
+    Ok(())
+}
+
 /// The hashes of an SRI `integrity` value, kept as written (`sha512-…`, `sha1-…`). The field may
 /// hold several space-separated hashes (W3C Subresource Integrity, section 3.5).
 pub(crate) fn sri_hashes(integrity: Option<&str>) -> Vec<String> {
