@@ -218,18 +218,13 @@ fn read_lockfile(
         let bytes = blob_bytes(repo, tree, &companion_path)?;
         Some((String::from_utf8(bytes).ok()?, companion_path))
     });
-    let mut parsed = match format.parse_with_companion(
+    let mut parsed = crate::lockfile::parse_or_warn(
+        format,
         text,
         path,
         companion.as_ref().map(|(t, p)| (t.as_str(), p.as_str())),
-    ) {
-        Ok(p) => p,
-        Err(e) => {
-            warnings.push(format!("lockfile {e}"));
-            return None;
-        }
-    };
-    warnings.append(&mut parsed.warnings);
+        warnings,
+    )?;
     if !parsed.includes.is_empty() {
         merge_includes(repo, tree, path, &mut parsed, warnings);
     }

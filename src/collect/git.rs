@@ -320,6 +320,16 @@ pub fn workdir(dir: &Path) -> Option<PathBuf> {
         .and_then(|r| r.workdir().map(Path::to_path_buf))
 }
 
+/// The diff between the trees of two commits, or `None` when either is not in `repo`.
+fn tree_diff<'r>(repo: &'r Repository, old: &str, new: &str) -> Option<git2::Diff<'r>> {
+    let tree = |id: &str| -> Option<git2::Tree<'r>> {
+        let oid = git2::Oid::from_str(id).ok()?;
+        repo.find_commit(oid).ok()?.tree().ok()
+    };
+    let (a, b) = (tree(old)?, tree(new)?);
+    repo.diff_tree_to_tree(Some(&a), Some(&b), None).ok()
+}
+
 /// One file changed between two commits, with its line counts (0 for binary files).
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct FileStat {
@@ -336,12 +346,7 @@ pub struct FileStat {
 /// when either commit is not in that repository.
 pub fn diff_stats_between(dir: &Path, old: &str, new: &str) -> Option<Vec<FileStat>> {
     let repo = Repository::discover(dir).ok()?;
-    let tree = |id: &str| -> Option<git2::Tree<'_>> {
-        let oid = git2::Oid::from_str(id).ok()?;
-        repo.find_commit(oid).ok()?.tree().ok()
-    };
-    let (a, b) = (tree(old)?, tree(new)?);
-    let diff = repo.diff_tree_to_tree(Some(&a), Some(&b), None).ok()?;
+    let diff = tree_diff(&repo, old, new)?;
     let mut out = Vec::new();
     for (i, delta) in diff.deltas().enumerate() {
         let Some(path) = delta.new_file().path().or(delta.old_file().path()) else {
@@ -366,12 +371,7 @@ pub fn diff_stats_between(dir: &Path, old: &str, new: &str) -> Option<Vec<FileSt
 /// either commit is not in that repository (a shallow clone, another repository).
 pub fn changed_between(dir: &Path, old: &str, new: &str) -> Option<Vec<String>> {
     let repo = Repository::discover(dir).ok()?;
-    let tree = |id: &str| -> Option<git2::Tree<'_>> {
-        let oid = git2::Oid::from_str(id).ok()?;
-        repo.find_commit(oid).ok()?.tree().ok()
-    };
-    let (a, b) = (tree(old)?, tree(new)?);
-    let diff = repo.diff_tree_to_tree(Some(&a), Some(&b), None).ok()?;
+    let diff = tree_diff(&repo, old, new)?;
     let mut paths: Vec<String> = diff
         .deltas()
         .flat_map(|d| [d.old_file().path(), d.new_file().path()])

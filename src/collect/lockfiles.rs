@@ -204,18 +204,13 @@ fn read_one(
             }
         }
     });
-    let mut parsed = match format.parse_with_companion(
+    let mut parsed = crate::lockfile::parse_or_warn(
+        format,
         text,
         shown,
         companion.as_ref().map(|(t, p)| (t.as_str(), p.as_str())),
-    ) {
-        Ok(p) => p,
-        Err(e) => {
-            warnings.push(format!("lockfile {e}"));
-            return None;
-        }
-    };
-    warnings.append(&mut parsed.warnings);
+        warnings,
+    )?;
     if !parsed.includes.is_empty() {
         merge_includes(ctx.root, abs, &mut parsed, warnings);
     }

@@ -229,6 +229,27 @@ pub fn find_control_character(text: &str) -> Option<(usize, char)> {
         .find(|&(_, c)| c < ' ' && !matches!(c, '\t' | '\n' | '\r' | '\x0c'))
 }
 
+/// Parses a lockfile for a collector: a parse error and the parser's own warnings go to
+/// `warnings` (a broken lockfile never stops a stamp), and `None` stands for a file left out.
+pub fn parse_or_warn(
+    format: Format,
+    text: &str,
+    path: &str,
+    companion: Option<(&str, &str)>,
+    warnings: &mut Vec<String>,
+) -> Option<Parsed> {
+    match format.parse_with_companion(text, path, companion) {
+        Ok(mut parsed) => {
+            warnings.append(&mut parsed.warnings);
+            Some(parsed)
+        }
+        Err(e) => {
+            warnings.push(format!("lockfile {e}"));
+            None
+        }
+    }
+}
+
 /// 1-based line number of a byte offset.
 pub fn line_of(text: &str, offset: usize) -> usize {
     let offset = offset.min(text.len());
