@@ -113,17 +113,12 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
             .into_iter()
             .find_map(|(kind, url)| url.as_ref().map(|u| (kind, u)));
         let source = if let Some((kind, url)) = vcs {
-            let rev = p
-                .reference
-                .as_deref()
-                .map(|r| format!("?rev={r}"))
-                .unwrap_or_default();
-            let commit = p
-                .revision
-                .as_deref()
-                .map(|c| format!("#{c}"))
-                .unwrap_or_default();
-            Some(format!("{kind}+{url}{rev}{commit}"))
+            Some(super::python::vcs_source(
+                kind,
+                url,
+                p.reference.as_deref(),
+                p.revision.as_deref(),
+            ))
         } else if let Some(local) = &p.path {
             Some(format!("path+{local}"))
         } else {

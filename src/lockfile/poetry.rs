@@ -151,19 +151,12 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
 fn source_string(s: &TomlSource) -> String {
     let url = s.url.as_deref().unwrap_or("");
     match s.kind.as_str() {
-        "git" => {
-            let rev = s
-                .reference
-                .as_deref()
-                .map(|r| format!("?rev={r}"))
-                .unwrap_or_default();
-            let commit = s
-                .resolved_reference
-                .as_deref()
-                .map(|c| format!("#{c}"))
-                .unwrap_or_default();
-            format!("git+{url}{rev}{commit}")
-        }
+        "git" => super::python::vcs_source(
+            "git",
+            url,
+            s.reference.as_deref(),
+            s.resolved_reference.as_deref(),
+        ),
         "url" => url.to_string(),
         "directory" | "file" => format!("{}+{url}", s.kind),
         // `legacy`, `explicit`, `supplemental`, `primary`: a named package index.

@@ -120,12 +120,12 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
         tidy_hashes(&mut hashes);
         let source = if let Some(vcs) = &p.vcs {
             let location = vcs.url.as_deref().or(vcs.path.as_deref()).unwrap_or("");
-            let rev = vcs
-                .requested_revision
-                .as_deref()
-                .map(|r| format!("?rev={r}"))
-                .unwrap_or_default();
-            Some(format!("{}+{location}{rev}#{}", vcs.kind, vcs.commit_id))
+            Some(super::python::vcs_source(
+                &vcs.kind,
+                location,
+                vcs.requested_revision.as_deref(),
+                Some(&vcs.commit_id),
+            ))
         } else if let Some(dir) = &p.directory {
             let kind = if dir.editable {
                 "editable"

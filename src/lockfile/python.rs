@@ -91,6 +91,19 @@ pub(crate) fn any_of_markers(markers: &[String]) -> Option<String> {
 
 /// The order every parser returns: name, version, source, then platform; exact duplicates
 /// (the same entry written twice, as pdm does once per extras set) are dropped.
+/// A version-control source in the manifest's notation: `KIND+URL?rev=REQUESTED#COMMIT`, each
+/// of the two suffixes present only when the lockfile records it.
+pub(crate) fn vcs_source(
+    kind: &str,
+    url: &str,
+    requested: Option<&str>,
+    commit: Option<&str>,
+) -> String {
+    let rev = requested.map(|r| format!("?rev={r}")).unwrap_or_default();
+    let commit = commit.map(|c| format!("#{c}")).unwrap_or_default();
+    format!("{kind}+{url}{rev}{commit}")
+}
+
 pub(crate) fn sort_packages(packages: &mut Vec<Package>) {
     packages.sort_by(|a, b| {
         (&a.name, &a.version, &a.source, &a.platform).cmp(&(
