@@ -120,10 +120,7 @@ fn shown_path(path: &Path, root: &Path, private: bool) -> String {
     }
     let given = path.to_string_lossy().into_owned();
     if private && path.is_absolute() {
-        format!(
-            "private:sha256:{}",
-            &hex(&Sha256::digest(given.as_bytes()))[..16]
-        )
+        crate::privacy::digest(&given)
     } else {
         given
     }

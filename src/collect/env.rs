@@ -6,7 +6,7 @@
 
 use std::collections::BTreeMap;
 
-use crate::manifest::{hex, EnvInfo};
+use crate::manifest::EnvInfo;
 use crate::redact::{is_secret_name, looks_secret_value, scrub_url_credentials};
 
 /// Prefixes of variables read by OpenMP runtimes, BLAS libraries, the CUDA/ROCm stacks and the
@@ -86,11 +86,7 @@ pub fn collect(vars: &BTreeMap<String, String>, private: bool) -> EnvInfo {
         }
         let value = scrub_url_credentials(value);
         let value = if private && value.contains('/') {
-            use sha2::Digest;
-            format!(
-                "private:sha256:{}",
-                &hex(&sha2::Sha256::digest(value.as_bytes()))[..16]
-            )
+            crate::privacy::digest(&value)
         } else {
             value
         };

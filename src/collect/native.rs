@@ -16,7 +16,7 @@
 use std::collections::{BTreeMap, BTreeSet};
 use std::path::{Path, PathBuf};
 
-use crate::collect::python::{private_path, PythonScan};
+use crate::collect::python::PythonScan;
 use crate::manifest::{FastMathModule, NativeInfo, NativeLibrary};
 use crate::stack::blas::{self, Role};
 use crate::stack::elf::{is_elf, is_fast_math_constructor, ElfFile};
@@ -280,7 +280,7 @@ fn system_path(p: &Path, private: bool) -> String {
         .iter()
         .any(|r| s.starts_with(r));
     if private && !public {
-        private_path(&s)
+        crate::privacy::digest(&s)
     } else {
         s
     }

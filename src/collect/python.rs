@@ -394,15 +394,6 @@ fn with_pth_paths(sites: Vec<PathBuf>) -> Vec<PathBuf> {
     out
 }
 
-/// Short stable digest of a path, for `--private`.
-pub fn private_path(p: &str) -> String {
-    use sha2::Digest;
-    format!(
-        "private:sha256:{}",
-        &crate::manifest::hex(&sha2::Sha256::digest(p.as_bytes()))[..16]
-    )
-}
-
 /// Reads one distribution's metadata folder (or `*.egg-info` file).
 fn read_distribution(
     site: &Path,
@@ -453,7 +444,7 @@ fn read_distribution(
                 Ok(u) => {
                     d.editable = u.editable;
                     d.source = Some(if private && u.is_local {
-                        private_path(&u.source)
+                        crate::privacy::digest(&u.source)
                     } else {
                         scrub_url_credentials(&u.source)
                     });
@@ -577,7 +568,7 @@ pub fn collect(
     let show = |p: &Path| {
         let s = p.display().to_string();
         if private {
-            private_path(&s)
+            crate::privacy::digest(&s)
         } else {
             s
         }
