@@ -366,19 +366,3 @@ pub fn diff_stats_between(dir: &Path, old: &str, new: &str) -> Option<Vec<FileSt
     out.sort_by(|x, y| x.path.cmp(&y.path));
     Some(out)
 }
-
-/// Paths changed between two commits of the repository that contains `dir`, or `None` when
-/// either commit is not in that repository (a shallow clone, another repository).
-pub fn changed_between(dir: &Path, old: &str, new: &str) -> Option<Vec<String>> {
-    let repo = Repository::discover(dir).ok()?;
-    let diff = tree_diff(&repo, old, new)?;
-    let mut paths: Vec<String> = diff
-        .deltas()
-        .flat_map(|d| [d.old_file().path(), d.new_file().path()])
-        .flatten()
-        .map(|p| p.to_string_lossy().into_owned())
-        .collect();
-    paths.sort();
-    paths.dedup();
-    Some(paths)
-}
