@@ -6,6 +6,10 @@ mod common;
 use std::path::Path;
 
 use common::{git, repo_with, runprint, stamp_to, write_files};
+
+fn diff_json(old: &Path, new: &Path, cwd: &Path, extra: &[&str]) -> (i32, JsonReport) {
+    common::diff_json(old, new, cwd, extra)
+}
 use serde::Deserialize;
 
 /// The JSON contract relied on by users' scripts, declared independently of the library's
@@ -27,21 +31,6 @@ struct JsonChange {
 #[derive(Debug, Deserialize)]
 struct JsonSide {
     modified: bool,
-}
-
-fn diff_json(old: &Path, new: &Path, cwd: &Path, extra: &[&str]) -> (i32, JsonReport) {
-    let out = runprint()
-        .arg("diff")
-        .arg(old)
-        .arg(new)
-        .args(["--format", "json"])
-        .args(extra)
-        .current_dir(cwd)
-        .output()
-        .unwrap();
-    let report: JsonReport = serde_json::from_slice(&out.stdout)
-        .unwrap_or_else(|e| panic!("{e}: {}", String::from_utf8_lossy(&out.stdout)));
-    (out.status.code().unwrap(), report)
 }
 
 fn assert_most_important_first(r: &JsonReport) {

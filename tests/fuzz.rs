@@ -23,24 +23,7 @@ use runprint::manifest::{
 };
 
 /// Every lockfile format, by a file name it is detected from.
-const FORMATS: &[&str] = &[
-    "Cargo.lock",
-    "requirements.txt",
-    "package-lock.json",
-    "yarn.lock",
-    "pnpm-lock.yaml",
-    "go.mod",
-    "packages.lock.json",
-    "renv.lock",
-    "Manifest.toml",
-    "pylock.toml",
-    "poetry.lock",
-    "Pipfile.lock",
-    "uv.lock",
-    "pdm.lock",
-    "environment.yml",
-    "spec-file.txt",
-];
+const FORMATS: &[&str] = common::LOCKFILE_NAMES;
 
 fn config() -> ProptestConfig {
     // PROPTEST_CASES overrides the count; failures are not persisted to files in the tree.

@@ -90,26 +90,11 @@ fn corpus_has_at_least_eighty_malformed_inputs_across_every_parser() {
     let bad = all.iter().filter(|c| c.1 == "bad").count();
     assert!(bad >= 80, "only {bad} malformed inputs");
     // Every lockfile format runprint reads has a folder.
-    for name in [
-        "Cargo.lock",
-        "requirements.txt",
-        "package-lock.json",
-        "yarn.lock",
-        "pnpm-lock.yaml",
-        "go.mod",
-        "packages.lock.json",
-        "renv.lock",
-        "Manifest.toml",
-        "pylock.toml",
-        "poetry.lock",
-        "Pipfile.lock",
-        "uv.lock",
-        "pdm.lock",
-        "environment.yml",
-        "spec-file.txt",
-        "manifest",
-        "manifest-json",
-    ] {
+    for name in common::LOCKFILE_NAMES
+        .iter()
+        .copied()
+        .chain(["manifest", "manifest-json"])
+    {
         assert!(
             all.iter().any(|c| c.0 == name && c.1 == "bad"),
             "no bad case for {name}"

@@ -32,23 +32,7 @@ struct JsonChange {
 }
 
 fn diff(old: &Path, new: &Path, cwd: &Path, extra: &[&str]) -> (i32, JsonReport) {
-    let out = runprint()
-        .arg("diff")
-        .arg(old)
-        .arg(new)
-        .args(["--format", "json"])
-        .args(extra)
-        .current_dir(cwd)
-        .output()
-        .unwrap();
-    let report = serde_json::from_slice(&out.stdout).unwrap_or_else(|e| {
-        panic!(
-            "{e}: {} {}",
-            String::from_utf8_lossy(&out.stdout),
-            String::from_utf8_lossy(&out.stderr)
-        )
-    });
-    (out.status.code().unwrap(), report)
+    common::diff_json(old, new, cwd, extra)
 }
 
 #[test]

@@ -83,3 +83,51 @@ pub fn stamp_to(dir: &Path, out: &Path, vars: &[(&str, &str)]) -> runprint::mani
 pub fn crate_path(rel: &str) -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR")).join(rel)
 }
+
+/// One file name per lockfile format runprint reads (each is detected from its name).
+pub const LOCKFILE_NAMES: &[&str] = &[
+    "Cargo.lock",
+    "requirements.txt",
+    "package-lock.json",
+    "yarn.lock",
+    "pnpm-lock.yaml",
+    "go.mod",
+    "packages.lock.json",
+    "renv.lock",
+    "Manifest.toml",
+    "pylock.toml",
+    "poetry.lock",
+    "Pipfile.lock",
+    "uv.lock",
+    "pdm.lock",
+    "environment.yml",
+    "spec-file.txt",
+];
+
+/// Runs `runprint diff OLD NEW --format json EXTRA...` in `cwd` and decodes the report into the
+/// caller's own type (each test declares the JSON contract it relies on). Returns the exit
+/// code and the report.
+pub fn diff_json<T: serde::de::DeserializeOwned>(
+    old: &Path,
+    new: &Path,
+    cwd: &Path,
+    extra: &[&str],
+) -> (i32, T) {
+    let out = runprint()
+        .arg("diff")
+        .arg(old)
+        .arg(new)
+        .args(["--format", "json"])
+        .args(extra)
+        .current_dir(cwd)
+        .output()
+        .unwrap();
+    let report = serde_json::from_slice(&out.stdout).unwrap_or_else(|e| {
+        panic!(
+            "{e}: {} {}",
+            String::from_utf8_lossy(&out.stdout),
+            String::from_utf8_lossy(&out.stderr)
+        )
+    });
+    (out.status.code().unwrap(), report)
+}
