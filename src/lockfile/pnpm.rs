@@ -44,12 +44,9 @@ struct PnpmLock {
     lockfile_version: Option<yaml_serde::Value>,
     #[serde(default)]
     importers: BTreeMap<String, Importer>,
-    #[serde(default)]
-    dependencies: BTreeMap<String, ImporterDep>,
-    #[serde(default)]
-    dev_dependencies: BTreeMap<String, ImporterDep>,
-    #[serde(default)]
-    optional_dependencies: BTreeMap<String, ImporterDep>,
+    /// Before workspaces (5.x single projects) the project's own dependencies sit at the top.
+    #[serde(flatten)]
+    top: Importer,
     #[serde(default)]
     packages: BTreeMap<String, PnpmPackage>,
     #[serde(default)]
@@ -161,12 +158,7 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
         .unwrap_or(9);
 
     let mut importers: Vec<&Importer> = lock.importers.values().collect();
-    let top = Importer {
-        dependencies: lock.dependencies,
-        dev_dependencies: lock.dev_dependencies,
-        optional_dependencies: lock.optional_dependencies,
-    };
-    importers.push(&top);
+    importers.push(&lock.top);
 
     // Packages keys (peer suffix dropped) named by an importer, and, for 9.0, the keys reached
     // from production and from development roots.
