@@ -3,7 +3,6 @@
 //! [`LockfileError`] with a line, writing hashes as `algo:hex`, and the common sort order.
 
 use crate::error::LockfileError;
-use crate::manifest::Package;
 
 /// A TOML decoding error, with the line its span starts on.
 pub(crate) fn toml_error(text: &str, path: &str, e: &toml::de::Error) -> LockfileError {
@@ -104,17 +103,7 @@ pub(crate) fn vcs_source(
     format!("{kind}+{url}{rev}{commit}")
 }
 
-pub(crate) fn sort_packages(packages: &mut Vec<Package>) {
-    packages.sort_by(|a, b| {
-        (&a.name, &a.version, &a.source, &a.platform).cmp(&(
-            &b.name,
-            &b.version,
-            &b.source,
-            &b.platform,
-        ))
-    });
-    packages.dedup();
-}
+pub(crate) use super::support::sort_packages;
 
 #[cfg(test)]
 mod tests {
