@@ -401,17 +401,6 @@ fn run_diff(args: DiffArgs) -> ExitCode {
         Ok(p) => p,
         Err(e) => return fail(e),
     };
-    if args.strict {
-        for (path, m) in [(&args.old, &old), (&args.new, &new)] {
-            if m.is_modified() {
-                return fail(format!(
-                    "`{}` was modified after stamping (its fingerprint does not match its \
-                     content) and --strict was given",
-                    path.display()
-                ));
-            }
-        }
-    }
     let mut report = compare_with(
         &args.old.display().to_string(),
         &old,
@@ -420,6 +409,16 @@ fn run_diff(args: DiffArgs) -> ExitCode {
         args.repo.as_deref(),
         &policy,
     );
+    // The comparison already checked both fingerprints; --strict reuses its answer.
+    if args.strict {
+        if let Some(side) = [&report.old, &report.new].into_iter().find(|s| s.modified) {
+            return fail(format!(
+                "`{}` was modified after stamping (its fingerprint does not match its content) \
+                 and --strict was given",
+                side.path
+            ));
+        }
+    }
     if args.verbose {
         report.details = crate::diff::package_list_diffs(&old, &new);
         crate::diff::explain_values(&mut report);
