@@ -254,30 +254,145 @@ fn nested_bare_shallow_and_detached_repositories() {
     );
 }
 
-#[test]
-fn a_corrupted_git_object_gives_a_warning_and_a_manifest() {
-    let repo = repo_with(&[("requirements.txt", "numpy==1.26.4\n"), ("b.txt", "b\n")]);
-    let head = git(repo.path(), &["rev-parse", "HEAD"]);
-    // Truncate the loose object of the HEAD commit.
-    let object = repo
-        .path()
-        .join(".git/objects")
-        .join(&head[..2])
-        .join(&head[2..]);
+/// Truncates the loose object of the HEAD commit (the damage a full disk or a killed copy
+/// leaves).
+fn corrupt_head_commit(repo: &Path) {
+    let head = git(repo, &["rev-parse", "HEAD"]);
+    let object = repo.join(".git/objects").join(&head[..2]).join(&head[2..]);
     let bytes = std::fs::read(&object).unwrap();
     let mut perms = std::fs::metadata(&object).unwrap().permissions();
     #[allow(clippy::permissions_set_readonly_false)]
     perms.set_readonly(false);
     std::fs::set_permissions(&object, perms).unwrap();
     std::fs::write(&object, &bytes[..bytes.len() / 2]).unwrap();
+}
+
+#[test]
+fn a_corrupted_git_object_gives_git_s_own_warning_and_a_manifest() {
+    let repo = repo_with(&[("requirements.txt", "numpy==1.26.4\n"), ("b.txt", "b\n")]);
+    corrupt_head_commit(repo.path());
+    // Reference: `git status` itself fails on this object and says so (git 2.47:
+    // "fatal: loose object ... is corrupt"); the stamp passes that on instead of waiting for
+    // the watchdog, however long its timeout.
+    let status = std::process::Command::new("git")
+        .args(["status", "--porcelain"])
+        .current_dir(repo.path())
+        .output()
+        .unwrap();
+    assert!(!status.status.success());
+    let (m, stderr) = stamp_env(repo.path(), &[], &[("RUNPRINT_GIT_TIMEOUT_SECS", "600")]);
+    let warning = m
+        .run
+        .warnings
+        .iter()
+        .find(|w| w.starts_with("git:"))
+        .unwrap_or_else(|| panic!("{:?} {stderr}", m.run.warnings));
+    assert!(warning.contains("corrupt"), "{warning}");
+    assert!(!warning.contains("no answer"), "{warning}");
+    // The rest is still recorded.
+    assert_eq!(m.content.lockfiles.len(), 1);
+    assert!(!m.content.cpu.arch.is_empty());
+}
+
+#[test]
+fn a_corrupted_git_object_without_git_on_path_stops_at_the_timeout() {
+    let repo = repo_with(&[("requirements.txt", "numpy==1.26.4\n"), ("b.txt", "b\n")]);
+    corrupt_head_commit(repo.path());
+    let no_git = tempfile::tempdir().unwrap();
     // libgit2 loops forever on this object; the watchdog gives up after the timeout.
-    let (m, stderr) = stamp_env(repo.path(), &[], &[("RUNPRINT_GIT_TIMEOUT_SECS", "3")]);
+    let (m, stderr) = stamp_env(
+        repo.path(),
+        &[],
+        &[
+            ("RUNPRINT_GIT_TIMEOUT_SECS", "3"),
+            ("PATH", no_git.path().to_str().unwrap()),
+        ],
+    );
     assert!(
         m.run.warnings.iter().any(|w| w.starts_with("git:")),
         "{:?} {stderr}",
         m.run.warnings
     );
-    // The rest is still recorded.
     assert_eq!(m.content.lockfiles.len(), 1);
     assert!(!m.content.cpu.arch.is_empty());
+}
+
+/// Names of this process's threads (Linux `/proc/self/task/*/comm`).
+fn thread_names() -> Vec<String> {
+    std::fs::read_dir("/proc/self/task")
+        .unwrap()
+        .filter_map(|t| std::fs::read_to_string(t.ok()?.path().join("comm")).ok())
+        .map(|n| n.trim().to_string())
+        .collect()
+}
+
+/// A library user stamping the same damaged repository again does not pile up stuck threads:
+/// the second stamp answers at once from what the first one learnt.
+#[test]
+fn a_stuck_git_library_read_is_not_started_twice() {
+    let repo = repo_with(&[("requirements.txt", "numpy==1.26.4\n")]);
+    corrupt_head_commit(repo.path());
+    let no_git = tempfile::tempdir().unwrap();
+    let mut opts = runprint::collect::StampOptions::new(repo.path());
+    opts.env
+        .insert("PATH".into(), no_git.path().to_str().unwrap().into());
+    opts.env
+        .insert("RUNPRINT_GIT_TIMEOUT_SECS".into(), "1".into());
+    opts.python = vec![no_git.path().join("no-python")];
+    let first = runprint::collect::stamp(&opts);
+    assert!(
+        first.run.warnings.iter().any(|w| w.contains("no answer")),
+        "{:?}",
+        first.run.warnings
+    );
+    let second = runprint::collect::stamp(&opts);
+    assert!(
+        second
+            .run
+            .warnings
+            .iter()
+            .any(|w| w.contains("has not finished")),
+        "{:?}",
+        second.run.warnings
+    );
+    let stuck = thread_names()
+        .iter()
+        .filter(|n| n.as_str() == "runprint-git")
+        .count();
+    assert_eq!(stuck, 1, "{:?}", thread_names());
+}
+
+/// A `git` that never answers is killed at the timeout; no process is left behind.
+#[test]
+fn a_hanging_git_executable_is_killed_at_the_timeout() {
+    let repo = repo_with(&[("requirements.txt", "numpy==1.26.4\n")]);
+    let bin = tempfile::tempdir().unwrap();
+    let pid_file = bin.path().join("pid");
+    let fake = bin.path().join("git");
+    std::fs::write(
+        &fake,
+        format!(
+            "#!/bin/sh\necho $$ > '{}'\nexec sleep 300\n",
+            pid_file.display()
+        ),
+    )
+    .unwrap();
+    std::fs::set_permissions(&fake, std::os::unix::fs::PermissionsExt::from_mode(0o755)).unwrap();
+    let path = format!("{}:/usr/bin:/bin", bin.path().display());
+    let (m, stderr) = stamp_env(
+        repo.path(),
+        &[],
+        &[("RUNPRINT_GIT_TIMEOUT_SECS", "2"), ("PATH", &path)],
+    );
+    assert!(
+        m.run.warnings.iter().any(|w| w.contains("was stopped")),
+        "{:?} {stderr}",
+        m.run.warnings
+    );
+    let pid = std::fs::read_to_string(&pid_file).unwrap();
+    assert!(
+        !Path::new("/proc").join(pid.trim()).exists(),
+        "the hanging git (pid {pid}) is still running"
+    );
+    assert_eq!(m.content.lockfiles.len(), 1);
 }

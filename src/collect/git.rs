@@ -1,5 +1,7 @@
-//! Source control: the commit, the branch, the uncommitted change and submodules, read with
-//! libgit2 (the `git2` crate) so that no `git` executable is needed.
+//! Source control: the commit, the branch, the uncommitted change and submodules. References,
+//! the index and configuration are read with libgit2 (the `git2` crate); the work-tree status
+//! comes from the `git` executable when it is on `PATH` (faster, and it reports a damaged
+//! object instead of looping on it), else from libgit2, so that no `git` executable is needed.
 //!
 //! The uncommitted change is summarised by [`GitInfo::dirty_digest`]: SHA-256 over, for every
 //! changed path in sorted order, the path, its state and the SHA-256 of its content in the work
@@ -8,6 +10,7 @@
 
 use std::io::Read;
 use std::path::{Path, PathBuf};
+use std::sync::Mutex;
 
 use git2::{Repository, Status, StatusOptions};
 use sha2::{Digest, Sha256};
@@ -26,9 +29,45 @@ pub struct GitFacts {
     pub files: Option<Vec<String>>,
 }
 
+/// How the collector runs the `git` executable, shared with the watchdog that may stop it.
+#[derive(Debug, Default)]
+pub struct GitControl {
+    /// `PATH` to find `git` in (the stamped environment's); `None`: this process's own.
+    pub path_env: Option<String>,
+    /// The running `git` child, so that [`GitControl::stop`] can end it.
+    child: Mutex<Option<std::process::Child>>,
+    /// Set by [`GitControl::stop`]: no new `git` process is started after it.
+    stopped: std::sync::atomic::AtomicBool,
+}
+
+impl GitControl {
+    /// A control that looks `git` up in `path_env` (or this process's `PATH`).
+    pub fn new(path_env: Option<String>) -> GitControl {
+        GitControl {
+            path_env,
+            ..GitControl::default()
+        }
+    }
+
+    /// Kills the running `git` child, if any, and keeps any other from starting; the collector
+    /// then returns with an error instead of waiting on it.
+    pub fn stop(&self) {
+        self.stopped
+            .store(true, std::sync::atomic::Ordering::SeqCst);
+        if let Some(child) = self
+            .child
+            .lock()
+            .unwrap_or_else(|e| e.into_inner())
+            .as_mut()
+        {
+            let _ = child.kill();
+        }
+    }
+}
+
 /// Reads the repository that contains `dir`. A folder outside any repository gives
 /// `present = false`; other failures are returned as a message for the warnings.
-pub fn collect(dir: &Path, private: bool) -> Result<GitFacts, String> {
+pub fn collect(dir: &Path, private: bool, control: &GitControl) -> Result<GitFacts, String> {
     let repo = match Repository::discover(dir) {
         Ok(r) => r,
         Err(e) if e.code() == git2::ErrorCode::NotFound => {
@@ -54,7 +93,12 @@ pub fn collect(dir: &Path, private: bool) -> Result<GitFacts, String> {
 
     match repo.head() {
         Ok(head) => {
-            info.commit = head.peel_to_commit().ok().map(|c| c.id().to_string());
+            // The reference's target, not the commit object: reading a damaged object can
+            // make libgit2 loop, and HEAD names a commit by definition.
+            info.commit = head
+                .target()
+                .or_else(|| head.peel_to_commit().ok().map(|c| c.id()))
+                .map(|id| id.to_string());
             if head.is_branch() {
                 info.branch = head.shorthand().map(str::to_string);
             }
@@ -73,10 +117,11 @@ pub fn collect(dir: &Path, private: bool) -> Result<GitFacts, String> {
 
     let mut files = None;
     if let Some(root) = &workdir {
-        let entries = match status_with_git_cli(root) {
-            Some(e) => e,
-            None => status_with_libgit2(&repo, root)
+        let entries = match status_with_git_cli(root, control) {
+            Ok(Some(e)) => e,
+            Ok(None) => status_with_libgit2(&repo, root)
                 .map_err(|e| format!("git: cannot read the work tree status: {}", e.message()))?,
+            Err(e) => return Err(format!("git: cannot read the work tree status: {e}")),
         };
         files = tracked_files(&repo).map(|mut tracked| {
             tracked.extend(
@@ -129,28 +174,85 @@ struct StatusEntry {
 /// Status from the `git` executable when it is on PATH: `git status --porcelain -z`, with
 /// optional locks off so the index is never rewritten under a running job. git's own status is
 /// faster than libgit2's on large trees (its untracked cache and parallel index refresh).
-/// `None` when git is missing or refuses (e.g. a repository owned by another user).
-fn status_with_git_cli(root: &Path) -> Option<Vec<StatusEntry>> {
-    let out = std::process::Command::new("git")
-        .args([
-            "--no-optional-locks",
-            "status",
-            "--porcelain=v1",
-            "-z",
-            "--untracked-files=all",
-            "--no-renames",
-            "--ignore-submodules=none",
-        ])
-        .current_dir(root)
-        .stdin(std::process::Stdio::null())
-        .stderr(std::process::Stdio::null())
-        .output()
-        .ok()
-        .filter(|o| o.status.success())?;
+/// `Ok(None)` when there is no `git` to run (libgit2 takes over); an error with git's own
+/// message when it fails (a damaged object, a repository owned by another user) or is stopped.
+fn status_with_git_cli(
+    root: &Path,
+    control: &GitControl,
+) -> Result<Option<Vec<StatusEntry>>, String> {
+    use std::process::{Command, Stdio};
+    let mut cmd = Command::new("git");
+    cmd.args([
+        "--no-optional-locks",
+        "status",
+        "--porcelain=v1",
+        "-z",
+        "--untracked-files=all",
+        "--no-renames",
+        "--ignore-submodules=none",
+    ])
+    .current_dir(root)
+    .stdin(Stdio::null())
+    .stdout(Stdio::piped())
+    .stderr(Stdio::piped());
+    if let Some(path) = &control.path_env {
+        // Also where the program is looked up (std::process::Command on Unix).
+        cmd.env("PATH", path);
+    }
+    let (mut stdout, mut stderr) = {
+        let mut slot = control.child.lock().unwrap_or_else(|e| e.into_inner());
+        if control.stopped.load(std::sync::atomic::Ordering::SeqCst) {
+            return Err("stopped".into());
+        }
+        let mut child = match cmd.spawn() {
+            Ok(c) => c,
+            Err(e) if e.kind() == std::io::ErrorKind::NotFound => return Ok(None),
+            Err(e) => return Err(format!("cannot run `git`: {e}")),
+        };
+        let pipes = (child.stdout.take(), child.stderr.take());
+        *slot = Some(child);
+        match pipes {
+            (Some(o), Some(e)) => (o, e),
+            _ => return Err("cannot read the output of `git`".into()),
+        }
+    };
+    // Both pipes at once, so that neither can fill up and block git; a kill by
+    // `GitControl::stop` closes them.
+    let (out, err) = std::thread::scope(|s| {
+        let err = s.spawn(move || {
+            let mut buf = Vec::new();
+            let _ = stderr.read_to_end(&mut buf);
+            buf
+        });
+        let mut out = Vec::new();
+        let _ = stdout.read_to_end(&mut out);
+        (out, err.join().unwrap_or_default())
+    });
+    let child = control
+        .child
+        .lock()
+        .unwrap_or_else(|e| e.into_inner())
+        .take();
+    let status = child.map(|mut c| c.wait());
+    if control.stopped.load(std::sync::atomic::Ordering::SeqCst) {
+        return Err("`git status` was stopped".into());
+    }
+    match status {
+        Some(Ok(s)) if s.success() => {}
+        _ => {
+            let message = String::from_utf8_lossy(&err);
+            let message = message
+                .lines()
+                .rev()
+                .find(|l| !l.trim().is_empty())
+                .unwrap_or("`git status` failed");
+            return Err(crate::redact::scrub_secrets(message.trim()));
+        }
+    }
     // Each record: two status letters, a space, the path, NUL (git-status(1), "Porcelain
     // Format Version 1" with -z).
     let mut entries = Vec::new();
-    for record in out.stdout.split(|&b| b == 0).filter(|r| r.len() > 3) {
+    for record in out.split(|&b| b == 0).filter(|r| r.len() > 3) {
         let (x, y) = (record[0], record[1]);
         let raw = record[3..].to_vec();
         let path = String::from_utf8_lossy(&raw).into_owned();
@@ -163,7 +265,7 @@ fn status_with_git_cli(root: &Path) -> Option<Vec<StatusEntry>> {
             abs,
         });
     }
-    Some(entries)
+    Ok(Some(entries))
 }
 
 /// The same list through libgit2, for machines without the `git` executable.

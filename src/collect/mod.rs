@@ -80,10 +80,18 @@ pub const GIT_TIMEOUT_VAR: &str = "RUNPRINT_GIT_TIMEOUT_SECS";
 /// Default for [`GIT_TIMEOUT_VAR`]: far longer than the status of a large repository takes.
 pub const DEFAULT_GIT_TIMEOUT_SECS: u64 = 120;
 
-/// Runs the git collector on a watchdog thread. libgit2 can loop forever on a damaged
-/// repository (a truncated loose object makes its zlib reader spin, see
-/// `tests/fs_traps.rs`), and a stamp must never hang the job it records: after the timeout the
-/// git section is left empty with a warning, and the stuck thread ends with the process.
+/// Repositories whose git collector is still running after its timeout (stuck in libgit2),
+/// so that a process calling [`stamp`] again does not start a second stuck thread.
+static STUCK_GIT: std::sync::Mutex<std::collections::BTreeSet<PathBuf>> =
+    std::sync::Mutex::new(std::collections::BTreeSet::new());
+
+/// Runs the git collector on a watchdog thread, and a stamp never hangs on git:
+///
+/// * the `git` executable (status) is killed at the timeout, and its thread returns;
+/// * libgit2 can loop forever on a damaged repository (a truncated loose object makes its zlib
+///   reader spin, see `tests/fs_traps.rs`) and a thread cannot be killed: after the timeout the
+///   git section is left empty with a warning, the repository is remembered, and later stamps
+///   of it in this process return that warning at once instead of starting another thread.
 fn collect_git_with_timeout(opts: &StampOptions) -> Result<git::GitFacts, String> {
     let secs = opts
         .env
@@ -91,25 +99,69 @@ fn collect_git_with_timeout(opts: &StampOptions) -> Result<git::GitFacts, String
         .and_then(|v| v.trim().parse::<u64>().ok())
         .filter(|&s| s > 0)
         .unwrap_or(DEFAULT_GIT_TIMEOUT_SECS);
+    let key = std::fs::canonicalize(&opts.repo).unwrap_or_else(|_| opts.repo.clone());
+    let stuck = || STUCK_GIT.lock().unwrap_or_else(|e| e.into_inner());
+    if stuck().contains(&key) {
+        return Err(format!(
+            "git: an earlier reading of the repository at `{}` has not finished (a damaged \
+             object can make the git library loop; `git fsck` checks the repository); git \
+             facts not recorded",
+            opts.repo.display()
+        ));
+    }
+    let control = std::sync::Arc::new(git::GitControl::new(opts.env.get("PATH").cloned()));
     let (tx, rx) = std::sync::mpsc::channel();
-    let (repo, private) = (opts.repo.clone(), opts.private);
+    // Set by the thread when it ends, under the STUCK_GIT lock, so that the watchdog never
+    // marks as stuck a thread that has just finished.
+    let finished = std::sync::Arc::new(std::sync::atomic::AtomicBool::new(false));
+    let (repo, private, ctl, done_key, done) = (
+        opts.repo.clone(),
+        opts.private,
+        control.clone(),
+        key.clone(),
+        finished.clone(),
+    );
     let spawned = std::thread::Builder::new()
         .name("runprint-git".into())
         .spawn(move || {
-            let _ = tx.send(git::collect(&repo, private));
+            let result = git::collect(&repo, private, &ctl);
+            let mut stuck = STUCK_GIT.lock().unwrap_or_else(|e| e.into_inner());
+            done.store(true, std::sync::atomic::Ordering::SeqCst);
+            stuck.remove(&done_key);
+            drop(stuck);
+            let _ = tx.send(result);
         });
     if spawned.is_err() {
-        return git::collect(&opts.repo, opts.private);
+        return git::collect(&opts.repo, opts.private, &control);
     }
-    rx.recv_timeout(std::time::Duration::from_secs(secs))
-        .unwrap_or_else(|_| {
-            Err(format!(
-                "git: no answer from the repository at `{}` within {secs} s (a damaged object \
-                 can make the git library loop; `git fsck` checks the repository); git facts \
-                 not recorded",
-                opts.repo.display()
-            ))
-        })
+    let timeout = |what: &str| {
+        format!(
+            "git: no answer from the repository at `{}` within {secs} s{what}; git facts not \
+             recorded",
+            opts.repo.display()
+        )
+    };
+    match rx.recv_timeout(std::time::Duration::from_secs(secs)) {
+        Ok(result) => result,
+        Err(_) => {
+            // Kill `git` if that is what runs; its thread then answers at once.
+            control.stop();
+            match rx.recv_timeout(std::time::Duration::from_millis(500)) {
+                Ok(Ok(facts)) => Ok(facts),
+                Ok(Err(_)) => Err(timeout(" (`git status` was stopped)")),
+                Err(_) => {
+                    let mut stuck = stuck();
+                    if !finished.load(std::sync::atomic::Ordering::SeqCst) {
+                        stuck.insert(key);
+                    }
+                    Err(timeout(
+                        " (a damaged object can make the git library loop; `git fsck` \
+                         checks the repository)",
+                    ))
+                }
+            }
+        }
+    }
 }
 
 /// The numerical stack: Python environments, native libraries, GPU. With `RUNPRINT_TIMINGS`
