@@ -114,6 +114,31 @@ fn sigkill_during_stamp_leaves_the_old_or_the_new_manifest() {
         killed >= 50,
         "only {killed} of 100 runs were killed mid-way"
     );
+
+    // Killed writers leave temporary files; once older than the stale age, the next write into
+    // the folder removes them (age them here rather than wait).
+    let temporaries = |dir: &Path| -> Vec<std::path::PathBuf> {
+        std::fs::read_dir(dir)
+            .unwrap()
+            .map(|e| e.unwrap().path())
+            .filter(|p| {
+                let n = p.file_name().unwrap().to_string_lossy();
+                n.starts_with(".runprint-") && n.ends_with(".tmp")
+            })
+            .collect()
+    };
+    let left = temporaries(dir.path());
+    println!("{} temporary files left by the kills", left.len());
+    let old = std::time::SystemTime::now() - runprint::atomic::STALE_TEMPORARY * 2;
+    for p in &left {
+        let f = std::fs::File::options().write(true).open(p).unwrap();
+        f.set_modified(old).unwrap();
+    }
+    assert!(stamp_cmd(dir.path(), &out, &[&data], &cache, "after")
+        .status()
+        .unwrap()
+        .success());
+    assert_eq!(temporaries(dir.path()), Vec::<std::path::PathBuf>::new());
 }
 
 #[test]
