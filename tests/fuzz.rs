@@ -1,14 +1,15 @@
-//! Property tests on stable Rust (no nightly fuzzer here): every parser gets arbitrary bytes,
-//! arbitrary text and mutations of a valid input, and must return a result without panicking;
-//! the manifest must round-trip (`parse(render(m)) == m`) in both forms, and any manifest that
-//! parses must render and parse back to itself.
+//! Property tests on stable Rust, beside the coverage-guided fuzz targets in `fuzz/` (cargo
+//! fuzz, nightly; see DEVELOPERS.md): every parser gets arbitrary bytes, arbitrary text and
+//! mutations of a valid input, and must return a result without panicking; the manifest must
+//! round-trip (`parse(render(m)) == m`) in both forms, and any manifest that parses must render
+//! and parse back to itself.
 //!
 //! Each property runs 256 cases by default so `cargo test` stays fast. To search longer:
 //!
 //!     PROPTEST_CASES=100000 cargo test --release --test fuzz
 //!
 //! Inputs that once failed are kept in `tests/corpus/` as regression cases (see
-//! `tests/malformed.rs`).
+//! `tests/malformed.rs`); `fuzz/replay.sh` runs the fuzz targets over them in CI.
 
 mod common;
 
@@ -451,4 +452,39 @@ fn manifest() -> impl Strategy<Value = Manifest> {
                 )
             },
         )
+}
+
+/// Every lockfile format has a fuzz target in `fuzz/fuzz_targets/`, and every target is listed
+/// in `fuzz/Cargo.toml` and has seeds in `fuzz/targets.sh`: a new parser cannot be added
+/// without one.
+#[test]
+fn every_parser_has_a_fuzz_target() {
+    let dir = common::crate_path("fuzz/fuzz_targets");
+    let cargo = std::fs::read_to_string(common::crate_path("fuzz/Cargo.toml")).unwrap();
+    let seeds = std::fs::read_to_string(common::crate_path("fuzz/targets.sh")).unwrap();
+    let mut fuzzed = std::collections::BTreeSet::new();
+    let mut targets = Vec::new();
+    for entry in std::fs::read_dir(&dir).unwrap() {
+        let path = entry.unwrap().path();
+        let target = path.file_stem().unwrap().to_str().unwrap().to_string();
+        let text = std::fs::read_to_string(&path).unwrap();
+        if let Some(rest) = text.split("runprint_fuzz::lockfile(\"").nth(1) {
+            fuzzed.insert(rest.split('"').next().unwrap().to_string());
+        }
+        assert!(
+            cargo.contains(&format!("name = \"{target}\"")),
+            "{target} is not a [[bin]] of fuzz/Cargo.toml"
+        );
+        assert!(
+            seeds.contains(&format!("    {target}) echo ")),
+            "{target} has no seeds in fuzz/targets.sh"
+        );
+        targets.push(target);
+    }
+    let expected: std::collections::BTreeSet<String> =
+        FORMATS.iter().map(|s| s.to_string()).collect();
+    assert_eq!(fuzzed, expected);
+    for other in ["go_sum", "manifest", "policy"] {
+        assert!(targets.iter().any(|t| t == other), "no fuzz target {other}");
+    }
 }

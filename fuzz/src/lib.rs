@@ -1,0 +1,83 @@
+//! The bodies of runprint's fuzz targets (`fuzz_targets/`, one per parser). Each takes the
+//! fuzzer's bytes the way runprint reads a file it did not write, and checks what must hold for
+//! every input: no panic, an error that names the file, and for the manifest a round trip.
+//!
+//! The same functions replay the regression corpus in `tests/corpus/` (see `DEVELOPERS.md`).
+
+use std::path::Path;
+
+use runprint::lockfile::{decode, Format};
+use runprint::manifest::{Manifest, ManifestFormat};
+use runprint::policy::Policy;
+
+/// The path shown in errors; every error must name it.
+fn shown(name: &str) -> String {
+    format!("fuzz/{name}")
+}
+
+/// Parses `data` as the lockfile named `name` (a file name runprint detects, such as
+/// `Cargo.lock`), as `stamp` and `check` do.
+pub fn lockfile(name: &str, data: &[u8]) {
+    let format = Format::detect(name).expect("fuzz targets name lockfiles runprint detects");
+    let path = shown(name);
+    match decode(data, &path).and_then(|text| format.parse(text, &path)) {
+        Ok(parsed) => {
+            for p in &parsed.packages {
+                assert!(!p.name.is_empty() || !p.version.is_empty(), "{p:?}");
+            }
+        }
+        Err(e) => assert!(
+            e.to_string().contains(&path),
+            "error does not name the file: {e}"
+        ),
+    }
+}
+
+/// A valid `go.mod` read with the fuzzer's bytes as its `go.sum` companion.
+pub fn go_sum(data: &[u8]) {
+    const GO_MOD: &str = "module example.com/m\n\ngo 1.22\n\nrequire (\n\tgolang.org/x/text v0.14.0\n\texample.com/a v1.2.3 // indirect\n)\n";
+    let path = shown("go.sum");
+    let Ok(sum) = decode(data, &path) else {
+        return;
+    };
+    if let Err(e) =
+        Format::GoMod.parse_with_companion(GO_MOD, &shown("go.mod"), Some((sum, path.as_str())))
+    {
+        assert!(
+            e.to_string().contains("fuzz/go."),
+            "error names no file: {e}"
+        );
+    }
+}
+
+/// Reads a manifest (TOML or JSON). Whatever parses must render in both forms and parse back
+/// to itself, with the same fingerprint check result.
+pub fn manifest(data: &[u8]) {
+    let Ok(text) = std::str::from_utf8(data) else {
+        return;
+    };
+    let path = Path::new("fuzz/m.toml");
+    match Manifest::parse(text, path) {
+        Ok(m) => {
+            for format in [ManifestFormat::Toml, ManifestFormat::Json] {
+                let rendered = m.render(format);
+                let back = Manifest::parse(&rendered, path).unwrap_or_else(|e| {
+                    panic!("rendered manifest does not parse: {e}\n{rendered}")
+                });
+                assert_eq!(back, m, "round trip changed the manifest:\n{rendered}");
+                assert_eq!(back.is_modified(), m.is_modified());
+            }
+        }
+        Err(e) => assert!(e.to_string().contains("fuzz/m.toml"), "{e}"),
+    }
+}
+
+/// Reads a policy file (`runprint.toml`).
+pub fn policy(data: &[u8]) {
+    let Ok(text) = std::str::from_utf8(data) else {
+        return;
+    };
+    if let Err(e) = Policy::parse(text, Path::new("fuzz/runprint.toml")) {
+        assert!(e.to_string().contains("fuzz/runprint.toml"), "{e}");
+    }
+}
