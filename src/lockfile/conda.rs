@@ -219,6 +219,11 @@ pub fn parse_explicit(text: &str, path: &str) -> Result<Parsed, LockfileError> {
         let (Some(version), Some(name)) = (parts.next(), parts.next()) else {
             return Err(err(format!("`{file}` is not named NAME-VERSION-BUILD")));
         };
+        if name.is_empty() || version.is_empty() {
+            return Err(err(format!(
+                "`{file}` is not named NAME-VERSION-BUILD (empty name or version)"
+            )));
+        }
         let subdir = url
             .rsplit('/')
             .nth(1)

@@ -83,6 +83,9 @@ pub fn parse(
                 _ => return Err(err("`go` takes one version".into())),
             },
             "require" => match args {
+                [p, v] if p.is_empty() || v.is_empty() => {
+                    return Err(err("`require` has an empty module path or version".into()))
+                }
                 [p, v] => requires.push(Require {
                     path: p.clone(),
                     version: v.clone(),
@@ -264,6 +267,12 @@ fn tokenize(line: &str) -> Result<(Vec<String>, Option<&str>), String> {
                 }
             }
         };
+        // Every token names something (a directive, a module path, a version), and an empty
+        // module path is not a valid one (value from memory of Go's module path rules, not
+        // checked against the Go sources here).
+        if token.is_empty() {
+            return Err("empty quoted string".into());
+        }
         tokens.push(token);
         rest = after.trim_start();
     }
