@@ -2,8 +2,10 @@
 # Runs every fuzz target (or those named) for SECONDS each, two at a time, with libFuzzer via
 # cargo fuzz on the nightly toolchain. Seeds come from the regression corpus in tests/corpus/;
 # what libFuzzer learns goes to fuzz/corpus/TARGET (ignored by git), crashes to
-# fuzz/artifacts/TARGET. A target that crashes is restarted until its time is used up, so one
-# finding does not end the search. A summary line per target goes to fuzz/campaign.log.
+# fuzz/artifacts/TARGET. The targets are built once, before any runs, so that editing the
+# sources meanwhile changes nothing. A target that crashes is restarted until its time is used
+# up, so one finding does not end the search. A summary line per target goes to
+# fuzz/campaign.log.
 #
 #   fuzz/campaign.sh 600                 # every target, ten minutes each
 #   fuzz/campaign.sh 60 cargo_lock uv_lock
@@ -18,6 +20,7 @@ if [ ${#targets[@]} -eq 0 ]; then
   mapfile -t targets < <(all_targets)
 fi
 cargo +nightly fuzz build -O
+export FUZZ_BIN="target/$(rustc -vV | sed -n 's/^host: //p')/release"
 
 run_one() {
   local t="$1" secs="$2" start end left dirs
@@ -33,7 +36,7 @@ run_one() {
   local runs=0
   while left=$((end - $(date +%s))); [ "$left" -gt 0 ]; do
     runs=$((runs + 1))
-    cargo +nightly fuzz run -O "$t" "fuzz/corpus/$t" "$seed_dir" -- \
+    "$FUZZ_BIN/$t" "fuzz/corpus/$t" "$seed_dir" \
       -max_total_time="$left" -timeout=10 -rss_limit_mb=2048 -print_final_stats=1 \
       -artifact_prefix="fuzz/artifacts/$t/" >"fuzz/logs/$t.$runs.log" 2>&1 || true
   done
