@@ -160,6 +160,22 @@ def make_reference_repo(path, rng):
     return lockfiles, counts
 
 
+def bench_venv():
+    """The environment of over 150 distributions the whole-stamp target names: the one
+    benches/stack.sh uses (`.bench-venv-stack/`), built from PyPI when missing. None when it
+    cannot be built (no network); the row then says so by its distribution count."""
+    venv = ROOT / ".bench-venv-stack"
+    python = venv / "bin" / "python"
+    if not python.exists():
+        ok = subprocess.run([sys.executable, "-m", "venv", str(venv)]).returncode == 0 and subprocess.run(
+            [str(python), "-m", "pip", "install", "-q", "--disable-pip-version-check", "--only-binary=:all:",
+             "-r", str(ROOT / "benches" / "stack-requirements.txt")]).returncode == 0
+        if not ok:
+            shutil.rmtree(venv, ignore_errors=True)
+            return None
+    return python
+
+
 def real_lockfiles(scratch):
     """Large lockfiles written by the real tools (network to the registries needed); a tool that
     is missing or fails is skipped. This repository's own Cargo.lock is real too."""
@@ -256,8 +272,8 @@ def main():
         # 5. A whole stamp of the reference repository (no data).
         repo = scratch / "reference"
         lockfiles, counts = make_reference_repo(repo, rng)
-        pyenv = ROOT / ".bench-venv-stack" / "bin" / "python"
-        py_args = ["--python", pyenv] if pyenv.exists() else []
+        pyenv = bench_venv()
+        py_args = ["--python", pyenv] if pyenv else []
         whole = stamp_cmd(repo, out, "--cache", cache, *py_args)
         run(whole)  # fills the caches, as every stamp after a job's first one finds them
         t_git = timed(["git", "status", "--porcelain"], runs=7, cwd=repo)

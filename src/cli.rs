@@ -131,10 +131,11 @@ struct CollectArgs {
     /// A data input to digest: a file or a folder (repeatable).
     #[arg(long, value_name = "PATH")]
     data: Vec<PathBuf>,
-    /// Folder of the digest cache (default: $XDG_CACHE_HOME/runprint or ~/.cache/runprint).
+    /// Folder of the caches: data digests and the numerical-stack scan (default:
+    /// $XDG_CACHE_HOME/runprint or ~/.cache/runprint).
     #[arg(long, value_name = "DIR")]
     cache: Option<PathBuf>,
-    /// Hash every data input again instead of trusting the digest cache.
+    /// Hash every data input and scan the numerical stack again instead of trusting the caches.
     #[arg(long)]
     rehash: bool,
     /// No progress bar.

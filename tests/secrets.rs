@@ -181,6 +181,42 @@ fn no_secret_reaches_any_output_of_any_command() {
             check_output(what, &out);
         }
     }
+    // The caches (data digests, the numerical-stack scan with its key of variables) are files
+    // on the machine too: nothing secret may be stored in them either.
+    let cache = tempfile::tempdir().unwrap();
+    for repo in [a.path(), b.path()] {
+        let out = stamp(
+            repo,
+            &[
+                "--cache",
+                cache.path().to_str().unwrap(),
+                "--data",
+                "requirements.txt",
+            ],
+            &[],
+        );
+        check_output("stamp --cache", &out);
+    }
+    let cached: Vec<_> = std::fs::read_dir(cache.path()).unwrap().collect();
+    // With a credential in PYTHONPATH, the stack scan is never cached at all (the scan probes
+    // the pieces of that variable, src/collect/stack_cache.rs).
+    assert!(cached.iter().all(|e| !e
+        .as_ref()
+        .unwrap()
+        .file_name()
+        .to_string_lossy()
+        .starts_with("stack-")));
+    for entry in cached {
+        let path = entry.unwrap().path();
+        let text = String::from_utf8_lossy(&std::fs::read(&path).unwrap()).into_owned();
+        for secret in all_secrets() {
+            assert!(
+                !text.contains(secret),
+                "{} holds `{secret}`",
+                path.display()
+            );
+        }
+    }
     let a_toml = o("a.toml");
     let b_json = o("b.json");
     check_output(

@@ -24,9 +24,10 @@ pub struct GitFacts {
     pub info: GitInfo,
     /// The repository's work tree, when there is one.
     pub workdir: Option<PathBuf>,
-    /// Every file in the work tree that is tracked or untracked-but-not-ignored, relative to
-    /// the work tree (what a walk respecting `.gitignore` would find), when it could be listed.
-    pub files: Option<Vec<String>>,
+    /// Untracked, not ignored files of the work tree, relative to its root (with the tracked
+    /// files of [`tracked_files`], what a walk respecting `.gitignore` would find), when the
+    /// status could be read.
+    pub untracked: Option<Vec<String>>,
 }
 
 /// How the collector runs the `git` executable, shared with the watchdog that may stop it.
@@ -68,21 +69,27 @@ impl GitControl {
 /// Reads the repository that contains `dir`. A folder outside any repository gives
 /// `present = false`; other failures are returned as a message for the warnings.
 pub fn collect(dir: &Path, private: bool, control: &GitControl) -> Result<GitFacts, String> {
+    // The status takes longest, so it starts first and runs while the repository is opened
+    // and HEAD is read here. git finds the repository from any folder inside it, and its
+    // porcelain paths are relative to the work tree's root wherever it runs (git-status(1)).
+    let started = start_git_status(dir, control);
     let repo = match Repository::discover(dir) {
         Ok(r) => r,
         Err(e) if e.code() == git2::ErrorCode::NotFound => {
+            abandon_git_status(control);
             return Ok(GitFacts {
                 info: GitInfo::default(),
                 workdir: None,
-                files: None,
-            })
+                untracked: None,
+            });
         }
         Err(e) => {
+            abandon_git_status(control);
             return Err(format!(
                 "git: cannot open repository at `{}`: {}",
                 dir.display(),
                 e.message()
-            ))
+            ));
         }
     };
     let mut info = GitInfo {
@@ -90,6 +97,10 @@ pub fn collect(dir: &Path, private: bool, control: &GitControl) -> Result<GitFac
         ..GitInfo::default()
     };
     let workdir = repo.workdir().map(Path::to_path_buf);
+    if workdir.is_none() {
+        // A bare repository has no work tree to report on.
+        abandon_git_status(control);
+    }
 
     match repo.head() {
         Ok(head) => {
@@ -111,29 +122,29 @@ pub fn collect(dir: &Path, private: bool, control: &GitControl) -> Result<GitFac
                 .and_then(|r| r.symbolic_target().map(str::to_string))
                 .map(|t| t.trim_start_matches("refs/heads/").to_string());
         }
-        Err(e) => return Err(format!("git: cannot read HEAD: {}", e.message())),
+        Err(e) => {
+            abandon_git_status(control);
+            return Err(format!("git: cannot read HEAD: {}", e.message()));
+        }
     }
     info.detached = repo.head_detached().unwrap_or(false);
 
-    let mut files = None;
+    let mut untracked = None;
     if let Some(root) = &workdir {
-        let entries = match status_with_git_cli(root, control) {
-            Ok(Some(e)) => e,
+        let failed = |e: String| format!("git: cannot read the work tree status: {e}");
+        let entries = match started {
+            Ok(Some(running)) => finish_git_status(root, control, running).map_err(failed)?,
+            Err(e) => return Err(failed(e)),
             Ok(None) => status_with_libgit2(&repo, root)
                 .map_err(|e| format!("git: cannot read the work tree status: {}", e.message()))?,
-            Err(e) => return Err(format!("git: cannot read the work tree status: {e}")),
         };
-        files = tracked_files(&repo).map(|mut tracked| {
-            tracked.extend(
-                entries
-                    .iter()
-                    .filter(|e| e.untracked)
-                    .map(|e| e.path.clone()),
-            );
-            tracked.sort();
-            tracked.dedup();
-            tracked
-        });
+        untracked = Some(
+            entries
+                .iter()
+                .filter(|e| e.untracked)
+                .map(|e| e.path.clone())
+                .collect(),
+        );
         let (paths, digest) = uncommitted_change(entries);
         info.dirty = !paths.is_empty();
         info.dirty_digest = digest;
@@ -153,7 +164,7 @@ pub fn collect(dir: &Path, private: bool, control: &GitControl) -> Result<GitFac
     Ok(GitFacts {
         info,
         workdir,
-        files,
+        untracked,
     })
 }
 
@@ -174,12 +185,10 @@ struct StatusEntry {
 /// Status from the `git` executable when it is on PATH: `git status --porcelain -z`, with
 /// optional locks off so the index is never rewritten under a running job. git's own status is
 /// faster than libgit2's on large trees (its untracked cache and parallel index refresh).
-/// `Ok(None)` when there is no `git` to run (libgit2 takes over); an error with git's own
-/// message when it fails (a damaged object, a repository owned by another user) or is stopped.
-fn status_with_git_cli(
-    root: &Path,
-    control: &GitControl,
-) -> Result<Option<Vec<StatusEntry>>, String> {
+/// [`start_git_status`] starts it (`Ok(None)` when there is no `git` to run: libgit2 takes
+/// over) and [`finish_git_status`] reads its answer: an error with git's own message when it
+/// fails (a damaged object, a repository owned by another user) or is stopped.
+fn start_git_status(dir: &Path, control: &GitControl) -> Result<Option<RunningStatus>, String> {
     use std::process::{Command, Stdio};
     let mut cmd = Command::new("git");
     cmd.args([
@@ -191,7 +200,7 @@ fn status_with_git_cli(
         "--no-renames",
         "--ignore-submodules=none",
     ])
-    .current_dir(root)
+    .current_dir(dir)
     .stdin(Stdio::null())
     .stdout(Stdio::piped())
     .stderr(Stdio::piped());
@@ -199,23 +208,52 @@ fn status_with_git_cli(
         // Also where the program is looked up (std::process::Command on Unix).
         cmd.env("PATH", path);
     }
-    let (mut stdout, mut stderr) = {
-        let mut slot = control.child.lock().unwrap_or_else(|e| e.into_inner());
-        if control.stopped.load(std::sync::atomic::Ordering::SeqCst) {
-            return Err("stopped".into());
-        }
-        let mut child = match cmd.spawn() {
-            Ok(c) => c,
-            Err(e) if e.kind() == std::io::ErrorKind::NotFound => return Ok(None),
-            Err(e) => return Err(format!("cannot run `git`: {e}")),
-        };
-        let pipes = (child.stdout.take(), child.stderr.take());
-        *slot = Some(child);
-        match pipes {
-            (Some(o), Some(e)) => (o, e),
-            _ => return Err("cannot read the output of `git`".into()),
-        }
+    let mut slot = control.child.lock().unwrap_or_else(|e| e.into_inner());
+    if control.stopped.load(std::sync::atomic::Ordering::SeqCst) {
+        return Err("stopped".into());
+    }
+    let mut child = match cmd.spawn() {
+        Ok(c) => c,
+        Err(e) if e.kind() == std::io::ErrorKind::NotFound => return Ok(None),
+        Err(e) => return Err(format!("cannot run `git`: {e}")),
     };
+    let pipes = (child.stdout.take(), child.stderr.take());
+    *slot = Some(child);
+    match pipes {
+        (Some(stdout), Some(stderr)) => Ok(Some(RunningStatus { stdout, stderr })),
+        _ => Err("cannot read the output of `git`".into()),
+    }
+}
+
+/// Ends a started `git status` whose answer is no longer wanted.
+fn abandon_git_status(control: &GitControl) {
+    let child = control
+        .child
+        .lock()
+        .unwrap_or_else(|e| e.into_inner())
+        .take();
+    if let Some(mut c) = child {
+        let _ = c.kill();
+        let _ = c.wait();
+    }
+}
+
+/// A `git status` started by [`start_git_status`].
+struct RunningStatus {
+    stdout: std::process::ChildStdout,
+    stderr: std::process::ChildStderr,
+}
+
+/// Reads the output of a started `git status` and waits for it.
+fn finish_git_status(
+    root: &Path,
+    control: &GitControl,
+    running: RunningStatus,
+) -> Result<Vec<StatusEntry>, String> {
+    let RunningStatus {
+        mut stdout,
+        mut stderr,
+    } = running;
     // Both pipes at once, so that neither can fill up and block git; a kill by
     // `GitControl::stop` closes them.
     let (out, err) = std::thread::scope(|s| {
@@ -265,7 +303,7 @@ fn status_with_git_cli(
             abs,
         });
     }
-    Ok(Some(entries))
+    Ok(entries)
 }
 
 /// The same list through libgit2, for machines without the `git` executable.
@@ -298,7 +336,12 @@ fn status_with_libgit2(repo: &Repository, root: &Path) -> Result<Vec<StatusEntry
 }
 
 /// Paths of the index's entries (submodule links left out).
-fn tracked_files(repo: &Repository) -> Option<Vec<String>> {
+/// The files in the index of the repository that contains `dir` (submodules left out),
+/// relative to its work tree, in the index's (sorted) order. Reading the index touches no
+/// object, so a damaged object cannot stall it.
+pub fn tracked_files(dir: &Path) -> Option<Vec<String>> {
+    let repo = Repository::discover(dir).ok()?;
+    repo.workdir()?;
     let index = repo.index().ok()?;
     Some(
         index

@@ -142,10 +142,21 @@ pub fn collect_with(
         cargo_manifests,
         cache_dir,
     };
-    files
-        .iter()
-        .filter_map(|(abs, shown)| read_one(&ctx, abs, shown, warnings))
-        .collect()
+    // Files are read and parsed in parallel; results and warnings keep the files' order.
+    use rayon::prelude::*;
+    let results: Vec<(Option<Lockfile>, Vec<String>)> = files
+        .par_iter()
+        .map(|(abs, shown)| {
+            let mut w = Vec::new();
+            (read_one(&ctx, abs, shown, &mut w), w)
+        })
+        .collect();
+    let mut out = Vec::with_capacity(results.len());
+    for (lockfile, mut w) in results {
+        warnings.append(&mut w);
+        out.extend(lockfile);
+    }
+    out
 }
 
 /// Reads and parses one lockfile; `shown` is the path written to the manifest.

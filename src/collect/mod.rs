@@ -11,16 +11,18 @@ pub mod cargo_features;
 pub mod cpu;
 pub mod data;
 pub mod env;
+pub mod fsdeps;
 pub mod git;
 pub mod gpu;
 pub mod lockfiles;
 pub mod native;
 pub mod patch;
 pub mod python;
+pub mod stack_cache;
 pub mod system;
 
 use std::collections::BTreeMap;
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 
 use crate::manifest::{Content, Manifest, RunInfo};
 use crate::redact::scrub_secrets;
@@ -164,8 +166,10 @@ fn collect_git_with_timeout(opts: &StampOptions) -> Result<git::GitFacts, String
     }
 }
 
-/// The numerical stack: Python environments, native libraries, GPU. With `RUNPRINT_TIMINGS`
-/// set, each part's duration goes to stderr (used by `benches/stack.sh`).
+/// The numerical stack: Python environments, native libraries, GPU. The Python and native
+/// parts come from [`stack_cache`] when nothing they read has changed since the last stamp.
+/// With `RUNPRINT_TIMINGS` set, each part's duration goes to stderr (used by
+/// `benches/stack.sh`).
 fn stamp_stack(opts: &StampOptions, content: &mut Content, warnings: &mut Vec<String>) {
     let timings = opts.env.contains_key("RUNPRINT_TIMINGS");
     let start = std::time::Instant::now();
@@ -177,37 +181,78 @@ fn stamp_stack(opts: &StampOptions, content: &mut Content, warnings: &mut Vec<St
     } else {
         (opts.python.clone(), true)
     };
-    let mut scans = Vec::new();
-    for interpreter in &interpreters {
-        match python::collect(interpreter, &opts.env, opts.private, warnings) {
-            Ok(scan) => scans.push(scan),
-            // A default interpreter that cannot be read is not worth a warning; a named one is.
-            Err(e) if explicit => warnings.push(format!("python: {e}")),
-            Err(_) => {}
-        }
-    }
-    content.python = scans.iter().map(|s| s.env.clone()).collect();
-    let python_done = std::time::Instant::now();
-    content.native = native::collect(
-        &scans,
-        &opts.env,
-        opts.private,
-        &native::SystemPaths::host(),
-        warnings,
-    );
+    let key = stack_cache::Key::new(&interpreters, explicit, opts.private, &opts.env);
+    let cache_dir = opts.data.cache_dir.as_deref();
+    let cached = cache_dir
+        .filter(|_| !opts.data.rehash)
+        .and_then(|dir| stack_cache::load(dir, &key));
+    let from_cache = cached.is_some();
+    let mut python_done = None;
+    let scanned = cached.unwrap_or_else(|| {
+        stack_cache::scan_and_save(cache_dir, &key, || {
+            let mut w = Vec::new();
+            let mut scans = Vec::new();
+            for interpreter in &interpreters {
+                match python::collect(interpreter, &opts.env, opts.private, &mut w) {
+                    Ok(scan) => scans.push(scan),
+                    // A default interpreter that cannot be read is not worth a warning; a
+                    // named one is.
+                    Err(e) if explicit => w.push(format!("python: {e}")),
+                    Err(_) => {}
+                }
+            }
+            python_done = Some(std::time::Instant::now());
+            let native = native::collect(
+                &scans,
+                &opts.env,
+                opts.private,
+                &native::SystemPaths::host(),
+                &mut w,
+            );
+            stack_cache::Scanned {
+                scans,
+                native,
+                warnings: w,
+            }
+        })
+    });
     let native_done = std::time::Instant::now();
+    warnings.extend(scanned.warnings);
+    content.python = scanned.scans.iter().map(|s| s.env.clone()).collect();
+    content.native = scanned.native;
     content.gpu = Some(gpu::collect(
         &gpu::GpuPaths::host(&opts.env),
-        &scans,
+        &scanned.scans,
         warnings,
     ));
     if timings {
-        eprintln!(
-            "timing: python {:.3} ms, native {:.3} ms, gpu {:.3} ms",
-            (python_done - start).as_secs_f64() * 1e3,
-            (native_done - python_done).as_secs_f64() * 1e3,
-            native_done.elapsed().as_secs_f64() * 1e3
-        );
+        let ms = |d: std::time::Duration| d.as_secs_f64() * 1e3;
+        match python_done {
+            Some(p) => eprintln!(
+                "timing: python {:.3} ms, native {:.3} ms, gpu {:.3} ms",
+                ms(p - start),
+                ms(native_done - p),
+                ms(native_done.elapsed())
+            ),
+            None => eprintln!(
+                "timing: python and native {:.3} ms (from the cache: {from_cache}), gpu {:.3} ms",
+                ms(native_done - start),
+                ms(native_done.elapsed())
+            ),
+        }
+    }
+}
+
+/// Lets the numerical-stack thread yield the CPU to git's status, which is the longest step
+/// and runs at the same time: on a machine with few cores the two compete, and the stack
+/// (usually a cache check) has the rest of the status's duration to finish in. Linux gives
+/// each thread its own nice value (setpriority(2), "a thread ID"); elsewhere nothing changes.
+fn lower_this_threads_priority() {
+    #[cfg(target_os = "linux")]
+    // SAFETY: plain integer arguments; the thread changes only its own nice value.
+    unsafe {
+        let tid = libc::syscall(libc::SYS_gettid) as libc::id_t;
+        libc::setpriority(libc::PRIO_PROCESS, tid, 10);
     }
 }
 
@@ -226,62 +271,92 @@ fn timed<T>(on: bool, name: &str, f: impl FnOnce() -> T) -> T {
 
 /// Runs every collector and builds the manifest. Failures are recorded in `run.warnings`.
 ///
-/// The independent collectors (git status, lockfiles, data digests, the numerical stack) run
-/// concurrently; each keeps its own warnings, merged afterwards in a fixed order so that the
-/// manifest does not depend on scheduling.
+/// The independent collectors run at the same time, each keeping its own warnings, merged
+/// afterwards in a fixed order so that the manifest does not depend on scheduling:
+///
+/// * git's status (a child process) on one thread;
+/// * the numerical stack on another;
+/// * on this one, the data digests, then the lockfiles found among the files in git's index,
+///   while the status is still running. Untracked files come only with the status; when one of
+///   them is a lockfile (or a `Cargo.toml`) the lockfiles are read again from the full list.
 pub fn stamp(opts: &StampOptions) -> Manifest {
     let t = opts.env.contains_key("RUNPRINT_TIMINGS");
     let mut content = Content::default();
-    // git first, then the lockfiles from git's own file list (no second walk of the tree);
-    // meanwhile the data digests and the numerical stack on the other core.
-    let (
-        (git_result, root, (lockfiles, lock_warnings)),
-        ((data, data_warnings), (stack, stack_warnings)),
-    ) = rayon::join(
-        || {
-            let git_result = timed(t, "git", || collect_git_with_timeout(opts));
-            let (root, listed) = match &git_result {
-                Ok(facts) => (
-                    facts.workdir.clone().unwrap_or_else(|| opts.repo.clone()),
-                    facts.files.clone(),
-                ),
-                Err(_) => (opts.repo.clone(), None),
-            };
-            let mut w = Vec::new();
-            let l = if opts.no_lockfiles {
-                Vec::new()
-            } else {
-                timed(t, "lockfiles", || {
-                    lockfiles::collect_with(
-                        &root,
-                        &opts.extra_lockfiles,
-                        opts.data.cache_dir.as_deref(),
-                        listed.as_deref(),
-                        &mut w,
-                    )
-                })
-            };
-            (git_result, root, (l, w))
-        },
-        || {
-            rayon::join(
-                || {
-                    let mut w = Vec::new();
-                    let root = git::workdir(&opts.repo).unwrap_or_else(|| opts.repo.clone());
-                    let d = timed(t, "data", || {
-                        data::collect(&opts.data, &root, opts.private, &mut w)
-                    });
-                    (d, w)
-                },
-                || {
-                    let mut w = Vec::new();
-                    let mut c = Content::default();
-                    stamp_stack(opts, &mut c, &mut w);
-                    (c, w)
-                },
+    let workdir = git::workdir(&opts.repo);
+    let guess_root = workdir.clone().unwrap_or_else(|| opts.repo.clone());
+    let read_lockfiles = |root: &Path, listed: Option<&[String]>| {
+        let mut w = Vec::new();
+        let l = timed(t, "lockfiles", || {
+            lockfiles::collect_with(
+                root,
+                &opts.extra_lockfiles,
+                opts.data.cache_dir.as_deref(),
+                listed,
+                &mut w,
             )
-        },
-    );
+        });
+        (l, w)
+    };
+    let (git_result, (data, data_warnings), early, (stack, stack_warnings)) =
+        std::thread::scope(|s| {
+            let git = s.spawn(|| timed(t, "git", || collect_git_with_timeout(opts)));
+            let stack = s.spawn(|| {
+                lower_this_threads_priority();
+                let mut w = Vec::new();
+                let mut c = Content::default();
+                stamp_stack(opts, &mut c, &mut w);
+                (c, w)
+            });
+            let mut w = Vec::new();
+            let data = timed(t, "data", || {
+                data::collect(&opts.data, &guess_root, opts.private, &mut w)
+            });
+            let early = match &workdir {
+                Some(root) if !opts.no_lockfiles => git::tracked_files(root)
+                    .map(|tracked| (tracked.clone(), read_lockfiles(root, Some(&tracked)))),
+                _ => None,
+            };
+            let stack = stack.join().unwrap_or_else(|_| {
+                (
+                    Content::default(),
+                    vec!["stack: the collector stopped unexpectedly".to_string()],
+                )
+            });
+            let git = git
+                .join()
+                .unwrap_or_else(|_| Err("git: the collector stopped unexpectedly".into()));
+            (git, (data, w), early, stack)
+        });
+    let (root, untracked) = match &git_result {
+        Ok(facts) => (
+            facts.workdir.clone().unwrap_or_else(|| opts.repo.clone()),
+            facts.untracked.as_deref(),
+        ),
+        Err(_) => (opts.repo.clone(), None),
+    };
+    let (lockfiles, lock_warnings) = if opts.no_lockfiles {
+        (Vec::new(), Vec::new())
+    } else {
+        match (early, untracked) {
+            (Some((tracked, early)), Some(untracked)) => {
+                let matters = |f: &String| {
+                    let name = f.rsplit('/').next().unwrap_or(f);
+                    name == "Cargo.toml" || crate::lockfile::Format::detect(name).is_some()
+                };
+                if untracked.iter().any(matters) {
+                    let mut all = tracked;
+                    all.extend(untracked.iter().cloned());
+                    all.sort();
+                    all.dedup();
+                    read_lockfiles(&root, Some(&all))
+                } else {
+                    early
+                }
+            }
+            // No status (git failed or is missing): walk the folders.
+            _ => read_lockfiles(&root, None),
+        }
+    };
 
     let mut warnings = Vec::new();
     match git_result {

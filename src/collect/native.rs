@@ -13,6 +13,7 @@
 //! `OPENBLAS_CORETYPE` forces one, the kernel family it will use. The variables themselves
 //! and the CPU count are in the `env` and `cpu` sections.
 
+use crate::collect::fsdeps;
 use std::collections::{BTreeMap, BTreeSet};
 use std::path::{Path, PathBuf};
 
@@ -50,7 +51,7 @@ impl SystemPaths {
 
 /// A memory-mapped file.
 fn map(path: &Path) -> std::io::Result<memmap2::Mmap> {
-    let f = std::fs::File::open(path)?;
+    let f = fsdeps::open(path)?;
     // SAFETY: the map is read-only and only lives while one file is examined; a file that is
     // truncated meanwhile by another process could fault, which is the accepted risk of every
     // tool that maps binaries (readelf, ldd's helpers).
@@ -76,7 +77,7 @@ pub fn collect(
     let cache: BTreeMap<String, String> = system
         .ld_cache
         .as_ref()
-        .and_then(|p| std::fs::read(p).ok())
+        .and_then(|p| fsdeps::read(p).ok())
         .and_then(|d| ldcache::parse(&d).ok())
         .map(|pairs| pairs.into_iter().rev().collect())
         .unwrap_or_default();
@@ -100,7 +101,7 @@ pub fn collect(
         let mut owned: BTreeMap<PathBuf, (String, String)> = BTreeMap::new();
         for f in &scan.files {
             for rel in &f.compiled {
-                if let Ok(real) = std::fs::canonicalize(f.site.join(rel)) {
+                if let Ok(real) = fsdeps::canonicalize(f.site.join(rel)) {
                     owned
                         .entry(real)
                         .or_insert((f.name.clone(), normalize_rel(rel)));
@@ -196,7 +197,7 @@ pub fn collect(
         }));
     }
     for p in system_files {
-        let Ok(real) = std::fs::canonicalize(&p) else {
+        let Ok(real) = fsdeps::canonicalize(&p) else {
             continue;
         };
         let file = real.file_name().unwrap_or_default().to_string_lossy();
@@ -287,7 +288,7 @@ fn system_path(p: &Path, private: bool) -> String {
 }
 
 fn list_dir(dir: &Path) -> Vec<PathBuf> {
-    let mut out: Vec<PathBuf> = std::fs::read_dir(dir)
+    let mut out: Vec<PathBuf> = fsdeps::read_dir(dir)
         .into_iter()
         .flatten()
         .flatten()
@@ -301,13 +302,13 @@ fn list_dir(dir: &Path) -> Vec<PathBuf> {
             ["openblas", "blis", "atlas", "blas", "lapack"]
                 .iter()
                 .any(|k| n.starts_with(k))
-                && p.is_dir()
+                && fsdeps::is_dir(p)
         })
         .cloned()
         .collect();
     for d in subdirs {
         out.extend(
-            std::fs::read_dir(d)
+            fsdeps::read_dir(d)
                 .into_iter()
                 .flatten()
                 .flatten()
@@ -321,7 +322,7 @@ fn classified_files(dir: &Path) -> Vec<(PathBuf, Role, &'static str)> {
     list_dir(dir)
         .into_iter()
         .filter_map(|p| {
-            let real = std::fs::canonicalize(&p).ok()?;
+            let real = fsdeps::canonicalize(&p).ok()?;
             let n = real.file_name()?.to_string_lossy().into_owned();
             if !n.contains(".so") && !n.ends_with(".dylib") {
                 return None;
@@ -344,7 +345,7 @@ fn resolve(
     dirs: &[PathBuf],
 ) -> Option<PathBuf> {
     if needed.contains('/') {
-        return std::fs::canonicalize(needed).ok();
+        return fsdeps::canonicalize(needed).ok();
     }
     let origin_s = origin.to_string_lossy();
     for entry in dynamic.rpath.iter().chain(&dynamic.runpath) {
@@ -352,17 +353,17 @@ fn resolve(
             .replace("$ORIGIN", &origin_s)
             .replace("${ORIGIN}", &origin_s);
         let p = Path::new(&dir).join(needed);
-        if p.exists() {
-            return std::fs::canonicalize(p).ok();
+        if fsdeps::exists(&p) {
+            return fsdeps::canonicalize(p).ok();
         }
     }
     if let Some(p) = cache.get(needed) {
-        return std::fs::canonicalize(p).ok();
+        return fsdeps::canonicalize(p).ok();
     }
     dirs.iter()
         .map(|d| d.join(needed))
-        .find(|p| p.exists())
-        .and_then(|p| std::fs::canonicalize(p).ok())
+        .find(|p| fsdeps::exists(p))
+        .and_then(|p| fsdeps::canonicalize(p).ok())
 }
 
 /// Reads one library's facts.

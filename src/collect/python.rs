@@ -12,6 +12,7 @@
 //! then scanned as `importlib.metadata` does: `*.dist-info` and `*.egg-info` entries directly
 //! inside each folder, plus folders added by `.pth` path lines and `PYTHONPATH`.
 
+use crate::collect::fsdeps;
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 use std::process::Command;
@@ -25,7 +26,7 @@ use crate::stack::python::{
 };
 
 /// Compiled files of one distribution, for the native-library collector.
-#[derive(Debug, Clone)]
+#[derive(Debug, Clone, serde::Serialize, serde::Deserialize)]
 pub struct DistFiles {
     /// Normalized distribution name.
     pub name: String,
@@ -36,7 +37,7 @@ pub struct DistFiles {
 }
 
 /// What the Python collector found, with the absolute paths the other collectors need.
-#[derive(Debug, Clone, Default)]
+#[derive(Debug, Clone, Default, serde::Serialize, serde::Deserialize)]
 pub struct PythonScan {
     /// The manifest section.
     pub env: PythonEnv,
@@ -71,7 +72,7 @@ pub fn default_interpreter(env: &BTreeMap<String, String>) -> Option<PathBuf> {
         if let Some(prefix) = env.get(var).filter(|v| !v.is_empty()) {
             for name in ["bin/python", "bin/python3", "python.exe"] {
                 let p = Path::new(prefix).join(name);
-                if p.exists() {
+                if fsdeps::exists(&p) {
                     return Some(p);
                 }
             }
@@ -85,7 +86,7 @@ pub fn which(name: &str, env: &BTreeMap<String, String>) -> Option<PathBuf> {
     let path = env.get("PATH")?;
     std::env::split_paths(path)
         .map(|d| d.join(name))
-        .find(|p| p.is_file())
+        .find(|p| fsdeps::is_file(p))
 }
 
 /// Finds version, implementation and folders of an interpreter.
@@ -95,7 +96,7 @@ pub fn locate(interpreter: &Path, env: &BTreeMap<String, String>) -> Result<Loca
     } else {
         interpreter.to_path_buf()
     };
-    if !interpreter.exists() {
+    if !fsdeps::exists(&interpreter) {
         return Err(format!("`{}` does not exist", interpreter.display()));
     }
     let interpreter = resolve_pyenv_shim(&interpreter, env).unwrap_or(interpreter);
@@ -128,11 +129,11 @@ fn resolve_pyenv_shim(interpreter: &Path, env: &BTreeMap<String, String>) -> Opt
         .or_else(|| {
             let cwd = std::env::current_dir().ok()?;
             cwd.ancestors()
-                .find_map(|d| std::fs::read_to_string(d.join(".python-version")).ok())
+                .find_map(|d| fsdeps::read_to_string(d.join(".python-version")).ok())
                 .and_then(|t| first_word(&t))
         })
         .or_else(|| {
-            std::fs::read_to_string(root.join("version"))
+            fsdeps::read_to_string(root.join("version"))
                 .ok()
                 .and_then(|t| first_word(&t))
         })?;
@@ -144,7 +145,7 @@ fn resolve_pyenv_shim(interpreter: &Path, env: &BTreeMap<String, String>) -> Opt
         .join(&version)
         .join("bin")
         .join(interpreter.file_name()?);
-    real.is_file().then_some(real)
+    fsdeps::is_file(&real).then_some(real)
 }
 
 /// A CPython installed under its own prefix (`<prefix>/bin/python3.X` with the standard library
@@ -158,11 +159,11 @@ fn locate_prefix_install(interpreter: &Path, env: &BTreeMap<String, String>) -> 
         return None;
     }
     let (mm, lib) = lib_python_dirs(&prefix).pop()?;
-    if !lib.join("os.py").is_file() {
+    if !fsdeps::is_file(lib.join("os.py")) {
         return None;
     }
     // The full version from the installed header (`#define PY_VERSION "3.11.7"`).
-    let version = std::fs::read_to_string(
+    let version = fsdeps::read_to_string(
         prefix
             .join("include")
             .join(format!("python{mm}"))
@@ -197,13 +198,13 @@ fn locate_prefix_install(interpreter: &Path, env: &BTreeMap<String, String>) -> 
         implementation: implementation_of(interpreter),
         version: Some(version),
         prefix: Some(prefix),
-        sites: sites.into_iter().filter(|s| s.is_dir()).collect(),
+        sites: sites.into_iter().filter(|s| fsdeps::is_dir(s)).collect(),
     })
 }
 
 /// `<prefix>/lib/python<X.Y>` folders under a prefix, newest last.
 fn lib_python_dirs(prefix: &Path) -> Vec<(String, PathBuf)> {
-    let mut out: Vec<(String, PathBuf)> = std::fs::read_dir(prefix.join("lib"))
+    let mut out: Vec<(String, PathBuf)> = fsdeps::read_dir(prefix.join("lib"))
         .into_iter()
         .flatten()
         .flatten()
@@ -224,7 +225,7 @@ fn major_minor(version: &str) -> String {
 
 /// The implementation, from the name of the real executable (`pypy3.10`, `python3.11`).
 fn implementation_of(executable: &Path) -> Option<String> {
-    let real = std::fs::canonicalize(executable).ok()?;
+    let real = fsdeps::canonicalize(executable).ok()?;
     let name = real.file_name()?.to_string_lossy().to_ascii_lowercase();
     if name.starts_with("pypy") {
         Some("pypy".into())
@@ -240,7 +241,7 @@ fn implementation_of(executable: &Path) -> Option<String> {
 fn locate_static(interpreter: &Path) -> Option<Located> {
     let prefix = interpreter.parent()?.parent()?.to_path_buf();
     let cfg_path = prefix.join("pyvenv.cfg");
-    if let Ok(text) = std::fs::read_to_string(&cfg_path) {
+    if let Ok(text) = fsdeps::read_to_string(&cfg_path) {
         let cfg = parse_pyvenv_cfg(&text);
         let version = cfg
             .get("version")
@@ -264,7 +265,7 @@ fn locate_static(interpreter: &Path) -> Option<Located> {
             // Base interpreters with distribution-specific folders need asking.
             let base = home.as_ref()?.parent()?.to_path_buf();
             let base_site = site_of(&base)?;
-            if !base_site.is_dir() {
+            if !fsdeps::is_dir(&base_site) {
                 return None;
             }
             sites.push(base_site);
@@ -278,11 +279,11 @@ fn locate_static(interpreter: &Path) -> Option<Located> {
             implementation,
             version: version.or(mm),
             prefix: Some(prefix),
-            sites: sites.into_iter().filter(|s| s.is_dir()).collect(),
+            sites: sites.into_iter().filter(|s| fsdeps::is_dir(s)).collect(),
         });
     }
-    if prefix.join("conda-meta").is_dir() {
-        let version = std::fs::read_dir(prefix.join("conda-meta"))
+    if fsdeps::is_dir(prefix.join("conda-meta")) {
+        let version = fsdeps::read_dir(prefix.join("conda-meta"))
             .ok()?
             .flatten()
             .find_map(|e| {
@@ -303,7 +304,7 @@ fn locate_static(interpreter: &Path) -> Option<Located> {
             prefix: Some(prefix),
             sites: vec![dir.join("site-packages")]
                 .into_iter()
-                .filter(|s| s.is_dir())
+                .filter(|s| fsdeps::is_dir(s))
                 .collect(),
         });
     }
@@ -336,7 +337,7 @@ fn ask_interpreter(interpreter: &Path) -> Result<Located, String> {
     let s = |k: &str| v.get(k).and_then(|x| x.as_str()).map(str::to_string);
     let prefix = s("prefix").map(PathBuf::from);
     let kind = match (&prefix, s("base")) {
-        (Some(p), _) if p.join("conda-meta").is_dir() => "conda",
+        (Some(p), _) if fsdeps::is_dir(p.join("conda-meta")) => "conda",
         (Some(p), Some(b)) if p != Path::new(&b) => "venv",
         _ => "system",
     };
@@ -352,7 +353,7 @@ fn ask_interpreter(interpreter: &Path) -> Result<Located, String> {
             .flatten()
             .filter_map(|p| p.as_str())
             .map(PathBuf::from)
-            .filter(|p| p.is_dir())
+            .filter(|p| fsdeps::is_dir(p))
             .collect(),
     })
 }
@@ -363,7 +364,7 @@ fn with_pth_paths(sites: Vec<PathBuf>) -> Vec<PathBuf> {
     let mut out = Vec::new();
     for site in sites {
         let mut extra = Vec::new();
-        let mut pths: Vec<PathBuf> = std::fs::read_dir(&site)
+        let mut pths: Vec<PathBuf> = fsdeps::read_dir(&site)
             .into_iter()
             .flatten()
             .flatten()
@@ -372,7 +373,7 @@ fn with_pth_paths(sites: Vec<PathBuf>) -> Vec<PathBuf> {
             .collect();
         pths.sort();
         for pth in pths {
-            let Ok(text) = std::fs::read_to_string(&pth) else {
+            let Ok(text) = fsdeps::read_to_string(&pth) else {
                 continue;
             };
             for line in text.lines() {
@@ -381,7 +382,7 @@ fn with_pth_paths(sites: Vec<PathBuf>) -> Vec<PathBuf> {
                     continue;
                 }
                 let dir = site.join(line);
-                if dir.is_dir() {
+                if fsdeps::is_dir(&dir) {
                     extra.push(dir);
                 }
             }
@@ -403,7 +404,7 @@ fn read_distribution(
 ) -> Option<(Distribution, DistFiles)> {
     let name = entry.file_name()?.to_string_lossy().into_owned();
     let is_dist_info = name.ends_with(".dist-info");
-    let meta_path = if entry.is_dir() {
+    let meta_path = if fsdeps::is_dir(entry) {
         entry.join(if is_dist_info { "METADATA" } else { "PKG-INFO" })
     } else {
         entry.to_path_buf()
@@ -433,13 +434,13 @@ fn read_distribution(
         site: site.to_path_buf(),
         compiled: Vec::new(),
     };
-    if entry.is_dir() {
-        d.installer = std::fs::read_to_string(entry.join("INSTALLER"))
+    if fsdeps::is_dir(entry) {
+        d.installer = fsdeps::read_to_string(entry.join("INSTALLER"))
             .ok()
             .map(|s| s.trim().to_string())
             .filter(|s| !s.is_empty());
         let direct = entry.join("direct_url.json");
-        if let Ok(text) = std::fs::read_to_string(&direct) {
+        if let Ok(text) = fsdeps::read_to_string(&direct) {
             match parse_direct_url(&text, &direct.display().to_string()) {
                 Ok(u) => {
                     d.editable = u.editable;
@@ -455,11 +456,11 @@ fn read_distribution(
         // A wheel whose every tag is for any platform (`py3-none-any`; PEP 425 tags in the
         // `WHEEL` file, PEP 427) holds no compiled code, so its RECORD, which can run to
         // hundreds of kilobytes, need not be read.
-        let pure = std::fs::read_to_string(entry.join("WHEEL"))
+        let pure = fsdeps::read_to_string(entry.join("WHEEL"))
             .ok()
             .is_some_and(|w| is_pure_wheel(&w));
         if !pure {
-            if let Ok(record) = std::fs::read_to_string(entry.join("RECORD")) {
+            if let Ok(record) = fsdeps::read_to_string(entry.join("RECORD")) {
                 files.compiled = record_compiled_paths(&record);
                 files.compiled.sort();
             }
@@ -472,7 +473,7 @@ fn read_distribution(
 /// The metadata headers: the file up to its first blank line (descriptions can be long).
 fn read_head(path: &Path) -> std::io::Result<String> {
     use std::io::Read;
-    let mut f = std::fs::File::open(path)?;
+    let mut f = fsdeps::open(path)?;
     let mut buf = vec![0u8; 8192];
     let mut len = 0;
     loop {
@@ -498,7 +499,11 @@ pub fn collect(
     let located = locate(interpreter, env)?;
     let mut sites: Vec<PathBuf> = env
         .get("PYTHONPATH")
-        .map(|p| std::env::split_paths(p).filter(|d| d.is_dir()).collect())
+        .map(|p| {
+            std::env::split_paths(p)
+                .filter(|d| fsdeps::is_dir(d))
+                .collect()
+        })
         .unwrap_or_default();
     sites.extend(located.sites.iter().cloned());
     let sites = with_pth_paths(sites);
@@ -506,7 +511,7 @@ pub fn collect(
     // Metadata folders of every site, in search order.
     let mut entries: Vec<(&PathBuf, PathBuf)> = Vec::new();
     for site in &sites {
-        let mut found: Vec<PathBuf> = std::fs::read_dir(site)
+        let mut found: Vec<PathBuf> = fsdeps::read_dir(site)
             .into_iter()
             .flatten()
             .flatten()
@@ -527,17 +532,21 @@ pub fn collect(
         .clamp(2, 8);
     let chunk = entries.len().div_ceil(threads).max(1);
     type Found = (Vec<(Distribution, DistFiles)>, Vec<String>);
+    let recorder = fsdeps::current();
     let results: Vec<Found> = std::thread::scope(|s| {
         let handles: Vec<_> = entries
             .chunks(chunk)
             .map(|part| {
+                let recorder = recorder.clone();
                 s.spawn(move || {
-                    let mut w = Vec::new();
-                    let found: Vec<_> = part
-                        .iter()
-                        .filter_map(|(site, e)| read_distribution(site, e, private, &mut w))
-                        .collect();
-                    (found, w)
+                    fsdeps::inherit(recorder, || {
+                        let mut w = Vec::new();
+                        let found: Vec<_> = part
+                            .iter()
+                            .filter_map(|(site, e)| read_distribution(site, e, private, &mut w))
+                            .collect();
+                        (found, w)
+                    })
                 })
             })
             .collect();
@@ -591,7 +600,7 @@ pub fn collect(
 }
 
 fn conda_packages(dir: &Path, warnings: &mut Vec<String>) -> Vec<CondaPackage> {
-    let mut out: Vec<CondaPackage> = std::fs::read_dir(dir)
+    let mut out: Vec<CondaPackage> = fsdeps::read_dir(dir)
         .into_iter()
         .flatten()
         .flatten()
@@ -599,7 +608,7 @@ fn conda_packages(dir: &Path, warnings: &mut Vec<String>) -> Vec<CondaPackage> {
         .filter(|p| p.extension().is_some_and(|x| x == "json"))
         .filter_map(|p| {
             let shown = p.display().to_string();
-            let text = std::fs::read_to_string(&p)
+            let text = fsdeps::read_to_string(&p)
                 .map_err(|e| warnings.push(format!("python: cannot read `{shown}`: {e}")))
                 .ok()?;
             match parse_conda_record(&text, &shown) {
@@ -624,7 +633,7 @@ fn conda_packages(dir: &Path, warnings: &mut Vec<String>) -> Vec<CondaPackage> {
 fn framework_builds(files: &[DistFiles]) -> Vec<FrameworkBuild> {
     let mut out = Vec::new();
     for f in files {
-        let read = |rel: &str| std::fs::read_to_string(f.site.join(rel)).ok();
+        let read = |rel: &str| fsdeps::read_to_string(f.site.join(rel)).ok();
         match f.name.as_str() {
             "torch" => {
                 if let Some(t) = read("torch/version.py") {
