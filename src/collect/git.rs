@@ -68,11 +68,16 @@ impl GitControl {
 
 /// Reads the repository that contains `dir`. A folder outside any repository gives
 /// `present = false`; other failures are returned as a message for the warnings.
-pub fn collect(dir: &Path, private: bool, control: &GitControl) -> Result<GitFacts, String> {
-    // The status takes longest, so it starts first and runs while the repository is opened
-    // and HEAD is read here. git finds the repository from any folder inside it, and its
-    // porcelain paths are relative to the work tree's root wherever it runs (git-status(1)).
-    let started = start_git_status(dir, control);
+///
+/// `started` is the `git status` that [`start_status`] started for `dir` with the same
+/// `control`: it takes longest, so the caller starts it before anything else and it runs
+/// while the repository is opened and HEAD is read here.
+pub fn collect(
+    dir: &Path,
+    private: bool,
+    control: &GitControl,
+    started: Started,
+) -> Result<GitFacts, String> {
     let repo = match Repository::discover(dir) {
         Ok(r) => r,
         Err(e) if e.code() == git2::ErrorCode::NotFound => {
@@ -185,10 +190,14 @@ struct StatusEntry {
 /// Status from the `git` executable when it is on PATH: `git status --porcelain -z`, with
 /// optional locks off so the index is never rewritten under a running job. git's own status is
 /// faster than libgit2's on large trees (its untracked cache and parallel index refresh).
-/// [`start_git_status`] starts it (`Ok(None)` when there is no `git` to run: libgit2 takes
+/// [`start_status`] starts it (`Ok(None)` when there is no `git` to run: libgit2 takes
 /// over) and [`finish_git_status`] reads its answer: an error with git's own message when it
 /// fails (a damaged object, a repository owned by another user) or is stopped.
-fn start_git_status(dir: &Path, control: &GitControl) -> Result<Option<RunningStatus>, String> {
+///
+/// git finds the repository from any folder inside it, and its porcelain paths are relative to
+/// the work tree's root wherever it runs (git-status(1)), so it can start before the
+/// repository is opened.
+pub fn start_status(dir: &Path, control: &GitControl) -> Started {
     use std::process::{Command, Stdio};
     let mut cmd = Command::new("git");
     cmd.args([
@@ -226,7 +235,7 @@ fn start_git_status(dir: &Path, control: &GitControl) -> Result<Option<RunningSt
 }
 
 /// Ends a started `git status` whose answer is no longer wanted.
-fn abandon_git_status(control: &GitControl) {
+pub fn abandon_git_status(control: &GitControl) {
     let child = control
         .child
         .lock()
@@ -238,8 +247,11 @@ fn abandon_git_status(control: &GitControl) {
     }
 }
 
-/// A `git status` started by [`start_git_status`].
-struct RunningStatus {
+/// What [`start_status`] gives [`collect`].
+pub type Started = Result<Option<RunningStatus>, String>;
+
+/// A `git status` started by [`start_status`].
+pub struct RunningStatus {
     stdout: std::process::ChildStdout,
     stderr: std::process::ChildStderr,
 }

@@ -94,7 +94,11 @@ static STUCK_GIT: std::sync::Mutex<std::collections::BTreeSet<PathBuf>> =
 ///   reader spin, see `tests/fs_traps.rs`) and a thread cannot be killed: after the timeout the
 ///   git section is left empty with a warning, the repository is remembered, and later stamps
 ///   of it in this process return that warning at once instead of starting another thread.
-fn collect_git_with_timeout(opts: &StampOptions) -> Result<git::GitFacts, String> {
+fn collect_git_with_timeout(
+    opts: &StampOptions,
+    control: std::sync::Arc<git::GitControl>,
+    started: git::Started,
+) -> Result<git::GitFacts, String> {
     let secs = opts
         .env
         .get(GIT_TIMEOUT_VAR)
@@ -104,6 +108,8 @@ fn collect_git_with_timeout(opts: &StampOptions) -> Result<git::GitFacts, String
     let key = std::fs::canonicalize(&opts.repo).unwrap_or_else(|_| opts.repo.clone());
     let stuck = || STUCK_GIT.lock().unwrap_or_else(|e| e.into_inner());
     if stuck().contains(&key) {
+        drop(started);
+        git::abandon_git_status(&control);
         return Err(format!(
             "git: an earlier reading of the repository at `{}` has not finished (a damaged \
              object can make the git library loop; `git fsck` checks the repository); git \
@@ -111,7 +117,6 @@ fn collect_git_with_timeout(opts: &StampOptions) -> Result<git::GitFacts, String
             opts.repo.display()
         ));
     }
-    let control = std::sync::Arc::new(git::GitControl::new(opts.env.get("PATH").cloned()));
     let (tx, rx) = std::sync::mpsc::channel();
     // Set by the thread when it ends, under the STUCK_GIT lock, so that the watchdog never
     // marks as stuck a thread that has just finished.
@@ -123,10 +128,18 @@ fn collect_git_with_timeout(opts: &StampOptions) -> Result<git::GitFacts, String
         key.clone(),
         finished.clone(),
     );
+    // The status moves into the thread; if the thread cannot start, it comes back here.
+    let started = std::sync::Arc::new(std::sync::Mutex::new(Some(started)));
+    let mine = started.clone();
     let spawned = std::thread::Builder::new()
         .name("runprint-git".into())
         .spawn(move || {
-            let result = git::collect(&repo, private, &ctl);
+            let started = mine
+                .lock()
+                .unwrap_or_else(|e| e.into_inner())
+                .take()
+                .unwrap_or(Ok(None));
+            let result = git::collect(&repo, private, &ctl, started);
             let mut stuck = STUCK_GIT.lock().unwrap_or_else(|e| e.into_inner());
             done.store(true, std::sync::atomic::Ordering::SeqCst);
             stuck.remove(&done_key);
@@ -134,7 +147,12 @@ fn collect_git_with_timeout(opts: &StampOptions) -> Result<git::GitFacts, String
             let _ = tx.send(result);
         });
     if spawned.is_err() {
-        return git::collect(&opts.repo, opts.private, &control);
+        let started = started
+            .lock()
+            .unwrap_or_else(|e| e.into_inner())
+            .take()
+            .unwrap_or(Ok(None));
+        return git::collect(&opts.repo, opts.private, &control, started);
     }
     let timeout = |what: &str| {
         format!(
@@ -297,9 +315,16 @@ pub fn stamp(opts: &StampOptions) -> Manifest {
         });
         (l, w)
     };
+    // git's status takes longest: it starts before anything else.
+    let control = std::sync::Arc::new(git::GitControl::new(opts.env.get("PATH").cloned()));
+    let started = git::start_status(&opts.repo, &control);
     let (git_result, (data, data_warnings), early, (stack, stack_warnings)) =
         std::thread::scope(|s| {
-            let git = s.spawn(|| timed(t, "git", || collect_git_with_timeout(opts)));
+            let git = s.spawn(|| {
+                timed(t, "git", || {
+                    collect_git_with_timeout(opts, control, started)
+                })
+            });
             let stack = s.spawn(|| {
                 lower_this_threads_priority();
                 let mut w = Vec::new();
