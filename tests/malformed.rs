@@ -6,7 +6,8 @@
 //! * `good/`: must parse, with the same packages as the seed;
 //! * `bad/`: must be refused with an error naming the file (and its line for syntax errors);
 //!   `diff` exits 2 on a bad manifest, `stamp` records a warning and still writes the rest;
-//! * `lenient/`: damage that cannot be told from valid input; must not panic.
+//! * `lenient/`: damage that cannot be told from valid input; must not panic, and like every
+//!   input that parses, must not yield a package without a name.
 //!
 //! A panic or a stack overflow anywhere fails the test binary.
 
@@ -112,6 +113,12 @@ fn lockfile_corpus_parses_good_refuses_bad_and_never_panics() {
         let bytes = std::fs::read(&path).unwrap();
         let shown = format!("corpus/{format}/{case}");
         let result = parse_lockfile(&format, &bytes, &shown);
+        // Whatever parses names every package (the fuzz targets' invariant, fuzz/src/lib.rs).
+        if let Ok(parsed) = &result {
+            if let Some(p) = parsed.packages.iter().find(|p| p.name.is_empty()) {
+                failures.push(format!("{shown}: a package without a name: {p:?}"));
+            }
+        }
         match (kind.as_str(), &result) {
             ("good", Ok(parsed)) => {
                 let seed = std::fs::read(path.with_file_name("seed")).unwrap();

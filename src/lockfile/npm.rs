@@ -129,13 +129,13 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
         ));
     }
     let mut packages = match (&lock.packages, &lock.dependencies) {
-        (Some(map), _) if version != Some(1) => from_packages(map),
+        (Some(map), _) if version != Some(1) => from_packages(map, path, &mut warnings),
         (_, Some(tree)) => {
             let mut out = Vec::new();
             walk_tree(tree, &mut out);
             out
         }
-        (Some(map), None) => from_packages(map),
+        (Some(map), None) => from_packages(map, path, &mut warnings),
         (None, None) => {
             return Err(LockfileError::at(
                 path,
@@ -154,7 +154,11 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
 }
 
 /// Reads the `packages` map of a version 2 or 3 file.
-fn from_packages(map: &BTreeMap<String, JsonPackage>) -> Vec<Package> {
+fn from_packages(
+    map: &BTreeMap<String, JsonPackage>,
+    path: &str,
+    warnings: &mut Vec<String>,
+) -> Vec<Package> {
     // Names that the project or a workspace member asks for by name, dependencies of any kind.
     let mut wanted: BTreeSet<&str> = BTreeSet::new();
     for (key, p) in map {
@@ -179,6 +183,14 @@ fn from_packages(map: &BTreeMap<String, JsonPackage>) -> Vec<Package> {
             None => (key.rsplit('/').next().unwrap_or(key), None),
         };
         let name = p.name.clone().unwrap_or_else(|| install_name.to_string());
+        // npm writes every key as a folder path with a last part (common practice: `npm`
+        // never ends a key with `/`); one that names nothing is damage, not a package.
+        if name.is_empty() {
+            warnings.push(format!(
+                "`{path}`: `packages` key `{key}` names no package; skipped"
+            ));
+            continue;
+        }
         let source = match parent {
             // A workspace member or a local folder dependency.
             None => Some(format!("path+{key}")),
