@@ -34,6 +34,13 @@ fn stamp(python: &Path, cache: &Path, env: &[(&str, &str)]) -> (Manifest, bool) 
     let stderr = String::from_utf8_lossy(&result.stderr);
     assert!(result.status.success(), "{stderr}");
     let from_cache = stderr.contains("(from the cache: true)");
+    // With --quiet, only the requested timings and the closing line reach stderr.
+    for line in stderr.lines() {
+        assert!(
+            line.starts_with("timing:") || line.starts_with("stamped "),
+            "unexpected stderr line: {line}"
+        );
+    }
     (Manifest::load(&out).unwrap(), from_cache)
 }
 
