@@ -348,11 +348,19 @@ def main():
         doc = ROOT / "docs" / "performance.md"
         body = doc.read_text() if doc.exists() else "# Performance\n"
         marker = "## Stamping and diffing"
-        body = body.split(marker)[0].rstrip() + "\n\n" + marker + "\n\n" + (
+        before, _, after = body.partition(marker)
+        # Keep what follows the table: its notes and the later sections.
+        rest = ""
+        for start in ("\nNotes on this table", "\n## "):
+            i = after.find(start)
+            if i >= 0:
+                rest = after[i:]
+                break
+        body = before.rstrip() + "\n\n" + marker + "\n\n" + (
             "Measured by `python3 benches/perf.py" + (" --quick" if args.quick else "") + "` on "
             + time.strftime("%Y-%m-%d") + f" ({os.cpu_count()} cores, load average {load:.1f} at the end). "
             "Each row's result is a ratio against a baseline timed in the same run; medians of 3 to 7 runs.\n\n"
-            + text + "\n")
+            + text + "\n" + rest)
         doc.write_text(body)
 
 

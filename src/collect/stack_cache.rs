@@ -5,8 +5,8 @@
 //! [`fsdeps`], which notes every path it reads, lists or resolves. The cache keeps the result
 //! with the metadata of each of those paths (size, times, inode: [`crate::cache::FileStamp`])
 //! and a key of everything else the scan depends on: the interpreters asked for, `--private`,
-//! the working folder, the environment variables the collectors read, and the runprint build
-//! itself. A later stamp with the same key whose paths all look the same takes the result from
+//! the working folder, the environment variables the collectors read, the runprint build
+//! itself and the host. A later stamp with the same key whose paths all look the same takes the result from
 //! the cache; anything else scans again. A file changed within two seconds of the scan is not
 //! trusted (see [`fsdeps::Dependencies::snapshot`]), so no cached result is ever saved from a
 //! half-finished installation.
@@ -58,6 +58,9 @@ pub struct Key {
     pub env: BTreeMap<String, String>,
     /// The program doing the scan: a different build may scan differently.
     pub program: Option<FileStamp>,
+    /// SHA-256 of the host name: nodes sharing a home folder (and so a cache folder) keep
+    /// one cache file each instead of replacing each other's.
+    pub host: Option<String>,
     /// One of those variables looks like it holds a credential (`crate::redact`): the scan
     /// then probes paths cut from it (PYTHONPATH is split at `:`), so it is never cached.
     #[serde(skip)]
@@ -91,6 +94,7 @@ impl Key {
                 .and_then(std::fs::metadata)
                 .ok()
                 .map(|m| FileStamp::of(&m)),
+            host: crate::collect::system::hostname().map(|h| hex(&Sha256::digest(h.as_bytes()))),
         }
     }
 
