@@ -149,7 +149,7 @@ impl Format {
         ) {
             support::check_yaml_depth(text, path)?;
         }
-        match self {
+        let parsed = match self {
             Format::CargoLock => cargo::parse(text, path),
             Format::Requirements => requirements::parse(text, path),
             Format::NpmLock => npm::parse(text, path),
@@ -166,7 +166,8 @@ impl Format {
             Format::PdmLock => pdm::parse(text, path),
             Format::CondaEnvironment => conda::parse_environment(text, path),
             Format::CondaExplicit => conda::parse_explicit(text, path),
-        }
+        };
+        parsed.map(|p| without_nameless(p, path))
     }
 
     /// A second file, in the same folder, that this format reads together with the first:
@@ -187,10 +188,30 @@ impl Format {
         companion: Option<(&str, &str)>,
     ) -> Result<Parsed, LockfileError> {
         match self {
-            Format::GoMod => golang::parse(text, path, companion),
+            Format::GoMod => {
+                golang::parse(text, path, companion).map(|p| without_nameless(p, path))
+            }
             _ => self.parse(text, path),
         }
     }
+}
+
+/// Every format names each package; an entry whose name is empty is damage, whatever the
+/// format (fuzzing found such entries read from `pdm.lock`, `package-lock.json`, conda and
+/// `go.mod` files). It is left out with a warning rather than recorded as a nameless package.
+fn without_nameless(mut parsed: Parsed, path: &str) -> Parsed {
+    let before = parsed.packages.len();
+    parsed.packages.retain(|p| !p.name.trim().is_empty());
+    match before - parsed.packages.len() {
+        0 => {}
+        1 => parsed.warnings.push(format!(
+            "`{path}`: a package entry without a name was skipped"
+        )),
+        n => parsed.warnings.push(format!(
+            "`{path}`: {n} package entries without a name were skipped"
+        )),
+    }
+    parsed
 }
 
 /// A lockfile's bytes as text: UTF-8, with a leading byte-order mark dropped (editors on
