@@ -40,7 +40,7 @@ for _ in $(seq "$RUNS"); do
   ref+=("$(( (e - s) / 1000 ))")
   s=$(date +%s%N)
   # --rehash: the scan itself, not the stack cache (src/collect/stack_cache.rs).
-  line="$(RUNPRINT_TIMINGS=1 "$BIN" stamp --rehash --repo "$REPO" --python "$PY" 2>&1 >/dev/null | grep '^timing:')"
+  line="$(RUNPRINT_TIMINGS=1 "$BIN" stamp --rehash --repo "$REPO" --python "$PY" 2>&1 >/dev/null | grep '^timing: python ')"
   e=$(date +%s%N)
   total+=("$(( (e - s) / 1000 ))")
   py+=("$(echo "$line" | sed -E 's/.*python ([0-9.]+) ms.*/\1/')")
