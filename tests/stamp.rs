@@ -541,20 +541,7 @@ fn status_without_git_on_path_matches_git_status() {
         empty_path.path().to_string_lossy().into_owned(),
     ] {
         let file = out.path().join("m.toml");
-        let result = runprint()
-            .env("PATH", &path_var)
-            .args(["stamp", "--repo"])
-            .arg(repo.path())
-            .arg("--out")
-            .arg(&file)
-            .output()
-            .unwrap();
-        assert!(
-            result.status.success(),
-            "{}",
-            String::from_utf8_lossy(&result.stderr)
-        );
-        let m = runprint::manifest::Manifest::load(&file).unwrap();
+        let m = common::stamp_to(repo.path(), &file, &[("PATH", &path_var)]);
         let got: BTreeSet<String> = m.content.git.changed_paths.iter().cloned().collect();
         assert_eq!(got, expected, "PATH={path_var}");
         // The untracked lockfile is found from git's file list either way.

@@ -197,29 +197,16 @@ impl Dependencies {
     /// result computed from it cannot be trusted to match the metadata (the digest cache's
     /// rule).
     pub fn snapshot(&self, started: SystemTime, package_trees: &[PathBuf]) -> Option<Snapshot> {
+        // Per path: (listed, resolved). A listed folder is always checked by its own metadata.
         let mut by_path: BTreeMap<PathBuf, (bool, bool)> = BTreeMap::new();
         for (path, access) in self.0.lock().unwrap_or_else(|e| e.into_inner()).iter() {
             let e = by_path.entry(path.clone()).or_default();
             match access {
-                Access::Read => e.0 = true,
-                // A listed folder is always checked by its own metadata.
-                Access::List => e.1 = true,
-                Access::Resolve => {}
+                Access::Read => {}
+                Access::List => e.0 = true,
+                Access::Resolve => e.1 = true,
             }
         }
-        for (path, access) in self.0.lock().unwrap_or_else(|e| e.into_inner()).iter() {
-            if *access == Access::Resolve {
-                by_path.entry(path.clone()).or_default();
-            }
-        }
-        let resolved_set: BTreeSet<PathBuf> = self
-            .0
-            .lock()
-            .unwrap_or_else(|e| e.into_inner())
-            .iter()
-            .filter(|(_, a)| *a == Access::Resolve)
-            .map(|(p, _)| p.clone())
-            .collect();
         let limit_ns = started
             .duration_since(SystemTime::UNIX_EPOCH)
             .ok()?
@@ -229,8 +216,7 @@ impl Dependencies {
         let stamp_of = |p: &Path| std::fs::metadata(p).ok().map(|m| tuple(FileStamp::of(&m)));
         let mut folders: BTreeMap<PathBuf, Option<Stamp>> = BTreeMap::new();
         let mut entries = Vec::with_capacity(by_path.len());
-        for (path, (_read, listed)) in by_path {
-            let resolve_used = resolved_set.contains(&path);
+        for (path, (listed, resolve_used)) in by_path {
             // The reference answers, from the standard library; `Snapshot::is_current` gets
             // the same ones with fewer system calls.
             let resolved = resolve_used

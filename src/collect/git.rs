@@ -347,13 +347,9 @@ fn status_with_libgit2(repo: &Repository, root: &Path) -> Result<Vec<StatusEntry
         .collect())
 }
 
-/// Paths of the index's entries (submodule links left out).
-/// The files in the index of the repository that contains `dir` (submodules left out),
-/// relative to its work tree, in the index's (sorted) order. Reading the index touches no
-/// object, so a damaged object cannot stall it.
-pub fn tracked_files(dir: &Path) -> Option<Vec<String>> {
-    let repo = Repository::discover(dir).ok()?;
-    repo.workdir()?;
+/// The files in the index (submodules left out), relative to the work tree, in the index's
+/// (sorted) order. Reading the index touches no object, so a damaged object cannot stall it.
+pub fn tracked_files(repo: &Repository) -> Option<Vec<String>> {
     let index = repo.index().ok()?;
     Some(
         index
@@ -470,11 +466,12 @@ fn submodules(repo: &Repository) -> Vec<Submodule> {
     subs
 }
 
-/// The work tree of the repository that contains `dir`, if any.
-pub fn workdir(dir: &Path) -> Option<PathBuf> {
-    Repository::discover(dir)
-        .ok()
-        .and_then(|r| r.workdir().map(Path::to_path_buf))
+/// The work tree that contains `dir`: its root, and the repository opened once (for its
+/// index). `None` outside a repository or in a bare one.
+pub fn work_tree(dir: &Path) -> Option<(PathBuf, Repository)> {
+    let repo = Repository::discover(dir).ok()?;
+    let root = repo.workdir()?.to_path_buf();
+    Some((root, repo))
 }
 
 /// The diff between the trees of two commits, or `None` when either is not in `repo`.

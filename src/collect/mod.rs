@@ -300,8 +300,10 @@ fn timed<T>(on: bool, name: &str, f: impl FnOnce() -> T) -> T {
 pub fn stamp(opts: &StampOptions) -> Manifest {
     let t = opts.env.contains_key("RUNPRINT_TIMINGS");
     let mut content = Content::default();
-    let workdir = git::workdir(&opts.repo);
-    let guess_root = workdir.clone().unwrap_or_else(|| opts.repo.clone());
+    let work_tree = git::work_tree(&opts.repo);
+    let guess_root = work_tree
+        .as_ref()
+        .map_or_else(|| opts.repo.clone(), |(root, _)| root.clone());
     let read_lockfiles = |root: &Path, listed: Option<&[String]>| {
         let mut w = Vec::new();
         let l = timed(t, "lockfiles", || {
@@ -336,8 +338,8 @@ pub fn stamp(opts: &StampOptions) -> Manifest {
             let data = timed(t, "data", || {
                 data::collect(&opts.data, &guess_root, opts.private, &mut w)
             });
-            let early = match &workdir {
-                Some(root) if !opts.no_lockfiles => git::tracked_files(root)
+            let early = match &work_tree {
+                Some((root, repo)) if !opts.no_lockfiles => git::tracked_files(repo)
                     .map(|tracked| (tracked.clone(), read_lockfiles(root, Some(&tracked)))),
                 _ => None,
             };
