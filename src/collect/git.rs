@@ -199,7 +199,14 @@ struct StatusEntry {
 /// repository is opened.
 pub fn start_status(dir: &Path, control: &GitControl) -> Started {
     use std::process::{Command, Stdio};
-    let mut cmd = Command::new("git");
+    let search = control
+        .path_env
+        .clone()
+        .or_else(|| std::env::var("PATH").ok());
+    let Some(program) = find_program("git", search.as_deref(), dir) else {
+        return Ok(None);
+    };
+    let mut cmd = Command::new(program);
     cmd.args([
         "--no-optional-locks",
         "status",
@@ -214,7 +221,7 @@ pub fn start_status(dir: &Path, control: &GitControl) -> Started {
     .stdout(Stdio::piped())
     .stderr(Stdio::piped());
     if let Some(path) = &control.path_env {
-        // Also where the program is looked up (std::process::Command on Unix).
+        // For the programs git itself runs (hooks are not run by status, but helpers may be).
         cmd.env("PATH", path);
     }
     let mut slot = control.child.lock().unwrap_or_else(|e| e.into_inner());
@@ -231,6 +238,41 @@ pub fn start_status(dir: &Path, control: &GitControl) -> Started {
     match pipes {
         (Some(stdout), Some(stderr)) => Ok(Some(RunningStatus { stdout, stderr })),
         _ => Err("cannot read the output of `git`".into()),
+    }
+}
+
+/// The executable `name` in the folders of `path` (a `PATH` value; relative entries, and the
+/// empty one meaning the current folder, are taken from `cwd`, the child's working folder), as
+/// `execvp` would find it. `None` when there is none.
+///
+/// Looked up here rather than by the child: with a program path the standard library starts
+/// the child with `posix_spawn` instead of `fork` (it must fork when the child's `PATH` is
+/// changed and the program is looked up in it), and the child makes one `execve` instead of
+/// one per folder in front of git's.
+fn find_program(name: &str, path: Option<&str>, cwd: &Path) -> Option<PathBuf> {
+    if !cfg!(unix) {
+        // Elsewhere the standard library's own lookup knows the executable suffixes.
+        return Some(PathBuf::from(name));
+    }
+    // Where execvp looks without a PATH (glibc's default).
+    let path = path.unwrap_or("/bin:/usr/bin");
+    std::env::split_paths(path)
+        .map(|d| cwd.join(d).join(name))
+        .find(|p| is_executable_file(p))
+}
+
+fn is_executable_file(path: &Path) -> bool {
+    let Ok(meta) = std::fs::metadata(path) else {
+        return false;
+    };
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::PermissionsExt;
+        meta.is_file() && meta.permissions().mode() & 0o111 != 0
+    }
+    #[cfg(not(unix))]
+    {
+        meta.is_file()
     }
 }
 
@@ -427,7 +469,9 @@ fn content_digest(path: &Path) -> String {
     let Ok(mut file) = std::fs::File::open(path) else {
         return "unreadable".into();
     };
-    let mut buf = vec![0u8; 1 << 16];
+    // On the stack: hundreds of changed files are hashed per stamp, and a fresh heap block
+    // per file made the allocator map, zero and purge tens of megabytes.
+    let mut buf = [0u8; 1 << 14];
     loop {
         match file.read(&mut buf) {
             Ok(0) => break,
@@ -519,4 +563,53 @@ pub fn diff_stats_between(dir: &Path, old: &str, new: &str) -> Option<Vec<FileSt
     }
     out.sort_by(|x, y| x.path.cmp(&y.path));
     Some(out)
+}
+
+#[cfg(all(test, unix))]
+mod tests {
+    use super::*;
+    use std::os::unix::fs::PermissionsExt;
+
+    fn write_program(path: &Path, mode: u32) {
+        std::fs::create_dir_all(path.parent().unwrap()).unwrap();
+        std::fs::write(path, "#!/bin/sh\n").unwrap();
+        std::fs::set_permissions(path, std::fs::Permissions::from_mode(mode)).unwrap();
+    }
+
+    /// The lookup follows execvp(3) (POSIX `exec`: "the path prefix … is obtained by a search of
+    /// the directories passed as the environment variable PATH"; a zero-length prefix is the
+    /// current working directory): the first folder holding an executable file of that name.
+    #[test]
+    fn git_is_found_as_execvp_would_find_it() {
+        let dir = tempfile::tempdir().unwrap();
+        let (a, b, cwd) = (
+            dir.path().join("a"),
+            dir.path().join("b"),
+            dir.path().join("w"),
+        );
+        write_program(&a.join("git"), 0o644); // not executable: skipped
+        write_program(&b.join("git"), 0o755);
+        std::fs::create_dir_all(a.join("dir/git")).unwrap();
+        let path = format!("{}:{}", a.display(), b.display());
+        assert_eq!(find_program("git", Some(&path), &cwd), Some(b.join("git")));
+        // A folder named like the program is not it.
+        let path = format!("{}:{}", a.join("dir").display(), b.display());
+        assert_eq!(find_program("git", Some(&path), &cwd), Some(b.join("git")));
+        // Relative and empty entries are taken from the child's working folder.
+        write_program(&cwd.join("tools/git"), 0o755);
+        assert_eq!(
+            find_program("git", Some("tools"), &cwd),
+            Some(cwd.join("tools/git"))
+        );
+        write_program(&cwd.join("git"), 0o755);
+        assert_eq!(
+            find_program("git", Some(&format!(":{}", b.display())), &cwd)
+                .map(|p| p.canonicalize().unwrap()),
+            Some(cwd.join("git").canonicalize().unwrap())
+        );
+        assert_eq!(
+            find_program("git", Some(&a.display().to_string()), &cwd),
+            None
+        );
+    }
 }
