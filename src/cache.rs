@@ -26,6 +26,31 @@ pub const CACHE_VERSION: u32 = 1;
 const CACHE_KIND: &str = "runprint-digest-cache";
 const CACHE_FILE: &str = "digests-v1.json";
 
+/// The metadata of the running program: a cache written by another build of runprint may
+/// hold results that build computed differently.
+pub fn program_stamp() -> Option<FileStamp> {
+    std::env::current_exe()
+        .and_then(std::fs::metadata)
+        .ok()
+        .map(|m| FileStamp::of(&m))
+}
+
+/// The file `PREFIX-DIGEST.json` in `dir` for the repository whose work tree is at `root` on
+/// this host: one per repository, and one per node where nodes share a home folder (and so a
+/// cache folder), so that they do not replace each other's.
+pub fn per_repository_file(dir: &Path, prefix: &str, root: &Path) -> PathBuf {
+    use sha2::{Digest, Sha256};
+    let root = std::path::absolute(root).unwrap_or_else(|_| root.to_path_buf());
+    let mut key = Sha256::new();
+    key.update(root.to_string_lossy().as_bytes());
+    key.update([0]);
+    if let Some(host) = crate::collect::system::hostname() {
+        key.update(host.as_bytes());
+    }
+    let digest = crate::manifest::hex(&key.finalize());
+    dir.join(format!("{prefix}-{}.json", &digest[..16]))
+}
+
 /// Files changed this recently (nanoseconds) before hashing are not cached.
 pub const RACY_WINDOW_NS: i128 = 2_000_000_000;
 
@@ -45,6 +70,13 @@ pub struct FileStamp {
 }
 
 impl FileStamp {
+    /// Modified, or its status changed, less than [`RACY_WINDOW_NS`] before `started_ns` (or
+    /// later): a result read from the file then cannot be trusted to match this metadata.
+    pub fn is_racy(&self, started_ns: i128) -> bool {
+        let limit = started_ns - RACY_WINDOW_NS;
+        self.mtime_ns >= limit || self.ctime_ns >= limit
+    }
+
     /// Reads a file's stamp from its metadata.
     pub fn of(meta: &std::fs::Metadata) -> FileStamp {
         #[cfg(unix)]

@@ -11,6 +11,7 @@ use std::path::{Path, PathBuf};
 use sha2::{Digest, Sha256};
 
 use crate::collect::cargo_features;
+use crate::collect::lockfile_cache::{self as cache, Inputs, LockfileCache, Outcome};
 use crate::lockfile::{cargo, requirements, Format, Parsed};
 use crate::manifest::{hex, Lockfile};
 
@@ -102,6 +103,30 @@ struct Context<'a> {
     cache_dir: Option<&'a Path>,
 }
 
+impl Context<'_> {
+    /// For a `Cargo.lock`, the `Cargo.toml` files below its folder (they decide its enabled
+    /// features), sorted; empty for other formats.
+    fn manifests_for(&self, lockfile: &Path) -> Vec<PathBuf> {
+        if lockfile
+            .file_name()
+            .and_then(|n| n.to_str())
+            .and_then(Format::detect)
+            != Some(Format::CargoLock)
+        {
+            return Vec::new();
+        }
+        let dir = lockfile.parent().unwrap_or(Path::new("."));
+        let mut under: Vec<PathBuf> = self
+            .cargo_manifests
+            .iter()
+            .filter(|m| m.starts_with(dir))
+            .cloned()
+            .collect();
+        under.sort();
+        under
+    }
+}
+
 /// Reads and parses every lockfile under `root`, plus `extra` files named by the user (which
 /// may lie outside it). Problems are pushed to `warnings`; duplicates are read once.
 pub fn collect(root: &Path, extra: &[PathBuf], warnings: &mut Vec<String>) -> Vec<Lockfile> {
@@ -116,6 +141,20 @@ pub fn collect_with(
     extra: &[PathBuf],
     cache_dir: Option<&Path>,
     listed: Option<&[String]>,
+    warnings: &mut Vec<String>,
+) -> Vec<Lockfile> {
+    let mut cache = LockfileCache::disabled();
+    collect_cached(root, extra, cache_dir, listed, &mut cache, warnings)
+}
+
+/// As [`collect_with`], taking each lockfile's result from `cache` when nothing it was read
+/// from has changed, and keeping the new ones in it.
+pub fn collect_cached(
+    root: &Path,
+    extra: &[PathBuf],
+    cache_dir: Option<&Path>,
+    listed: Option<&[String]>,
+    cache: &mut LockfileCache,
     warnings: &mut Vec<String>,
 ) -> Vec<Lockfile> {
     let (found, cargo_manifests) = match listed {
@@ -144,26 +183,41 @@ pub fn collect_with(
     };
     // Files are read and parsed in parallel; results and warnings keep the files' order.
     use rayon::prelude::*;
-    let results: Vec<(Option<Lockfile>, Vec<String>)> = files
+    let shared: &LockfileCache = cache;
+    let results: Vec<(cache::Result, Outcome)> = files
         .par_iter()
         .map(|(abs, shown)| {
+            let manifests = ctx.manifests_for(abs);
+            if let Some(hit) = shared.lookup(shown, abs, &manifests) {
+                return (hit, Outcome::Reused);
+            }
+            let started = std::time::SystemTime::now();
+            let mut inputs = Inputs {
+                reusable: true,
+                ..Inputs::default()
+            };
             let mut w = Vec::new();
-            (read_one(&ctx, abs, shown, &mut w), w)
+            let result = (read_one(&ctx, abs, shown, &mut inputs, &mut w), w);
+            let entry = LockfileCache::entry(shown, abs, inputs, started, &result);
+            (result, Outcome::Read(entry.map(Box::new)))
         })
         .collect();
     let mut out = Vec::with_capacity(results.len());
-    for (lockfile, mut w) in results {
+    for ((_, shown), ((lockfile, mut w), outcome)) in files.iter().zip(results) {
+        cache.keep(shown, outcome);
         warnings.append(&mut w);
         out.extend(lockfile);
     }
     out
 }
 
-/// Reads and parses one lockfile; `shown` is the path written to the manifest.
+/// Reads and parses one lockfile; `shown` is the path written to the manifest. The other paths
+/// the result depends on are noted in `inputs`.
 fn read_one(
     ctx: &Context,
     abs: &Path,
     shown: &str,
+    inputs: &mut Inputs,
     warnings: &mut Vec<String>,
 ) -> Option<Lockfile> {
     let Some(format) = abs
@@ -179,6 +233,8 @@ fn read_one(
     let bytes = match crate::limits::read_regular_file(abs) {
         Ok(b) => b,
         Err(e) => {
+            // Perhaps passing (permissions, a full disk): read again next time.
+            inputs.reusable = false;
             warnings.push(format!("lockfile `{shown}`: cannot read: {e}"));
             return None;
         }
@@ -193,6 +249,7 @@ fn read_one(
     // A companion file (go.sum beside go.mod) is read with it; its hashes reach the packages.
     let companion = format.companion().and_then(|name| {
         let path = abs.with_file_name(name);
+        inputs.paths.push(path.clone());
         let shown = match shown.rsplit_once('/') {
             Some((dir, _)) => format!("{dir}/{name}"),
             None => name.to_string(),
@@ -223,15 +280,23 @@ fn read_one(
         warnings,
     )?;
     if !parsed.includes.is_empty() {
-        merge_includes(ctx.root, abs, &mut parsed, warnings);
+        merge_includes(ctx.root, abs, &mut parsed, &mut inputs.paths, warnings);
     }
     if format == Format::CargoLock {
+        let beside = abs.with_file_name("Cargo.toml");
+        inputs.paths.push(beside.clone());
+        inputs.manifests = ctx.manifests_for(abs);
         match cargo_features::features(abs, &bytes, &ctx.cargo_manifests, ctx.cache_dir) {
             Ok(Some(map)) => cargo::apply_features(&mut parsed.packages, &map),
-            Ok(None) => {}
-            Err(e) => warnings.push(format!(
-                "lockfile `{shown}`: enabled features not recorded: {e}"
-            )),
+            // No `Cargo.toml`: nothing to ask. With one, `cargo` was missing: it may be
+            // installed by the next stamp.
+            Ok(None) => inputs.reusable &= !beside.is_file(),
+            Err(e) => {
+                inputs.reusable = false;
+                warnings.push(format!(
+                    "lockfile `{shown}`: enabled features not recorded: {e}"
+                ))
+            }
         }
     }
     Some(Lockfile {
@@ -247,7 +312,14 @@ fn read_one(
 /// at most once (so include cycles end), and adds their packages to `parsed`. Entries from
 /// constraints files (`-c`) are marked optional: they pin versions without asking for
 /// installation.
-fn merge_includes(root: &Path, file: &Path, parsed: &mut Parsed, warnings: &mut Vec<String>) {
+/// Every included path looked for is pushed to `read`.
+fn merge_includes(
+    root: &Path,
+    file: &Path,
+    parsed: &mut Parsed,
+    read: &mut Vec<PathBuf>,
+    warnings: &mut Vec<String>,
+) {
     let root = root.canonicalize().unwrap_or_else(|_| root.to_path_buf());
     let mut seen: HashSet<PathBuf> = file.canonicalize().into_iter().collect();
     let mut queue: Vec<(PathBuf, crate::lockfile::Include)> = parsed
@@ -265,6 +337,7 @@ fn merge_includes(root: &Path, file: &Path, parsed: &mut Parsed, warnings: &mut 
             continue;
         }
         let target = from.parent().unwrap_or(Path::new(".")).join(&inc.target);
+        read.push(target.clone());
         let loaded = target.canonicalize().and_then(|c| {
             let bytes = crate::limits::read_regular_file(&c)?;
             let text = crate::lockfile::decode(&bytes, &inc.target)

@@ -14,6 +14,7 @@ pub mod env;
 pub mod fsdeps;
 pub mod git;
 pub mod gpu;
+pub mod lockfile_cache;
 pub mod lockfiles;
 pub mod native;
 pub mod patch;
@@ -304,19 +305,22 @@ pub fn stamp(opts: &StampOptions) -> Manifest {
     let guess_root = work_tree
         .as_ref()
         .map_or_else(|| opts.repo.clone(), |(root, _)| root.clone());
-    let read_lockfiles = |root: &Path, listed: Option<&[String]>| {
-        let mut w = Vec::new();
-        let l = timed(t, "lockfiles", || {
-            lockfiles::collect_with(
-                root,
-                &opts.extra_lockfiles,
-                opts.data.cache_dir.as_deref(),
-                listed,
-                &mut w,
-            )
-        });
-        (l, w)
-    };
+    let read_lockfiles =
+        |root: &Path, listed: Option<&[String]>, cache: &mut lockfile_cache::LockfileCache| {
+            let mut w = Vec::new();
+            let l = timed(t, "lockfiles", || {
+                lockfiles::collect_cached(
+                    root,
+                    &opts.extra_lockfiles,
+                    opts.data.cache_dir.as_deref(),
+                    listed,
+                    cache,
+                    &mut w,
+                )
+            });
+            (l, w)
+        };
+    let mut lock_cache = lockfile_cache::LockfileCache::disabled();
     // git's status takes longest: it starts before anything else.
     let control = std::sync::Arc::new(git::GitControl::new(opts.env.get("PATH").cloned()));
     let started = git::start_status(&opts.repo, &control);
@@ -338,9 +342,20 @@ pub fn stamp(opts: &StampOptions) -> Manifest {
             let data = timed(t, "data", || {
                 data::collect(&opts.data, &guess_root, opts.private, &mut w)
             });
+            if !opts.no_lockfiles {
+                lock_cache = lockfile_cache::LockfileCache::open(
+                    opts.data.cache_dir.as_deref(),
+                    &guess_root,
+                    opts.data.rehash,
+                );
+            }
             let early = match &work_tree {
-                Some((root, repo)) if !opts.no_lockfiles => git::tracked_files(repo)
-                    .map(|tracked| (tracked.clone(), read_lockfiles(root, Some(&tracked)))),
+                Some((root, repo)) if !opts.no_lockfiles => lock_cache
+                    .tracked_candidates(&repo.path().join("index"), || git::tracked_files(repo))
+                    .map(|tracked| {
+                        let read = read_lockfiles(root, Some(&tracked), &mut lock_cache);
+                        (tracked, read)
+                    }),
                 _ => None,
             };
             let stack = stack.join().unwrap_or_else(|_| {
@@ -366,24 +381,26 @@ pub fn stamp(opts: &StampOptions) -> Manifest {
     } else {
         match (early, untracked) {
             (Some((tracked, early)), Some(untracked)) => {
-                let matters = |f: &String| {
-                    let name = f.rsplit('/').next().unwrap_or(f);
-                    name == "Cargo.toml" || crate::lockfile::Format::detect(name).is_some()
-                };
+                let matters =
+                    |f: &String| lockfile_cache::is_candidate(f.rsplit('/').next().unwrap_or(f));
                 if untracked.iter().any(matters) {
                     let mut all = tracked;
-                    all.extend(untracked.iter().cloned());
+                    all.extend(untracked.iter().filter(|f| matters(f)).cloned());
                     all.sort();
                     all.dedup();
-                    read_lockfiles(&root, Some(&all))
+                    read_lockfiles(&root, Some(&all), &mut lock_cache)
                 } else {
                     early
                 }
             }
             // No status (git failed or is missing): walk the folders.
-            _ => read_lockfiles(&root, None),
+            _ => read_lockfiles(&root, None, &mut lock_cache),
         }
     };
+    if t && !opts.no_lockfiles {
+        eprintln!("timing: lockfile cache: {}", lock_cache.summary());
+    }
+    lock_cache.save();
 
     let mut warnings = Vec::new();
     match git_result {

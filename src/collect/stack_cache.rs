@@ -90,10 +90,7 @@ impl Key {
                 .filter(|(k, _)| read(k))
                 .map(|(k, v)| (k.clone(), hex(&Sha256::digest(v.as_bytes()))))
                 .collect(),
-            program: std::env::current_exe()
-                .and_then(std::fs::metadata)
-                .ok()
-                .map(|m| FileStamp::of(&m)),
+            program: crate::cache::program_stamp(),
             host: crate::collect::system::hostname().map(|h| hex(&Sha256::digest(h.as_bytes()))),
         }
     }

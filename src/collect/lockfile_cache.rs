@@ -1,0 +1,391 @@
+//! A cache of parsed lockfiles, so that a stamp of an unchanged repository neither reads git's
+//! index to find its lockfiles nor reads and parses them again.
+//!
+//! Two things are kept, both checked against file metadata (size, modification and
+//! status-change times, inode, device: [`FileStamp`]) before use:
+//!
+//! * the lockfile candidates among the files git tracks (their names say they are lockfiles or
+//!   `Cargo.toml`), valid while the index file has the same metadata (git replaces the index
+//!   file whenever it changes it, so its inode and times change);
+//! * per lockfile, the parsed result and its warnings, with the metadata of every path the
+//!   result was read from: the lockfile, its companion (`go.sum`, present or not), the files
+//!   a requirements file includes, and for `Cargo.lock` the `Cargo.toml` files its enabled
+//!   features come from. The list of those manifests must also be the same.
+//!
+//! A path modified within [`crate::cache::RACY_WINDOW_NS`] before it was read is not trusted (it could change
+//! again within the file system's timestamp granularity without its metadata showing it), the
+//! digest cache's rule. A result whose features could not be computed (no `cargo`, a failing
+//! `cargo metadata`) is not kept, so that the next stamp tries again.
+//!
+//! One file per repository root and host, `lockfiles-<digest>.json`, in the digest cache's
+//! folder; it also names the runprint build and the file-size limit it was written with, and is
+//! ignored when either differs. `--rehash` ignores it. A corrupt or foreign file is read as an
+//! empty cache and replaced: it only ever costs time. Warnings are kept scrubbed of secrets,
+//! as they reach the manifest.
+
+use std::collections::HashMap;
+use std::path::{Path, PathBuf};
+use std::time::SystemTime;
+
+use crate::cache::FileStamp;
+use crate::manifest::Lockfile;
+use serde::{Deserialize, Serialize};
+
+const CACHE_KIND: &str = "runprint-lockfile-cache";
+const CACHE_VERSION: u32 = 1;
+
+/// What the results depend on besides files: the build that parsed them and the size limit
+/// files were read with.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+struct Writer {
+    program: Option<FileStamp>,
+    max_file_bytes: u64,
+}
+
+impl Writer {
+    fn this_process() -> Writer {
+        Writer {
+            program: crate::cache::program_stamp(),
+            max_file_bytes: crate::limits::max_file_bytes(),
+        }
+    }
+}
+
+/// The lockfile candidates among the files in git's index.
+#[derive(Debug, Clone, Serialize, Deserialize)]
+struct Listing {
+    index: PathBuf,
+    stamp: FileStamp,
+    candidates: Vec<String>,
+}
+
+/// One lockfile's result and what it was read from.
+#[derive(Debug, Clone, Serialize, Deserialize)]
+pub struct Entry {
+    /// The path shown in the manifest.
+    shown: String,
+    /// Every path read, the lockfile first, with its metadata (`None`: absent).
+    inputs: Vec<(PathBuf, Option<FileStamp>)>,
+    /// For `Cargo.lock`: the `Cargo.toml` files below its folder that decided its features.
+    manifests: Vec<PathBuf>,
+    lockfile: Option<Lockfile>,
+    warnings: Vec<String>,
+}
+
+#[derive(Serialize, Deserialize)]
+struct CacheFile {
+    kind: String,
+    version: u32,
+    writer: Writer,
+    listing: Option<Listing>,
+    files: Vec<Entry>,
+}
+
+/// One lockfile's result: the parsed file (`None` when it could not be read) and warnings.
+pub type Result = (Option<Lockfile>, Vec<String>);
+
+/// How a lockfile's result was obtained, for [`LockfileCache::keep`].
+#[derive(Debug)]
+pub enum Outcome {
+    /// Taken from the cache.
+    Reused,
+    /// Read anew; the entry to store, `None` when it cannot be trusted later.
+    Read(Option<Box<Entry>>),
+}
+
+/// What one lockfile's reading depended on, noted by the reader.
+#[derive(Debug, Default)]
+pub struct Inputs {
+    /// Paths read or looked for, besides the lockfile itself.
+    pub paths: Vec<PathBuf>,
+    /// The `Cargo.toml` files the features came from.
+    pub manifests: Vec<PathBuf>,
+    /// False when the result should not be reused (a reader that may answer differently next
+    /// time with the same files, such as `cargo` missing or failing).
+    pub reusable: bool,
+}
+
+/// The cache for one stamp: what was loaded, and what this stamp found.
+#[derive(Debug, Default)]
+pub struct LockfileCache {
+    /// The cache file; `None`: no caching.
+    path: Option<PathBuf>,
+    old_listing: Option<Listing>,
+    old: HashMap<String, Entry>,
+    listing: Option<Listing>,
+    files: Vec<Entry>,
+    changed: bool,
+    /// Lockfiles taken from the cache and read anew, and whether the listing was reused.
+    reused: usize,
+    read: usize,
+    listing_reused: bool,
+}
+
+impl LockfileCache {
+    /// No cache: everything is read and nothing saved.
+    pub fn disabled() -> LockfileCache {
+        LockfileCache::default()
+    }
+
+    /// The cache for the repository at `root` in `dir` (`None`: no caching). With `rehash`,
+    /// the stored results are not used, but this stamp's are saved.
+    pub fn open(dir: Option<&Path>, root: &Path, rehash: bool) -> LockfileCache {
+        let Some(dir) = dir else {
+            return LockfileCache::disabled();
+        };
+        let path = crate::cache::per_repository_file(dir, "lockfiles", root);
+        let mut cache = LockfileCache {
+            path: Some(path.clone()),
+            ..LockfileCache::default()
+        };
+        if rehash {
+            cache.changed = true;
+            return cache;
+        }
+        let loaded = crate::limits::read_regular_file(&path)
+            .ok()
+            .and_then(|bytes| serde_json::from_slice::<CacheFile>(&bytes).ok())
+            .filter(|f| {
+                f.kind == CACHE_KIND
+                    && f.version == CACHE_VERSION
+                    && f.writer == Writer::this_process()
+            });
+        match loaded {
+            Some(f) => {
+                cache.old_listing = f.listing;
+                cache.old = f.files.into_iter().map(|e| (e.shown.clone(), e)).collect();
+            }
+            None => cache.changed = true,
+        }
+        cache
+    }
+
+    /// The files of git's index (at `index`) whose names make them lockfile candidates, from
+    /// the cache while the index file is unchanged, else from `list` (every tracked file).
+    pub fn tracked_candidates(
+        &mut self,
+        index: &Path,
+        list: impl FnOnce() -> Option<Vec<String>>,
+    ) -> Option<Vec<String>> {
+        let started = SystemTime::now();
+        let stamp = stamp_of(index);
+        if let (Some(old), Some(stamp)) = (&self.old_listing, stamp) {
+            if old.index == index && old.stamp == stamp {
+                self.listing = Some(old.clone());
+                self.listing_reused = true;
+                return Some(old.candidates.clone());
+            }
+        }
+        let candidates: Vec<String> = list()?
+            .into_iter()
+            .filter(|f| is_candidate(f.rsplit('/').next().unwrap_or(f)))
+            .collect();
+        // Metadata taken after the reading, trusted only if older than the racy window.
+        let now = stamp_of(index);
+        self.listing = match now {
+            Some(s) if now == stamp && !recent(&s, started) => Some(Listing {
+                index: index.to_path_buf(),
+                stamp: s,
+                candidates: candidates.clone(),
+            }),
+            _ => None,
+        };
+        self.changed = true;
+        Some(candidates)
+    }
+
+    /// The stored result for the lockfile shown as `shown` at `abs`, if every path it was read
+    /// from looks the same and (for `Cargo.lock`) the same `manifests` decide its features.
+    pub fn lookup(&self, shown: &str, abs: &Path, manifests: &[PathBuf]) -> Option<Result> {
+        let e = self.old.get(shown)?;
+        let current = e.inputs.first().is_some_and(|(p, _)| p == abs)
+            && e.manifests == manifests
+            && e.inputs.iter().all(|(p, s)| stamp_of(p) == *s);
+        current.then(|| (e.lockfile.clone(), e.warnings.clone()))
+    }
+
+    /// An entry for a result read from `abs` and `inputs` since `started`, or `None` when it
+    /// cannot be trusted later (see the module's notes).
+    pub fn entry(
+        shown: &str,
+        abs: &Path,
+        inputs: Inputs,
+        started: SystemTime,
+        result: &Result,
+    ) -> Option<Entry> {
+        if !inputs.reusable {
+            return None;
+        }
+        let mut paths = vec![abs.to_path_buf()];
+        paths.extend(inputs.paths);
+        paths.extend(inputs.manifests.iter().cloned());
+        let mut stamped = Vec::with_capacity(paths.len());
+        for p in paths {
+            let s = stamp_of(&p);
+            if s.is_some_and(|s| recent(&s, started)) {
+                return None;
+            }
+            stamped.push((p, s));
+        }
+        Some(Entry {
+            shown: shown.to_string(),
+            inputs: stamped,
+            manifests: inputs.manifests,
+            lockfile: result.0.clone(),
+            warnings: result
+                .1
+                .iter()
+                .map(|w| crate::redact::scrub_secrets(w))
+                .collect(),
+        })
+    }
+
+    /// Keeps the entry of the lockfile shown as `shown` for saving.
+    pub fn keep(&mut self, shown: &str, outcome: Outcome) {
+        match outcome {
+            Outcome::Read(Some(e)) => {
+                self.read += 1;
+                self.changed = true;
+                self.files.retain(|f| f.shown != e.shown);
+                self.files.push(*e);
+            }
+            Outcome::Read(None) => {
+                self.read += 1;
+                self.changed = true;
+            }
+            Outcome::Reused => {
+                self.reused += 1;
+                if let Some(e) = self.old.get(shown) {
+                    if !self.files.iter().any(|f| f.shown == shown) {
+                        self.files.push(e.clone());
+                    }
+                }
+            }
+        }
+    }
+
+    /// For `RUNPRINT_TIMINGS`: how many lockfile results were reused and read, and whether the
+    /// index listing was reused.
+    pub fn summary(&self) -> String {
+        format!(
+            "{} reused, {} read, index listing reused: {}",
+            self.reused, self.read, self.listing_reused
+        )
+    }
+
+    /// Writes what this stamp found, if it differs from what was loaded. Best effort: a cache
+    /// that cannot be written only costs time on the next stamp.
+    pub fn save(self) {
+        let Some(path) = self.path else { return };
+        let unchanged = !self.changed
+            && self.files.len() == self.old.len()
+            && self.listing.as_ref().map(|l| (&l.index, l.stamp))
+                == self.old_listing.as_ref().map(|l| (&l.index, l.stamp));
+        if unchanged {
+            return;
+        }
+        let file = CacheFile {
+            kind: CACHE_KIND.into(),
+            version: CACHE_VERSION,
+            writer: Writer::this_process(),
+            listing: self.listing,
+            files: self.files,
+        };
+        let Ok(text) = serde_json::to_string(&file) else {
+            return;
+        };
+        if let Some(dir) = path.parent() {
+            if std::fs::create_dir_all(dir).is_err() {
+                return;
+            }
+        }
+        let _ = crate::atomic::write_atomic(&path, text.as_bytes());
+    }
+}
+
+/// A name that makes a tracked file matter for lockfiles.
+pub fn is_candidate(name: &str) -> bool {
+    name == "Cargo.toml" || crate::lockfile::Format::detect(name).is_some()
+}
+
+/// Metadata following links, as the readers open files; `None` when absent or unreadable.
+fn stamp_of(path: &Path) -> Option<FileStamp> {
+    std::fs::metadata(path).ok().map(|m| FileStamp::of(&m))
+}
+
+/// Modified (or its status changed) less than the racy window before `started`, or later.
+fn recent(s: &FileStamp, started: SystemTime) -> bool {
+    started
+        .duration_since(SystemTime::UNIX_EPOCH)
+        .map_or(true, |d| s.is_racy(d.as_nanos() as i128))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn result() -> Result {
+        (None, vec!["lockfile `a`: a warning".into()])
+    }
+
+    #[test]
+    fn a_file_changed_within_the_racy_window_is_not_kept() {
+        let dir = tempfile::tempdir().unwrap();
+        let lock = dir.path().join("requirements.txt");
+        std::fs::write(&lock, "numpy==1.26.4\n").unwrap();
+        let inputs = || Inputs {
+            reusable: true,
+            ..Inputs::default()
+        };
+        // Just written: its times are within two seconds of the reading.
+        let now = SystemTime::now();
+        assert!(LockfileCache::entry("a", &lock, inputs(), now, &result()).is_none());
+        // Read long after it was written (as if): kept, with its metadata.
+        let later = now + std::time::Duration::from_secs(5);
+        let e = LockfileCache::entry("a", &lock, inputs(), later, &result()).unwrap();
+        assert_eq!(e.inputs[0].1, stamp_of(&lock));
+        // A result its reader marks as not reusable is never kept.
+        let mut no = inputs();
+        no.reusable = false;
+        assert!(LockfileCache::entry("a", &lock, no, later, &result()).is_none());
+    }
+
+    #[test]
+    fn a_cache_from_another_size_limit_is_ignored() {
+        let dir = tempfile::tempdir().unwrap();
+        let root = dir.path().join("repo");
+        let lock = root.join("requirements.txt");
+        std::fs::create_dir_all(&root).unwrap();
+        std::fs::write(&lock, "numpy==1.26.4\n").unwrap();
+        let mut cache = LockfileCache::open(Some(dir.path()), &root, false);
+        let later = SystemTime::now() + std::time::Duration::from_secs(5);
+        let inputs = Inputs {
+            reusable: true,
+            ..Inputs::default()
+        };
+        let e = LockfileCache::entry("requirements.txt", &lock, inputs, later, &result());
+        cache.keep("requirements.txt", Outcome::Read(e.map(Box::new)));
+        cache.save();
+        let cache = LockfileCache::open(Some(dir.path()), &root, false);
+        assert!(cache.lookup("requirements.txt", &lock, &[]).is_some());
+        // Another path shown under the same name is another file.
+        assert!(cache
+            .lookup("requirements.txt", &root.join("x/requirements.txt"), &[])
+            .is_none());
+        // --rehash does not use what is stored.
+        let rehash = LockfileCache::open(Some(dir.path()), &root, true);
+        assert!(rehash.lookup("requirements.txt", &lock, &[]).is_none());
+        // The written file names the limit it was read under; another limit ignores it.
+        let path = cache.path.clone().unwrap();
+        let text = std::fs::read_to_string(&path).unwrap();
+        let limit = crate::limits::max_file_bytes();
+        let other = text.replace(
+            &format!("\"max_file_bytes\":{limit}"),
+            &format!("\"max_file_bytes\":{}", limit + 1),
+        );
+        assert_ne!(other, text);
+        std::fs::write(&path, other).unwrap();
+        let cache = LockfileCache::open(Some(dir.path()), &root, false);
+        assert!(cache.lookup("requirements.txt", &lock, &[]).is_none());
+    }
+}

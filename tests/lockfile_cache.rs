@@ -1,0 +1,202 @@
+//! The parsed-lockfile cache (`src/collect/lockfile_cache.rs`): a stamp of an unchanged
+//! repository takes its lockfiles from the cache and the result equals a fresh read
+//! (`--rehash`); a change to any file a result was read from (the lockfile, an included
+//! requirements file, a companion `go.sum`) or to git's index (the real `git add`) makes the
+//! next stamp read again.
+//!
+//! The lockfiles are real ones: this crate's own `Cargo.lock` (written by cargo), a
+//! requirements file pair in pip's format (`-r` includes, pip's "Requirements File Format"),
+//! and the `go.mod`/`go.sum` fixture.
+
+mod common;
+
+use std::path::Path;
+
+use common::{crate_path, git, repo_with, runprint, write_files};
+use runprint::manifest::{Lockfile, Manifest};
+
+/// `(reused, read, index listing reused)` as `RUNPRINT_TIMINGS` reports the cache's use.
+type Use = (usize, usize, bool);
+
+fn stamp(repo: &Path, cache: &Path, extra: &[&str]) -> (Manifest, Use) {
+    let out = cache.parent().unwrap().join("m.toml");
+    let result = runprint()
+        .args(["stamp", "--quiet", "--repo"])
+        .arg(repo)
+        .arg("--cache")
+        .arg(cache)
+        .arg("--out")
+        .arg(&out)
+        .args(extra)
+        .env("RUNPRINT_TIMINGS", "1")
+        .output()
+        .unwrap();
+    let stderr = String::from_utf8_lossy(&result.stderr);
+    assert!(result.status.success(), "{stderr}");
+    let line = stderr
+        .lines()
+        .find_map(|l| l.strip_prefix("timing: lockfile cache: "))
+        .unwrap_or_else(|| panic!("no lockfile cache line in:\n{stderr}"));
+    let re = regex::Regex::new(r"^(\d+) reused, (\d+) read, index listing reused: (true|false)$")
+        .unwrap();
+    let c = re.captures(line).unwrap_or_else(|| panic!("{line}"));
+    let used = (
+        c[1].parse().unwrap(),
+        c[2].parse().unwrap(),
+        &c[3] == "true",
+    );
+    (Manifest::load(&out).unwrap(), used)
+}
+
+fn lockfiles(m: &Manifest) -> &[Lockfile] {
+    &m.content.lockfiles
+}
+
+fn versions(m: &Manifest, path: &str) -> Vec<(String, String)> {
+    lockfiles(m)
+        .iter()
+        .find(|l| l.path == path)
+        .unwrap_or_else(|| panic!("no {path}"))
+        .packages
+        .iter()
+        .map(|p| (p.name.clone(), p.version.clone()))
+        .collect()
+}
+
+/// Lets every file written so far leave the two-second window in which the cache does not
+/// trust metadata (the status-change time cannot be set back, so the test waits).
+fn age() {
+    std::thread::sleep(std::time::Duration::from_millis(2100));
+}
+
+fn repository() -> tempfile::TempDir {
+    let cargo_lock = std::fs::read_to_string(crate_path("Cargo.lock")).unwrap();
+    let go_mod = std::fs::read_to_string(crate_path("fixtures/lockfiles/go/go.mod")).unwrap();
+    let go_sum = std::fs::read_to_string(crate_path("fixtures/lockfiles/go/go.sum")).unwrap();
+    repo_with(&[
+        ("service/Cargo.lock", &cargo_lock),
+        ("ingest/go.mod", &go_mod),
+        ("ingest/go.sum", &go_sum),
+        ("trainer/requirements.txt", "-r base.txt\nnumpy==1.26.4\n"),
+        ("trainer/base.txt", "requests==2.31.0\n"),
+    ])
+}
+
+#[test]
+fn an_unchanged_repository_reuses_every_result_and_it_equals_a_fresh_read() {
+    let repo = repository();
+    let scratch = tempfile::tempdir().unwrap();
+    let cache = scratch.path().join("cache");
+    age();
+    let (first, used) = stamp(repo.path(), &cache, &[]);
+    assert_eq!(used, (0, 3, false), "a cold cache reads everything");
+    assert_eq!(lockfiles(&first).len(), 3);
+    let (second, used) = stamp(repo.path(), &cache, &[]);
+    assert_eq!(
+        used,
+        (3, 0, true),
+        "nothing changed: everything comes from the cache"
+    );
+    assert_eq!(lockfiles(&second), lockfiles(&first));
+    // --rehash reads everything again, and finds the same.
+    let (fresh, used) = stamp(repo.path(), &cache, &["--rehash"]);
+    assert_eq!(used, (0, 3, false));
+    assert_eq!(lockfiles(&fresh), lockfiles(&first));
+
+    // An included file changes: only the file including it is read again.
+    write_files(repo.path(), &[("trainer/base.txt", "requests==2.32.3\n")]);
+    let (after, used) = stamp(repo.path(), &cache, &[]);
+    assert_eq!((used.0, used.1), (2, 1));
+    assert!(versions(&after, "trainer/requirements.txt")
+        .contains(&("requests".to_string(), "2.32.3".to_string())));
+
+    // The companion go.sum disappears: go.mod is read again and its hashes go.
+    let hashed = |m: &Manifest| {
+        lockfiles(m)
+            .iter()
+            .find(|l| l.path == "ingest/go.mod")
+            .unwrap()
+            .packages
+            .iter()
+            .any(|p| !p.hashes.is_empty())
+    };
+    assert!(hashed(&after));
+    std::fs::remove_file(repo.path().join("ingest/go.sum")).unwrap();
+    let (after, used) = stamp(repo.path(), &cache, &[]);
+    assert!(used.1 >= 1);
+    assert!(!hashed(&after));
+}
+
+#[test]
+fn the_stored_result_is_what_a_warm_stamp_records_until_the_lockfile_changes() {
+    let repo = repository();
+    let scratch = tempfile::tempdir().unwrap();
+    let cache = scratch.path().join("cache");
+    age();
+    stamp(repo.path(), &cache, &[]);
+    // Edit the stored result: a warm stamp must report the edit, which shows the result is
+    // taken from the cache rather than only written to it.
+    let file = std::fs::read_dir(&cache)
+        .unwrap()
+        .map(|e| e.unwrap().path())
+        .find(|p| {
+            p.file_name()
+                .unwrap()
+                .to_string_lossy()
+                .starts_with("lockfiles-")
+        })
+        .expect("a lockfile cache file");
+    let text = std::fs::read_to_string(&file).unwrap();
+    assert!(text.contains("\"1.26.4\""));
+    std::fs::write(
+        &file,
+        text.replace("\"1.26.4\"", "\"0.0.0-from-the-cache\""),
+    )
+    .unwrap();
+    let (warm, _) = stamp(repo.path(), &cache, &[]);
+    assert!(versions(&warm, "trainer/requirements.txt")
+        .contains(&("numpy".to_string(), "0.0.0-from-the-cache".to_string())));
+    // The lockfile itself changes (same size, so only its times and content differ).
+    write_files(
+        repo.path(),
+        &[("trainer/requirements.txt", "-r base.txt\nnumpy==1.26.5\n")],
+    );
+    let (changed, _) = stamp(repo.path(), &cache, &[]);
+    assert!(versions(&changed, "trainer/requirements.txt")
+        .contains(&("numpy".to_string(), "1.26.5".to_string())));
+    // A damaged cache file is read over, never trusted or reported.
+    std::fs::write(&file, "{\"kind\": ").unwrap();
+    let (after, used) = stamp(repo.path(), &cache, &[]);
+    assert_eq!(used.0, 0);
+    assert_eq!(lockfiles(&after), lockfiles(&changed));
+    assert!(after.run.warnings.is_empty(), "{:?}", after.run.warnings);
+}
+
+#[test]
+fn a_lockfile_added_to_the_index_or_left_untracked_is_found() {
+    let repo = repository();
+    let scratch = tempfile::tempdir().unwrap();
+    let cache = scratch.path().join("cache");
+    age();
+    stamp(repo.path(), &cache, &[]);
+    let (_, used) = stamp(repo.path(), &cache, &[]);
+    assert!(
+        used.2,
+        "the index listing is reused while the index is unchanged"
+    );
+    // Untracked: found through git's status, not the index.
+    write_files(repo.path(), &[("eval/requirements.txt", "scipy==1.13.1\n")]);
+    let (m, _) = stamp(repo.path(), &cache, &[]);
+    assert_eq!(versions(&m, "eval/requirements.txt").len(), 1);
+    // Added to the index with the real git: the index file changes, the listing is read again.
+    git(repo.path(), &["add", "eval/requirements.txt"]);
+    let (m, used) = stamp(repo.path(), &cache, &[]);
+    assert!(!used.2);
+    assert_eq!(versions(&m, "eval/requirements.txt").len(), 1);
+    // Removed from the work tree while still tracked: no longer recorded.
+    std::fs::remove_file(repo.path().join("eval/requirements.txt")).unwrap();
+    let (m, _) = stamp(repo.path(), &cache, &[]);
+    assert!(lockfiles(&m)
+        .iter()
+        .all(|l| l.path != "eval/requirements.txt"));
+}
