@@ -15,6 +15,8 @@ use std::sync::Mutex;
 use git2::{Repository, Status, StatusOptions};
 use sha2::{Digest, Sha256};
 
+use crate::cache::FileStamp;
+use crate::collect::change_cache::{self, ChangeCache};
 use crate::manifest::{hex, GitInfo, Submodule};
 use crate::redact::scrub_url_credentials;
 
@@ -77,6 +79,7 @@ pub fn collect(
     private: bool,
     control: &GitControl,
     started: Started,
+    cache: CacheUse,
 ) -> Result<GitFacts, String> {
     let repo = match Repository::discover(dir) {
         Ok(r) => r,
@@ -137,6 +140,8 @@ pub fn collect(
     let mut untracked = None;
     if let Some(root) = &workdir {
         let failed = |e: String| format!("git: cannot read the work tree status: {e}");
+        // Loaded while git's status runs.
+        let digests = ChangeCache::open(cache.dir.as_deref(), root, cache.rehash);
         let entries = match started {
             Ok(Some(running)) => finish_git_status(root, control, running).map_err(failed)?,
             Err(e) => return Err(failed(e)),
@@ -150,7 +155,8 @@ pub fn collect(
                 .map(|e| e.path.clone())
                 .collect(),
         );
-        let (paths, digest) = uncommitted_change(entries);
+        let (paths, digest, keep) = uncommitted_change(entries, &digests);
+        digests.save(keep);
         info.dirty = !paths.is_empty();
         info.dirty_digest = digest;
         info.changed_paths = paths;
@@ -402,36 +408,55 @@ pub fn tracked_files(repo: &Repository) -> Option<Vec<String>> {
     )
 }
 
-/// Changed paths (tracked changes and untracked, not-ignored files) and the digest over them.
-fn uncommitted_change(mut entries: Vec<StatusEntry>) -> (Vec<String>, Option<String>) {
+/// Where the collector may keep the digests of changed files ([`ChangeCache`]).
+#[derive(Debug, Clone, Default)]
+pub struct CacheUse {
+    /// The cache folder; `None`: no caching.
+    pub dir: Option<PathBuf>,
+    /// `--rehash`: hash every changed file again.
+    pub rehash: bool,
+}
+
+/// Changed paths (tracked changes and untracked, not-ignored files), the digest over them, and
+/// the entries for `cache` to keep.
+fn uncommitted_change(
+    mut entries: Vec<StatusEntry>,
+    cache: &ChangeCache,
+) -> (Vec<String>, Option<String>, Vec<change_cache::Entry>) {
     entries.sort_by(|a, b| a.raw.cmp(&b.raw));
     entries.dedup_by(|a, b| a.raw == b.raw);
     if entries.is_empty() {
-        return (Vec::new(), None);
+        return (Vec::new(), None, Vec::new());
     }
     // The files are hashed in parallel; the digest then takes them in path order.
-    let states: Vec<String> = {
+    let started_ns = crate::cache::now_ns();
+    let states: Vec<(String, Option<change_cache::Entry>)> = {
         use rayon::prelude::*;
         entries
             .par_iter()
             .map(|e| {
                 if e.deleted {
-                    "deleted".to_string()
+                    ("deleted".to_string(), None)
                 } else {
-                    content_digest(&e.abs)
+                    content_digest(&e.abs, &e.path, cache, started_ns)
                 }
             })
             .collect()
     };
     let mut digest = Sha256::new();
-    for (e, state) in entries.iter().zip(&states) {
+    for (e, (state, _)) in entries.iter().zip(&states) {
         digest.update(&e.raw);
         digest.update([0]);
         digest.update(state.as_bytes());
         digest.update(b"\n");
     }
+    let keep = states.into_iter().filter_map(|(_, e)| e).collect();
     let paths = entries.into_iter().map(|e| e.path).collect();
-    (paths, Some(format!("sha256:{}", hex(&digest.finalize()))))
+    (
+        paths,
+        Some(format!("sha256:{}", hex(&digest.finalize()))),
+        keep,
+    )
 }
 
 /// A path as git stores it (bytes) in the platform's form.
@@ -447,28 +472,47 @@ fn path_from_bytes(bytes: &[u8]) -> PathBuf {
     }
 }
 
-/// SHA-256 of a work-tree file's content (a symbolic link's target, a folder's marker).
-fn content_digest(path: &Path) -> String {
+/// SHA-256 of a work-tree file's content (a symbolic link's target, a folder's marker), taken
+/// from `cache` when the file's metadata is unchanged; `key` is its path in the work tree.
+/// Also the entry for the cache to keep for a regular file.
+fn content_digest(
+    path: &Path,
+    key: &str,
+    cache: &ChangeCache,
+    started_ns: i128,
+) -> (String, Option<change_cache::Entry>) {
     let meta = match std::fs::symlink_metadata(path) {
         Ok(m) => m,
-        Err(_) => return "missing".into(),
+        Err(_) => return ("missing".into(), None),
     };
     if meta.file_type().is_symlink() {
         let target = std::fs::read_link(path).unwrap_or_default();
-        return format!("link:{}", target.display());
+        return (format!("link:{}", target.display()), None);
     }
     if meta.is_dir() {
         // A submodule or nested repository: its own commit is recorded elsewhere.
-        return "dir".into();
+        return ("dir".into(), None);
     }
     if !meta.is_file() {
         // A FIFO would block the open; a socket or device has no content to hash.
-        return "special".into();
+        return ("special".into(), None);
     }
+    let stamp = FileStamp::of(&meta);
+    if let Some(known) = cache.get(key, &stamp) {
+        let entry = ChangeCache::entry(key, stamp, known, started_ns);
+        return (known.to_string(), entry);
+    }
+    let sha256 = file_sha256(path);
+    let entry = sha256
+        .as_deref()
+        .and_then(|d| ChangeCache::entry(key, stamp, d, started_ns));
+    (sha256.unwrap_or_else(|| "unreadable".into()), entry)
+}
+
+/// Hex SHA-256 of a regular file's content; `None` when it cannot be read.
+fn file_sha256(path: &Path) -> Option<String> {
     let mut hasher = Sha256::new();
-    let Ok(mut file) = std::fs::File::open(path) else {
-        return "unreadable".into();
-    };
+    let mut file = std::fs::File::open(path).ok()?;
     // On the stack: hundreds of changed files are hashed per stamp, and a fresh heap block
     // per file made the allocator map, zero and purge tens of megabytes.
     let mut buf = [0u8; 1 << 14];
@@ -476,10 +520,11 @@ fn content_digest(path: &Path) -> String {
         match file.read(&mut buf) {
             Ok(0) => break,
             Ok(n) => hasher.update(&buf[..n]),
-            Err(_) => return "unreadable".into(),
+            Err(e) if e.kind() == std::io::ErrorKind::Interrupted => {}
+            Err(_) => return None,
         }
     }
-    hex(&hasher.finalize())
+    Some(hex(&hasher.finalize()))
 }
 
 /// `origin`'s URL, else the first remote's, with credentials removed.

@@ -8,6 +8,7 @@
 
 pub mod at_rev;
 pub mod cargo_features;
+pub mod change_cache;
 pub mod cpu;
 pub mod data;
 pub mod env;
@@ -122,6 +123,11 @@ fn collect_git_with_timeout(
     // Set by the thread when it ends, under the STUCK_GIT lock, so that the watchdog never
     // marks as stuck a thread that has just finished.
     let finished = std::sync::Arc::new(std::sync::atomic::AtomicBool::new(false));
+    let cache_use = git::CacheUse {
+        dir: opts.data.cache_dir.clone(),
+        rehash: opts.data.rehash,
+    };
+    let cache = cache_use.clone();
     let (repo, private, ctl, done_key, done) = (
         opts.repo.clone(),
         opts.private,
@@ -140,7 +146,7 @@ fn collect_git_with_timeout(
                 .unwrap_or_else(|e| e.into_inner())
                 .take()
                 .unwrap_or(Ok(None));
-            let result = git::collect(&repo, private, &ctl, started);
+            let result = git::collect(&repo, private, &ctl, started, cache);
             let mut stuck = STUCK_GIT.lock().unwrap_or_else(|e| e.into_inner());
             done.store(true, std::sync::atomic::Ordering::SeqCst);
             stuck.remove(&done_key);
@@ -153,7 +159,7 @@ fn collect_git_with_timeout(
             .unwrap_or_else(|e| e.into_inner())
             .take()
             .unwrap_or(Ok(None));
-        return git::collect(&opts.repo, opts.private, &control, started);
+        return git::collect(&opts.repo, opts.private, &control, started, cache_use);
     }
     let timeout = |what: &str| {
         format!(
