@@ -9,28 +9,12 @@ mod common;
 use std::path::Path;
 use std::process::Command;
 
-use common::{git, repo_with, runprint, write_files};
+use common::{git, repo_with, stamp_cached, write_files};
 use sha2::{Digest, Sha256};
 
 fn stamp(repo: &Path, cache: &Path, extra: &[&str]) -> Option<String> {
-    let out = cache.parent().unwrap().join("m.toml");
-    let result = runprint()
-        .args(["stamp", "--quiet", "--repo"])
-        .arg(repo)
-        .arg("--cache")
-        .arg(cache)
-        .arg("--out")
-        .arg(&out)
-        .args(extra)
-        .output()
-        .unwrap();
-    assert!(
-        result.status.success(),
-        "{}",
-        String::from_utf8_lossy(&result.stderr)
-    );
-    runprint::manifest::Manifest::load(&out)
-        .unwrap()
+    stamp_cached(repo, cache, extra, &[])
+        .0
         .content
         .git
         .dirty_digest

@@ -12,27 +12,14 @@ mod common;
 
 use std::path::Path;
 
-use common::{crate_path, git, repo_with, runprint, write_files};
+use common::{crate_path, git, repo_with, stamp_cached, write_files};
 use runprint::manifest::{Lockfile, Manifest};
 
 /// `(reused, read, index listing reused)` as `RUNPRINT_TIMINGS` reports the cache's use.
 type Use = (usize, usize, bool);
 
 fn stamp(repo: &Path, cache: &Path, extra: &[&str]) -> (Manifest, Use) {
-    let out = cache.parent().unwrap().join("m.toml");
-    let result = runprint()
-        .args(["stamp", "--quiet", "--repo"])
-        .arg(repo)
-        .arg("--cache")
-        .arg(cache)
-        .arg("--out")
-        .arg(&out)
-        .args(extra)
-        .env("RUNPRINT_TIMINGS", "1")
-        .output()
-        .unwrap();
-    let stderr = String::from_utf8_lossy(&result.stderr);
-    assert!(result.status.success(), "{stderr}");
+    let (manifest, stderr) = stamp_cached(repo, cache, extra, &[("RUNPRINT_TIMINGS", "1")]);
     let line = stderr
         .lines()
         .find_map(|l| l.strip_prefix("timing: lockfile cache: "))
@@ -45,7 +32,7 @@ fn stamp(repo: &Path, cache: &Path, extra: &[&str]) -> (Manifest, Use) {
         c[2].parse().unwrap(),
         &c[3] == "true",
     );
-    (Manifest::load(&out).unwrap(), used)
+    (manifest, used)
 }
 
 fn lockfiles(m: &Manifest) -> &[Lockfile] {

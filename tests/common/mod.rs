@@ -131,3 +131,28 @@ pub fn diff_json<T: serde::de::DeserializeOwned>(
     });
     (out.status.code().unwrap(), report)
 }
+
+/// `runprint stamp --quiet` of `repo` with the cache folder `cache`, extra arguments and
+/// variables, written beside `cache`; returns the manifest and stderr. Panics when it fails.
+pub fn stamp_cached(
+    repo: &Path,
+    cache: &Path,
+    extra: &[&str],
+    vars: &[(&str, &str)],
+) -> (runprint::manifest::Manifest, String) {
+    let out = cache.parent().unwrap().join("m.toml");
+    let result = runprint()
+        .args(["stamp", "--quiet", "--repo"])
+        .arg(repo)
+        .arg("--cache")
+        .arg(cache)
+        .arg("--out")
+        .arg(&out)
+        .args(extra)
+        .envs(vars.iter().copied())
+        .output()
+        .unwrap();
+    let stderr = String::from_utf8_lossy(&result.stderr).into_owned();
+    assert!(result.status.success(), "{stderr}");
+    (runprint::manifest::Manifest::load(&out).unwrap(), stderr)
+}
