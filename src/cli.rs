@@ -18,10 +18,10 @@ use std::process::ExitCode;
 use clap::{Parser, Subcommand, ValueEnum};
 
 use crate::atomic::write_atomic;
-use crate::collect::{stamp, StampOptions};
+use crate::collect::{stamp_prepared, StampOptions};
 use crate::diff::compare_with;
 use crate::diff::rules::{render_table, TableFormat};
-use crate::manifest::{Manifest, ManifestFormat};
+use crate::manifest::{Manifest, ManifestFormat, Prepared};
 use crate::policy::{Policy, POLICY_FILE};
 use crate::report::{color_allowed, render, ReportFormat};
 
@@ -303,11 +303,17 @@ impl CollectArgs {
 
     /// Stamps, printing warnings; `Err` carries the exit code when `--strict` refuses.
     fn stamp(self) -> Result<Manifest, ExitCode> {
+        self.stamp_prepared(false).map(|(m, _)| m)
+    }
+
+    /// As [`CollectArgs::stamp`]; with `prepare`, also the parts of the TOML text serialized
+    /// while git's status ran ([`stamp_prepared`]).
+    fn stamp_prepared(self, prepare: bool) -> Result<(Manifest, Option<Prepared>), ExitCode> {
         if !self.repo.is_dir() {
             return Err(fail(format!("`{}` is not a folder", self.repo.display())));
         }
         let strict = self.strict;
-        let manifest = stamp(&self.options());
+        let (manifest, prepared) = stamp_prepared(&self.options(), prepare);
         for w in &manifest.run.warnings {
             eprintln!("warning: {w}");
         }
@@ -317,20 +323,20 @@ impl CollectArgs {
                 manifest.run.warnings.len()
             )));
         }
-        Ok(manifest)
+        Ok((manifest, prepared))
     }
 }
 
 fn run_stamp(args: StampArgs) -> ExitCode {
-    let manifest = match args.collect.stamp() {
-        Ok(m) => m,
-        Err(code) => return code,
-    };
     let format = match args.format {
         StampFormat::Toml => ManifestFormat::Toml,
         StampFormat::Json => ManifestFormat::Json,
     };
-    let text = manifest.render(format);
+    let (manifest, prepared) = match args.collect.stamp_prepared(format == ManifestFormat::Toml) {
+        Ok(m) => m,
+        Err(code) => return code,
+    };
+    let text = manifest.render_prepared(format, prepared.as_ref());
     match args.out {
         Some(path) => {
             if let Err(e) = write_atomic(&path, text.as_bytes()) {

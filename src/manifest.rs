@@ -588,6 +588,100 @@ impl Content {
     }
 }
 
+/// The parts of a manifest that do not depend on its `[run]` and `[git]` sections, made ahead
+/// of time: a stamp prepares them while git's status is still running, and then only the
+/// small head is left to serialize.
+///
+/// Both parts are cut from serializations of the content with a placeholder `git` section
+/// whose branch is a string unique to the call: the canonical JSON after the `git` field
+/// (`{"git":…,` + the rest, since `git` is the content's first field), and the TOML text after
+/// the `[git]` table. [`Manifest::new_prepared`] and [`Manifest::render_prepared`] put a
+/// manifest together from them byte for byte as [`Manifest::new`] and [`Manifest::render`]
+/// would (a test compares the two on many manifests).
+#[derive(Debug, Clone)]
+pub struct Prepared {
+    /// Canonical JSON of the content after the `git` field, from its leading comma.
+    json_tail: Vec<u8>,
+    /// TOML from the end of the `[git]` table to the end of the document.
+    toml_tail: String,
+}
+
+/// The start of a manifest as TOML: what comes before the content's second field.
+#[derive(Serialize)]
+#[serde(rename_all = "kebab-case")]
+struct Head<'a> {
+    schema_version: u32,
+    fingerprint: &'a str,
+    run: &'a RunInfo,
+    git: &'a GitInfo,
+}
+
+/// A manifest by reference, for serializing one whose parts are borrowed.
+#[derive(Serialize)]
+#[serde(rename_all = "kebab-case")]
+struct ManifestRef<'a> {
+    schema_version: u32,
+    fingerprint: &'a str,
+    run: &'a RunInfo,
+    #[serde(flatten)]
+    content: &'a Content,
+}
+
+impl Content {
+    /// Prepares the serializations of everything after `git` (see [`Prepared`]); `self.git`
+    /// is left as it was. `None` when the output does not have the expected layout.
+    pub fn prepare(&mut self) -> Option<Prepared> {
+        static CALLS: std::sync::atomic::AtomicU64 = std::sync::atomic::AtomicU64::new(0);
+        let unique = format!(
+            "runprint-placeholder-{}-{}-{}",
+            std::process::id(),
+            CALLS.fetch_add(1, std::sync::atomic::Ordering::Relaxed),
+            crate::cache::now_ns()
+        );
+        let placeholder = GitInfo {
+            branch: Some(unique.clone()),
+            ..GitInfo::default()
+        };
+        let real = std::mem::replace(&mut self.git, placeholder);
+        let result = self.prepare_with_placeholder(&unique);
+        self.git = real;
+        result
+    }
+
+    fn prepare_with_placeholder(&self, unique: &str) -> Option<Prepared> {
+        let json = serde_json::to_vec(self).ok()?;
+        let mut head = b"{\"git\":".to_vec();
+        head.extend(serde_json::to_vec(&self.git).ok()?);
+        head.push(b',');
+        let json_tail = json.strip_prefix(head.as_slice())?;
+        let toml = toml::to_string_pretty(&ManifestRef {
+            schema_version: SCHEMA_VERSION,
+            fingerprint: "",
+            run: &RunInfo::default(),
+            content: self,
+        })
+        .ok()?;
+        // The placeholder's only key after `present`; the next line ends the table.
+        let line = format!("\nbranch = \"{unique}\"\n");
+        let at = toml.find(&line)? + line.len();
+        let toml_tail = &toml[at..];
+        toml_tail.starts_with("\n[").then(|| Prepared {
+            json_tail: json_tail[..].to_vec(),
+            toml_tail: toml_tail.to_string(),
+        })
+    }
+
+    /// As [`Content::fingerprint`], from this content's `git` and the rest as `prepared`.
+    fn fingerprint_prepared(&self, prepared: &Prepared) -> String {
+        let mut h = Sha256::new();
+        h.update(b"{\"git\":");
+        h.update(serde_json::to_vec(&self.git).expect("git facts always serialize"));
+        h.update(b",");
+        h.update(&prepared.json_tail);
+        format!("sha256:{}", hex(&h.finalize()))
+    }
+}
+
 impl Manifest {
     /// Builds a manifest and computes its fingerprint.
     pub fn new(run: RunInfo, content: Content) -> Manifest {
@@ -596,6 +690,38 @@ impl Manifest {
             fingerprint: content.fingerprint(),
             run,
             content,
+        }
+    }
+
+    /// As [`Manifest::new`], with the fingerprint computed from `prepared`, which must have
+    /// been made by [`Content::prepare`] from this content (any `git`).
+    pub fn new_prepared(run: RunInfo, content: Content, prepared: Option<&Prepared>) -> Manifest {
+        match prepared {
+            Some(p) => Manifest {
+                schema_version: SCHEMA_VERSION,
+                fingerprint: content.fingerprint_prepared(p),
+                run,
+                content,
+            },
+            None => Manifest::new(run, content),
+        }
+    }
+
+    /// As [`Manifest::render`], taking everything after `[git]` from `prepared`, which must
+    /// have been made from this manifest's content. JSON is always rendered in full.
+    pub fn render_prepared(&self, format: ManifestFormat, prepared: Option<&Prepared>) -> String {
+        match (format, prepared) {
+            (ManifestFormat::Toml, Some(p)) => {
+                let head = toml::to_string_pretty(&Head {
+                    schema_version: self.schema_version,
+                    fingerprint: &self.fingerprint,
+                    run: &self.run,
+                    git: &self.content.git,
+                })
+                .expect("manifest always serializes to TOML");
+                head + &p.toml_tail
+            }
+            _ => self.render(format),
         }
     }
 
@@ -708,6 +834,82 @@ pub fn hex(bytes: &[u8]) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// Manifests built from prepared parts equal those built in full, byte for byte: the
+    /// demo manifests, the manifest corpus, and variations of them whose git and run
+    /// sections hold what could confuse the cut (multi-line text with table headers in it,
+    /// quotes, submodules, a section missing).
+    #[test]
+    fn prepared_parts_give_the_same_manifest_as_a_full_rendering() {
+        let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+        let mut bases = vec![sample()];
+        for rel in [
+            "fixtures/demo/baseline.toml",
+            "fixtures/demo/candidate.toml",
+            "tests/corpus/manifest/good/seed",
+            "tests/corpus/manifest/good/crlf",
+            "tests/corpus/manifest/good/bom",
+        ] {
+            bases.push(Manifest::load(&root.join(rel)).unwrap());
+        }
+        let gits = |base: &GitInfo| {
+            let mut out = vec![base.clone(), GitInfo::default()];
+            out.push(GitInfo {
+                present: true,
+                branch: Some("feat/\"quoted\"\n[system]".into()),
+                detached: true,
+                dirty: true,
+                dirty_digest: Some("sha256:00".into()),
+                changed_paths: vec!["a".into(), "[system]".into()],
+                remote: Some("https://example.invalid/r.git".into()),
+                submodules: vec![Submodule {
+                    path: "vendor/lib".into(),
+                    commit: Some("ab".into()),
+                }],
+                patch: Some("--- a/x\n+++ b/x\n\n[system]\nos = \"x\"\n\n[[lockfiles]]\n".into()),
+                ..base.clone()
+            });
+            out
+        };
+        let mut checked = 0;
+        for base in &bases {
+            let mut variants = vec![base.content.clone()];
+            let mut bare = base.content.clone();
+            bare.lockfiles.clear();
+            bare.python.clear();
+            bare.native = NativeInfo::default();
+            bare.gpu = None;
+            variants.push(bare);
+            for content in variants {
+                for git in gits(&content.git) {
+                    let mut run = base.run.clone();
+                    run.label = Some("line one\n\n[git]\nbranch = \"x\"".into());
+                    run.warnings.push("a \"warning\"".into());
+                    let mut full_content = content.clone();
+                    full_content.git = git.clone();
+                    let full = Manifest::new(run.clone(), full_content.clone());
+                    // Prepared with another git section, as a stamp does before git answers.
+                    let mut early = full_content.clone();
+                    early.git = GitInfo::default();
+                    let prepared = early.prepare().expect("the expected layout");
+                    assert_eq!(early.git, GitInfo::default(), "prepare restores git");
+                    early.git = git;
+                    let fast = Manifest::new_prepared(run, early, Some(&prepared));
+                    assert_eq!(fast, full);
+                    assert_eq!(
+                        fast.render_prepared(ManifestFormat::Toml, Some(&prepared)),
+                        full.render(ManifestFormat::Toml)
+                    );
+                    assert_eq!(
+                        fast.render_prepared(ManifestFormat::Json, Some(&prepared)),
+                        full.render(ManifestFormat::Json)
+                    );
+                    checked += 1;
+                }
+            }
+        }
+        assert_eq!(checked, bases.len() * 2 * 3);
+    }
 
     fn sample() -> Manifest {
         let mut content = Content::default();

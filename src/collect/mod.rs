@@ -26,7 +26,7 @@ pub mod system;
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 
-use crate::manifest::{Content, Manifest, RunInfo};
+use crate::manifest::{Content, Manifest, Prepared, RunInfo};
 use crate::redact::scrub_secrets;
 
 /// What to stamp and how.
@@ -302,11 +302,22 @@ fn timed<T>(on: bool, name: &str, f: impl FnOnce() -> T) -> T {
 /// * git's status (a child process) on one thread;
 /// * the numerical stack on another;
 /// * on this one, the data digests, then the lockfiles found among the files in git's index,
-///   while the status is still running. Untracked files come only with the status; when one of
-///   them is a lockfile (or a `Cargo.toml`) the lockfiles are read again from the full list.
+///   the system, CPU and environment sections, while the status is still running. Untracked
+///   files come only with the status; when one of them is a lockfile (or a `Cargo.toml`) the
+///   lockfiles are read again from the full list.
 pub fn stamp(opts: &StampOptions) -> Manifest {
+    stamp_prepared(opts, false).0
+}
+
+/// As [`stamp`]. With `prepare`, once every section but `[git]` is known and while git's
+/// status is still running, the rest of the manifest is serialized ahead of time
+/// ([`Content::prepare`]); it is returned for [`Manifest::render_prepared`] (`None` when it
+/// could not be used: `--private`, or lockfiles read again after the status).
+pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<Prepared>) {
     let t = opts.env.contains_key("RUNPRINT_TIMINGS");
-    let mut content = Content::default();
+    // git's status takes longest: it starts before anything else.
+    let control = std::sync::Arc::new(git::GitControl::new(opts.env.get("PATH").cloned()));
+    let started = git::start_status(&opts.repo, &control);
     let work_tree = git::work_tree(&opts.repo);
     let guess_root = work_tree
         .as_ref()
@@ -327,54 +338,77 @@ pub fn stamp(opts: &StampOptions) -> Manifest {
             (l, w)
         };
     let mut lock_cache = lockfile_cache::LockfileCache::disabled();
-    // git's status takes longest: it starts before anything else.
-    let control = std::sync::Arc::new(git::GitControl::new(opts.env.get("PATH").cloned()));
-    let started = git::start_status(&opts.repo, &control);
-    let (git_result, (data, data_warnings), early, (stack, stack_warnings)) =
-        std::thread::scope(|s| {
-            let git = s.spawn(|| {
-                timed(t, "git", || {
-                    collect_git_with_timeout(opts, control, started)
-                })
-            });
-            let stack = s.spawn(|| {
-                lower_this_threads_priority();
-                let mut w = Vec::new();
-                let mut c = Content::default();
-                stamp_stack(opts, &mut c, &mut w);
-                (c, w)
-            });
-            let mut w = Vec::new();
-            let data = timed(t, "data", || {
-                data::collect(&opts.data, &guess_root, opts.private, &mut w)
-            });
-            if !opts.no_lockfiles {
-                lock_cache = lockfile_cache::LockfileCache::open(
-                    opts.data.cache_dir.as_deref(),
-                    &guess_root,
-                    opts.data.rehash,
-                );
-            }
-            let early = match &work_tree {
-                Some((root, repo)) if !opts.no_lockfiles => lock_cache
-                    .tracked_candidates(&repo.path().join("index"), || git::tracked_files(repo))
-                    .map(|tracked| {
-                        let read = read_lockfiles(root, Some(&tracked), &mut lock_cache);
-                        (tracked, read)
-                    }),
-                _ => None,
-            };
-            let stack = stack.join().unwrap_or_else(|_| {
-                (
-                    Content::default(),
-                    vec!["stack: the collector stopped unexpectedly".to_string()],
-                )
-            });
-            let git = git
-                .join()
-                .unwrap_or_else(|_| Err("git: the collector stopped unexpectedly".into()));
-            (git, (data, w), early, stack)
+    let (git_result, mut content, early, mut prepared, early_warnings) = std::thread::scope(|s| {
+        let git = s.spawn(|| {
+            timed(t, "git", || {
+                collect_git_with_timeout(opts, control, started)
+            })
         });
+        let stack = s.spawn(|| {
+            lower_this_threads_priority();
+            let mut w = Vec::new();
+            let mut c = Content::default();
+            stamp_stack(opts, &mut c, &mut w);
+            (c, w)
+        });
+        let mut content = Content::default();
+        let mut data_warnings = Vec::new();
+        content.data = timed(t, "data", || {
+            data::collect(&opts.data, &guess_root, opts.private, &mut data_warnings)
+        });
+        if !opts.no_lockfiles {
+            lock_cache = lockfile_cache::LockfileCache::open(
+                opts.data.cache_dir.as_deref(),
+                &guess_root,
+                opts.data.rehash,
+            );
+        }
+        // The tracked files, and the warnings of the lockfiles read from them.
+        let early = match &work_tree {
+            Some((root, repo)) if !opts.no_lockfiles => lock_cache
+                .tracked_candidates(&repo.path().join("index"), || git::tracked_files(repo))
+                .map(|tracked| {
+                    let (found, w) = read_lockfiles(root, Some(&tracked), &mut lock_cache);
+                    content.lockfiles = found;
+                    (tracked, w)
+                }),
+            _ => None,
+        };
+        content.system = timed(t, "system", system::collect);
+        let cpu_warning = match timed(t, "cpu", cpu::collect) {
+            Ok(c) => {
+                content.cpu = c;
+                None
+            }
+            Err(e) => Some(format!("cpu: {e}")),
+        };
+        content.env = env::collect(&opts.env, opts.private);
+        let (stack, stack_warnings) = stack.join().unwrap_or_else(|_| {
+            (
+                Content::default(),
+                vec!["stack: the collector stopped unexpectedly".to_string()],
+            )
+        });
+        content.python = stack.python;
+        content.native = stack.native;
+        content.gpu = stack.gpu;
+        // Lockfiles are final unless the status names an untracked one (checked below).
+        let lockfiles_known = opts.no_lockfiles || early.is_some();
+        let prepared = (prepare && lockfiles_known && !opts.private)
+            .then(|| timed(t, "prepare", || content.prepare()))
+            .flatten();
+        let git = git
+            .join()
+            .unwrap_or_else(|_| Err("git: the collector stopped unexpectedly".into()));
+        (
+            git,
+            content,
+            early,
+            prepared,
+            (cpu_warning, data_warnings, stack_warnings),
+        )
+    });
+    let (cpu_warning, data_warnings, stack_warnings) = early_warnings;
     let (root, untracked) = match &git_result {
         Ok(facts) => (
             facts.workdir.clone().unwrap_or_else(|| opts.repo.clone()),
@@ -382,11 +416,11 @@ pub fn stamp(opts: &StampOptions) -> Manifest {
         ),
         Err(_) => (opts.repo.clone(), None),
     };
-    let (lockfiles, lock_warnings) = if opts.no_lockfiles {
-        (Vec::new(), Vec::new())
+    let lock_warnings = if opts.no_lockfiles {
+        Vec::new()
     } else {
-        match (early, untracked) {
-            (Some((tracked, early)), Some(untracked)) => {
+        let reread = match (early, untracked) {
+            (Some((tracked, early_warnings)), Some(untracked)) => {
                 let matters =
                     |f: &String| lockfile_cache::is_candidate(f.rsplit('/').next().unwrap_or(f));
                 if untracked.iter().any(matters) {
@@ -394,13 +428,21 @@ pub fn stamp(opts: &StampOptions) -> Manifest {
                     all.extend(untracked.iter().filter(|f| matters(f)).cloned());
                     all.sort();
                     all.dedup();
-                    read_lockfiles(&root, Some(&all), &mut lock_cache)
+                    Err(read_lockfiles(&root, Some(&all), &mut lock_cache))
                 } else {
-                    early
+                    Ok(early_warnings)
                 }
             }
             // No status (git failed or is missing): walk the folders.
-            _ => read_lockfiles(&root, None, &mut lock_cache),
+            _ => Err(read_lockfiles(&root, None, &mut lock_cache)),
+        };
+        match reread {
+            Ok(w) => w,
+            Err((found, w)) => {
+                content.lockfiles = found;
+                prepared = None;
+                w
+            }
         }
     };
     if t && !opts.no_lockfiles {
@@ -416,17 +458,7 @@ pub fn stamp(opts: &StampOptions) -> Manifest {
     if let Some(cap) = opts.keep_patch.filter(|_| content.git.dirty) {
         content.git.patch = patch::collect(&root, cap, &mut warnings);
     }
-    content.system = timed(t, "system", system::collect);
-    match timed(t, "cpu", cpu::collect) {
-        Ok(c) => content.cpu = c,
-        Err(e) => warnings.push(format!("cpu: {e}")),
-    }
-    content.env = env::collect(&opts.env, opts.private);
-    content.lockfiles = lockfiles;
-    content.data = data;
-    content.python = stack.python;
-    content.native = stack.native;
-    content.gpu = stack.gpu;
+    warnings.extend(cpu_warning);
     warnings.extend(lock_warnings);
     warnings.extend(data_warnings);
     warnings.extend(stack_warnings);
@@ -448,5 +480,6 @@ pub fn stamp(opts: &StampOptions) -> Manifest {
         },
         warnings: warnings.iter().map(|w| scrub_secrets(w)).collect(),
     };
-    Manifest::new(run, content)
+    let manifest = Manifest::new_prepared(run, content, prepared.as_ref());
+    (manifest, prepared)
 }
