@@ -145,17 +145,28 @@ pub struct Seen {
     /// The path.
     #[serde(rename = "p")]
     pub path: PathBuf,
-    /// Checked through its folder's metadata (see [`Snapshot`]) rather than its own.
-    #[serde(rename = "f", default, skip_serializing_if = "is_false")]
-    pub by_folder: bool,
     /// Its symbolic links were resolved.
     #[serde(rename = "r", default, skip_serializing_if = "is_false")]
     pub resolve_used: bool,
-    /// Its own metadata (following links), or `None` when absent or unreadable; not kept
-    /// for paths checked by folder.
+    /// Its own metadata (following links), or `None` when absent or unreadable.
     #[serde(rename = "s", default, skip_serializing_if = "Option::is_none")]
     pub stamp: Option<Stamp>,
     /// The resolved path, when resolution was used and succeeded.
+    #[serde(rename = "t", default, skip_serializing_if = "Option::is_none")]
+    pub resolved: Option<PathBuf>,
+}
+
+/// A folder whose metadata stands for the files in it that were used (see [`Snapshot`]).
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct SeenFolder {
+    /// The path.
+    #[serde(rename = "p")]
+    pub path: PathBuf,
+    /// Its metadata (following links), or `None` when absent or unreadable.
+    #[serde(rename = "s", default, skip_serializing_if = "Option::is_none")]
+    pub stamp: Option<Stamp>,
+    /// Its resolved path, when a file in it was resolved (the file then resolved to this
+    /// plus its name).
     #[serde(rename = "t", default, skip_serializing_if = "Option::is_none")]
     pub resolved: Option<PathBuf>,
 }
@@ -173,10 +184,12 @@ pub struct Seen {
 /// `.pth` files, system libraries) is checked file by file.
 #[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
 pub struct Snapshot {
-    /// Folders whose metadata stands for the files in them, with that metadata.
-    pub folders: Vec<(PathBuf, Option<Stamp>)>,
-    /// One per noted path, sorted by path.
+    /// Folders whose metadata stands for the files in them, sorted by path.
+    pub folders: Vec<SeenFolder>,
+    /// Every other noted path, sorted by path.
     pub entries: Vec<Seen>,
+    /// How many noted paths the folders stand for.
+    pub by_folder: usize,
 }
 
 impl Dependencies {
@@ -214,8 +227,9 @@ impl Dependencies {
             - crate::cache::RACY_WINDOW_NS;
         let recent = |s: &Option<Stamp>| s.is_some_and(|s| s.1 >= limit_ns || s.2 >= limit_ns);
         let stamp_of = |p: &Path| std::fs::metadata(p).ok().map(|m| tuple(FileStamp::of(&m)));
-        let mut folders: BTreeMap<PathBuf, Option<Stamp>> = BTreeMap::new();
+        let mut folders: BTreeMap<PathBuf, SeenFolder> = BTreeMap::new();
         let mut entries = Vec::with_capacity(by_path.len());
+        let mut by_folder_count = 0;
         for (path, (listed, resolve_used)) in by_path {
             // The reference answers, from the standard library; `Snapshot::is_current` gets
             // the same ones with fewer system calls.
@@ -230,32 +244,43 @@ impl Dependencies {
                         .any(|t| parent.starts_with(t) && parent != t.as_path())
                 });
             // By folder only where the folder also gives the resolution: the file itself is
-            // not a link (a link's target could change behind an unchanged folder).
+            // not a link (a link's target could change behind an unchanged folder), and it
+            // resolves to its folder's resolved path plus its name (or not at all, being
+            // absent: then the unchanged folder says it is still absent).
+            let mut folder_resolved = None;
             let by_folder = in_tree
                 && (!resolve_used
                     || match (&resolved, parent, path.file_name()) {
                         (Some(r), Some(parent), Some(name)) => {
-                            std::fs::canonicalize(parent).is_ok_and(|cp| cp.join(name) == *r)
+                            folder_resolved = std::fs::canonicalize(parent).ok();
+                            folder_resolved
+                                .as_ref()
+                                .is_some_and(|cp| cp.join(name) == *r)
                         }
                         (None, _, _) => std::fs::symlink_metadata(&path).is_err(),
                         _ => false,
                     });
             if by_folder {
+                by_folder_count += 1;
                 let parent = parent.unwrap_or(Path::new("/")).to_path_buf();
-                if let std::collections::btree_map::Entry::Vacant(e) = folders.entry(parent) {
-                    let stamp = stamp_of(e.key());
-                    if recent(&stamp) {
-                        return None;
+                let folder = match folders.entry(parent) {
+                    std::collections::btree_map::Entry::Occupied(e) => e.into_mut(),
+                    std::collections::btree_map::Entry::Vacant(e) => {
+                        let stamp = stamp_of(e.key());
+                        if recent(&stamp) {
+                            return None;
+                        }
+                        let path = e.key().clone();
+                        e.insert(SeenFolder {
+                            path,
+                            stamp,
+                            resolved: None,
+                        })
                     }
-                    e.insert(stamp);
+                };
+                if folder_resolved.is_some() {
+                    folder.resolved = folder_resolved;
                 }
-                entries.push(Seen {
-                    path,
-                    by_folder,
-                    resolve_used,
-                    stamp: None,
-                    resolved,
-                });
             } else {
                 let stamp = stamp_of(&path);
                 if recent(&stamp) {
@@ -263,7 +288,6 @@ impl Dependencies {
                 }
                 entries.push(Seen {
                     path,
-                    by_folder,
                     resolve_used,
                     stamp,
                     resolved,
@@ -271,8 +295,9 @@ impl Dependencies {
             }
         }
         Some(Snapshot {
-            folders: folders.into_iter().collect(),
+            folders: folders.into_values().collect(),
             entries,
+            by_folder: by_folder_count,
         })
     }
 }
@@ -287,35 +312,27 @@ impl Snapshot {
     /// thread, leaving the other cores to the collectors running meanwhile.
     pub fn is_current(&self) -> bool {
         let dirs = DirResolver::default();
-        let folders_ok = self
-            .folders
-            .iter()
-            .all(|(dir, stamp)| dirs.stamp(dir) == *stamp);
+        // An unchanged folder has the same entries; one that still resolves to the same path
+        // gives its files the same resolution.
+        let folders_ok = self.folders.iter().all(|f| {
+            dirs.stamp(&f.path) == f.stamp
+                && f.resolved
+                    .as_ref()
+                    .is_none_or(|r| dirs.resolve_any(&f.path).as_ref() == Some(r))
+        });
         folders_ok
             && self.entries.iter().all(|seen| {
-                if seen.by_folder {
-                    // The folder is unchanged, so the file is the same entry as before.
-                    return !seen.resolve_used
-                        || seen.resolved.is_none()
-                        || dirs.resolve_plain(&seen.path) == seen.resolved;
-                }
-                let lmeta = std::fs::symlink_metadata(&seen.path);
-                let plain = lmeta.as_ref().is_ok_and(|m| !m.file_type().is_symlink());
-                let stamp = match &lmeta {
-                    Ok(m) if plain => Some(FileStamp::of(m)),
-                    Ok(_) => std::fs::metadata(&seen.path)
-                        .ok()
-                        .map(|m| FileStamp::of(&m)),
-                    Err(_) => None,
-                };
-                if stamp.map(tuple) != seen.stamp {
+                // A folder that is also checked on its own (a listed `.dist-info`) is looked
+                // at once.
+                let node = dirs.node(&seen.path);
+                if node.stamp != seen.stamp {
                     return false;
                 }
                 if seen.resolve_used {
-                    let now = match &lmeta {
-                        Err(_) => None,
-                        Ok(_) if plain => dirs.resolve_plain(&seen.path),
-                        Ok(_) => std::fs::canonicalize(&seen.path).ok(),
+                    let now = match node.kind {
+                        Kind::Missing => None,
+                        Kind::Plain { .. } => dirs.resolve_plain(&seen.path),
+                        Kind::Link => std::fs::canonicalize(&seen.path).ok(),
                     };
                     if now != seen.resolved {
                         return false;
@@ -326,31 +343,57 @@ impl Snapshot {
     }
 }
 
-/// Folders looked at once each, for [`Snapshot::is_current`]: their `lstat` metadata and
-/// their resolved path.
+/// Paths looked at once each, for [`Snapshot::is_current`]: their metadata and resolved path.
 #[derive(Default)]
-struct DirResolver(RefCell<std::collections::HashMap<PathBuf, Folder>>);
+struct DirResolver(RefCell<std::collections::HashMap<PathBuf, Node>>);
+
+/// What `lstat` says of a path.
+#[derive(Clone, Copy, PartialEq, Eq)]
+enum Kind {
+    /// Absent or unreadable.
+    Missing,
+    /// A symbolic link.
+    Link,
+    /// Anything else.
+    Plain { dir: bool },
+}
 
 #[derive(Clone)]
-struct Folder {
+struct Node {
+    kind: Kind,
     /// Metadata following links.
     stamp: Option<Stamp>,
-    resolved: Option<PathBuf>,
+    /// The resolved path (`None`: it does not resolve); computed when first asked for.
+    resolved: Option<Option<PathBuf>>,
 }
 
 impl DirResolver {
-    /// The resolved path of `path`, known not to be a link itself.
+    /// The resolved path of `path`, known not to be a link itself: for an absolute path of
+    /// plain names, its folder's resolved path plus its name; with `.` or `..` in it,
+    /// component by component ([`DirResolver::resolve`]).
     fn resolve_plain(&self, path: &Path) -> Option<PathBuf> {
         let simple = path.is_absolute()
             && path
                 .components()
                 .all(|c| matches!(c, Component::RootDir | Component::Normal(_)));
         if !simple {
-            return std::fs::canonicalize(path).ok();
+            return self.resolve(path);
         }
         match (path.parent(), path.file_name()) {
-            (Some(parent), Some(name)) => Some(self.folder(parent).resolved?.join(name)),
+            (Some(parent), Some(name)) => Some(self.folder_resolved(parent)?.join(name)),
             _ => std::fs::canonicalize(path).ok(),
+        }
+    }
+
+    /// The resolved path of any path (a link, a missing path or not).
+    fn resolve_any(&self, path: &Path) -> Option<PathBuf> {
+        if !path.is_absolute() {
+            return std::fs::canonicalize(path).ok();
+        }
+        match self.node(path).kind {
+            Kind::Missing => None,
+            Kind::Link => std::fs::canonicalize(path).ok(),
+            Kind::Plain { .. } => self.resolve_plain(path),
         }
     }
 
@@ -361,38 +404,85 @@ impl DirResolver {
                 .ok()
                 .map(|m| tuple(FileStamp::of(&m)));
         }
-        self.folder(dir).stamp
+        self.node(dir).stamp
     }
 
-    fn folder(&self, dir: &Path) -> Folder {
-        if let Some(known) = self.0.borrow().get(dir) {
+    /// `lstat` of a path (and `stat` for a link), once per path.
+    fn node(&self, path: &Path) -> Node {
+        if let Some(known) = self.0.borrow().get(path) {
             return known.clone();
         }
-        let folder = match std::fs::symlink_metadata(dir) {
-            Ok(m) if !m.file_type().is_symlink() => Folder {
+        let node = match std::fs::symlink_metadata(path) {
+            Ok(m) if !m.file_type().is_symlink() => Node {
+                kind: Kind::Plain { dir: m.is_dir() },
                 stamp: Some(tuple(FileStamp::of(&m))),
-                resolved: match (dir.parent(), dir.file_name()) {
-                    (Some(parent), Some(name)) => {
-                        self.folder(parent).resolved.map(|p| p.join(name))
-                    }
-                    _ => Some(dir.to_path_buf()), // the root
-                },
-            },
-            Ok(_) => Folder {
-                stamp: std::fs::metadata(dir)
-                    .ok()
-                    .map(|m| tuple(FileStamp::of(&m))),
-                resolved: std::fs::canonicalize(dir).ok(),
-            },
-            Err(_) => Folder {
-                stamp: None,
                 resolved: None,
             },
+            Ok(_) => Node {
+                kind: Kind::Link,
+                stamp: std::fs::metadata(path)
+                    .ok()
+                    .map(|m| tuple(FileStamp::of(&m))),
+                resolved: None,
+            },
+            Err(_) => Node {
+                kind: Kind::Missing,
+                stamp: None,
+                resolved: Some(None),
+            },
         };
-        self.0
-            .borrow_mut()
-            .insert(dir.to_path_buf(), folder.clone());
-        folder
+        self.0.borrow_mut().insert(path.to_path_buf(), node.clone());
+        node
+    }
+
+    /// The resolved path of an absolute path of plain names: its folder's plus its name when
+    /// it is not a link, the standard library's answer when it is.
+    fn folder_resolved(&self, dir: &Path) -> Option<PathBuf> {
+        let node = self.node(dir);
+        if let Some(known) = node.resolved {
+            return known;
+        }
+        let resolved = match (node.kind, dir.parent(), dir.file_name()) {
+            (Kind::Link, _, _) => std::fs::canonicalize(dir).ok(),
+            (_, Some(parent), Some(name)) => self.folder_resolved(parent).map(|p| p.join(name)),
+            _ => Some(dir.to_path_buf()), // the root
+        };
+        if let Some(n) = self.0.borrow_mut().get_mut(dir) {
+            n.resolved = Some(resolved.clone());
+        }
+        resolved
+    }
+
+    /// The resolved path of any path, as `realpath(3)` finds it: component by component, each
+    /// prefix already resolved, so `..` removes the last name; a component that is a link hands
+    /// the whole path to the standard library; a missing component, or one that is not a
+    /// folder but has more after it, does not resolve.
+    fn resolve(&self, path: &Path) -> Option<PathBuf> {
+        if !path.is_absolute() {
+            return std::fs::canonicalize(path).ok();
+        }
+        let mut parts = path.components().peekable();
+        let mut cur = PathBuf::new();
+        while let Some(c) = parts.next() {
+            match c {
+                Component::RootDir => cur.push("/"),
+                Component::CurDir => {}
+                Component::ParentDir => {
+                    cur.pop();
+                }
+                Component::Prefix(_) => return std::fs::canonicalize(path).ok(),
+                Component::Normal(name) => {
+                    cur.push(name);
+                    match self.node(&cur).kind {
+                        Kind::Missing => return None,
+                        Kind::Link => return std::fs::canonicalize(path).ok(),
+                        Kind::Plain { dir } if !dir && parts.peek().is_some() => return None,
+                        Kind::Plain { .. } => {}
+                    }
+                }
+            }
+        }
+        Some(cur)
     }
 }
 
@@ -538,6 +628,67 @@ mod tests {
         assert!(!snap.is_current());
     }
 
+    /// A package tree reached through a linked folder: moving the real folder and pointing the
+    /// link at its new place leaves every folder inside with the same metadata, but the
+    /// libraries now resolve elsewhere; the folder's resolved path catches it.
+    #[test]
+    fn a_moved_tree_behind_a_link_is_seen() {
+        let dir = tempfile::tempdir().unwrap();
+        let root = std::fs::canonicalize(dir.path()).unwrap();
+        let libs = root.join("real/site-packages/numpy.libs");
+        std::fs::create_dir_all(&libs).unwrap();
+        std::fs::write(libs.join("libopenblas.so"), "elf").unwrap();
+        std::os::unix::fs::symlink(root.join("real"), root.join("env")).unwrap();
+        let site = root.join("env/site-packages");
+        let ((), deps) = record(|| {
+            let _ = canonicalize(site.join("numpy.libs/libopenblas.so"));
+        });
+        let snap = deps.snapshot(later(), std::slice::from_ref(&site)).unwrap();
+        assert_eq!(snap.by_folder, 1);
+        assert!(snap.is_current());
+        std::fs::rename(root.join("real"), root.join("moved")).unwrap();
+        std::fs::remove_file(root.join("env")).unwrap();
+        std::os::unix::fs::symlink(root.join("moved"), root.join("env")).unwrap();
+        assert!(!snap.is_current());
+    }
+
+    /// Component-by-component resolution gives what the standard library's `canonicalize`
+    /// (`realpath(3)`) gives, for `..` after folders, files, links and missing names.
+    #[test]
+    fn resolution_with_dot_dot_matches_realpath() {
+        let dir = tempfile::tempdir().unwrap();
+        let root = std::fs::canonicalize(dir.path()).unwrap();
+        std::fs::create_dir_all(root.join("pkg/sub")).unwrap();
+        std::fs::create_dir_all(root.join("pkg.libs")).unwrap();
+        std::fs::write(root.join("pkg.libs/libx.so"), "elf").unwrap();
+        std::fs::write(root.join("pkg/file"), "x").unwrap();
+        std::os::unix::fs::symlink(root.join("pkg/sub"), root.join("linked")).unwrap();
+        let cases = [
+            "pkg/../pkg.libs/libx.so",
+            "pkg/sub/../../pkg.libs/libx.so",
+            "pkg/./sub/..",
+            "pkg/file/../sub",
+            "pkg/missing/../sub",
+            "linked/../pkg.libs/libx.so",
+            "linked/..",
+            "pkg/sub/../../../..",
+        ];
+        let dirs = DirResolver::default();
+        for case in cases {
+            let path = root.join(case);
+            assert_eq!(
+                dirs.resolve(&path),
+                std::fs::canonicalize(&path).ok(),
+                "{case}"
+            );
+            assert_eq!(
+                dirs.resolve_plain(&path),
+                std::fs::canonicalize(&path).ok(),
+                "{case}"
+            );
+        }
+    }
+
     /// Inside a package tree, files are checked through their folder: what installers do
     /// (create, rename, remove entries) is seen; an in-place overwrite is the documented blind
     /// spot. Outside the tree every file is checked on its own.
@@ -566,14 +717,14 @@ mod tests {
         };
         let trees = [site.clone()];
         let snap = record().snapshot(later(), &trees).unwrap();
-        let by_folder: Vec<&Path> = snap
-            .entries
-            .iter()
-            .filter(|e| e.by_folder)
-            .map(|e| e.path.as_path())
-            .collect();
-        assert_eq!(by_folder.len(), 3, "{by_folder:?}");
+        assert_eq!(snap.by_folder, 3, "{snap:?}");
         assert_eq!(snap.folders.len(), 2);
+        // The resolved library's folder keeps its resolved path.
+        let libs_seen = snap.folders.iter().find(|f| f.path == libs).unwrap();
+        assert_eq!(
+            libs_seen.resolved.as_deref(),
+            Some(std::fs::canonicalize(&libs).unwrap().as_path())
+        );
         assert!(snap.is_current());
 
         // An installer's way: a new file renamed over the old one.
