@@ -13,7 +13,6 @@
 
 use std::io::{IsTerminal, Write};
 use std::path::PathBuf;
-use std::process::ExitCode;
 
 use clap::{Parser, Subcommand, ValueEnum};
 
@@ -27,6 +26,12 @@ use crate::report::{color_allowed, render, ReportFormat};
 
 /// Exit code for bad input.
 pub const EXIT_BAD_INPUT: u8 = 2;
+
+/// Exit code of a command that found nothing to report (`none`) or simply succeeded.
+pub const EXIT_NONE: u8 = 0;
+
+/// A command's exit code (see [`EXIT_CODES`]).
+pub type ExitStatus = u8;
 
 const EXIT_CODES: &str = "Exit codes:
   0  verdict none: no effect on results expected (stamp: success)
@@ -239,7 +244,7 @@ enum DiffFormat {
 }
 
 /// Parses the process's arguments and runs the command.
-pub fn main() -> ExitCode {
+pub fn main() -> ExitStatus {
     let cli = Cli::parse();
     match cli.command {
         Command::Stamp(args) => run_stamp(args),
@@ -254,7 +259,7 @@ pub fn main() -> ExitCode {
                 RulesFormat::Markdown => TableFormat::Markdown,
             };
             match emit(&render_table(format)) {
-                Ok(()) => ExitCode::SUCCESS,
+                Ok(()) => EXIT_NONE,
                 Err(e) => fail(format!("cannot write to stdout: {e}")),
             }
         }
@@ -262,13 +267,13 @@ pub fn main() -> ExitCode {
     }
 }
 
-fn fail(message: impl std::fmt::Display) -> ExitCode {
+fn fail(message: impl std::fmt::Display) -> ExitStatus {
     // Errors may quote a line of a file the user did not write; never echo a credential.
     eprintln!(
         "error: {}",
         crate::redact::scrub_secrets(&message.to_string())
     );
-    ExitCode::from(EXIT_BAD_INPUT)
+    EXIT_BAD_INPUT
 }
 
 /// Writes data to stdout; a closed pipe (`runprint stamp | head`) is not an error.
@@ -302,13 +307,13 @@ impl CollectArgs {
     }
 
     /// Stamps, printing warnings; `Err` carries the exit code when `--strict` refuses.
-    fn stamp(self) -> Result<Manifest, ExitCode> {
+    fn stamp(self) -> Result<Manifest, ExitStatus> {
         self.stamp_prepared(false).map(|(m, _)| m)
     }
 
     /// As [`CollectArgs::stamp`]; with `prepare`, also the parts of the TOML text serialized
     /// while git's status ran ([`stamp_prepared`]).
-    fn stamp_prepared(self, prepare: bool) -> Result<(Manifest, Option<Prepared>), ExitCode> {
+    fn stamp_prepared(self, prepare: bool) -> Result<(Manifest, Option<Prepared>), ExitStatus> {
         if !self.repo.is_dir() {
             return Err(fail(format!("`{}` is not a folder", self.repo.display())));
         }
@@ -327,7 +332,7 @@ impl CollectArgs {
     }
 }
 
-fn run_stamp(args: StampArgs) -> ExitCode {
+fn run_stamp(args: StampArgs) -> ExitStatus {
     let format = match args.format {
         StampFormat::Toml => ManifestFormat::Toml,
         StampFormat::Json => ManifestFormat::Json,
@@ -354,10 +359,10 @@ fn run_stamp(args: StampArgs) -> ExitCode {
             }
         }
     }
-    ExitCode::SUCCESS
+    EXIT_NONE
 }
 
-fn run_policy_check(file: Option<PathBuf>) -> ExitCode {
+fn run_policy_check(file: Option<PathBuf>) -> ExitStatus {
     let policy = match &file {
         Some(path) => Policy::load(path),
         None => {
@@ -383,13 +388,13 @@ fn run_policy_check(file: Option<PathBuf>) -> ExitCode {
             }
             let path = p.path.as_deref().map(|p| p.display().to_string());
             println!("ok: {}: {}", path.unwrap_or_default(), p.summary());
-            ExitCode::SUCCESS
+            EXIT_NONE
         }
         Err(e) => fail(e),
     }
 }
 
-fn run_diff(args: DiffArgs) -> ExitCode {
+fn run_diff(args: DiffArgs) -> ExitStatus {
     // The two files are parsed on two threads: parsing dominates the time of a large diff.
     let (old, new) = std::thread::scope(|s| {
         let old = s.spawn(|| Manifest::load(&args.old));
@@ -453,14 +458,14 @@ fn stdout_color() -> bool {
 }
 
 /// Prints a report and returns `exit` (the verdict's code under the policy).
-fn emit_report(report: &crate::diff::Report, format: DiffFormat, exit: u8) -> ExitCode {
+fn emit_report(report: &crate::diff::Report, format: DiffFormat, exit: u8) -> ExitStatus {
     if let Err(e) = emit(&render(report, format.report_format(), stdout_color())) {
         return fail(format!("cannot write to stdout: {e}"));
     }
-    ExitCode::from(exit)
+    exit
 }
 
-fn run_check(args: CheckArgs) -> ExitCode {
+fn run_check(args: CheckArgs) -> ExitStatus {
     let baseline = match Manifest::load(&args.baseline) {
         Ok(m) => m,
         Err(e) => return fail(e),
@@ -525,7 +530,7 @@ fn run_check(args: CheckArgs) -> ExitCode {
     emit_report(&report, args.format, exit)
 }
 
-fn run_fleet(args: FleetArgs) -> ExitCode {
+fn run_fleet(args: FleetArgs) -> ExitStatus {
     let paths = match crate::fleet::expand_inputs(&args.inputs) {
         Ok(p) => p,
         Err(e) => return fail(e),
@@ -542,10 +547,10 @@ fn run_fleet(args: FleetArgs) -> ExitCode {
     if let Err(e) = emit(&text) {
         return fail(format!("cannot write to stdout: {e}"));
     }
-    ExitCode::from(report.verdict.exit_code())
+    report.verdict.exit_code()
 }
 
-fn run_recreate(args: RecreateArgs) -> ExitCode {
+fn run_recreate(args: RecreateArgs) -> ExitStatus {
     let manifest = match Manifest::load(&args.manifest) {
         Ok(m) => m,
         Err(e) => return fail(e),
@@ -554,5 +559,5 @@ fn run_recreate(args: RecreateArgs) -> ExitCode {
     if let Err(e) = emit(&script) {
         return fail(format!("cannot write to stdout: {e}"));
     }
-    ExitCode::SUCCESS
+    EXIT_NONE
 }
