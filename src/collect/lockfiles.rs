@@ -181,28 +181,41 @@ pub fn collect_cached(
         cargo_manifests,
         cache_dir,
     };
-    // Files are read and parsed in parallel; results and warnings keep the files' order.
-    use rayon::prelude::*;
-    let shared: &LockfileCache = cache;
-    let results: Vec<(cache::Result, Outcome)> = files
-        .par_iter()
+    // Results from the cache first, on this thread: handing a few metadata checks to the
+    // thread pool costs more than doing them, and the pool may be busy. The files left are
+    // read and parsed in parallel when there are several. Results and warnings keep the
+    // files' order.
+    let mut results: Vec<Option<(cache::Result, Outcome)>> = files
+        .iter()
         .map(|(abs, shown)| {
-            let manifests = ctx.manifests_for(abs);
-            if let Some(hit) = shared.lookup(shown, abs, &manifests) {
-                return (hit, Outcome::Reused);
-            }
-            let started = std::time::SystemTime::now();
-            let mut inputs = Inputs {
-                reusable: true,
-                ..Inputs::default()
-            };
-            let mut w = Vec::new();
-            let result = (read_one(&ctx, abs, shown, &mut inputs, &mut w), w);
-            let entry = LockfileCache::entry(shown, abs, inputs, started, &result);
-            (result, Outcome::Read(entry.map(Box::new)))
+            cache
+                .lookup(shown, abs, &ctx.manifests_for(abs))
+                .map(|hit| (hit, Outcome::Reused))
         })
         .collect();
-    let mut out = Vec::with_capacity(results.len());
+    let read = |(abs, shown): &(PathBuf, String)| {
+        let started = std::time::SystemTime::now();
+        let mut inputs = Inputs {
+            reusable: true,
+            ..Inputs::default()
+        };
+        let mut w = Vec::new();
+        let result = (read_one(&ctx, abs, shown, &mut inputs, &mut w), w);
+        let entry = LockfileCache::entry(shown, abs, inputs, started, &result);
+        (result, Outcome::Read(entry.map(Box::new)))
+    };
+    let missing: Vec<usize> = (0..files.len()).filter(|&i| results[i].is_none()).collect();
+    let fresh: Vec<(cache::Result, Outcome)> = if missing.len() > 1 {
+        use rayon::prelude::*;
+        missing.par_iter().map(|&i| read(&files[i])).collect()
+    } else {
+        missing.iter().map(|&i| read(&files[i])).collect()
+    };
+    for (i, r) in missing.into_iter().zip(fresh) {
+        results[i] = Some(r);
+    }
+    let results = results.into_iter().flatten();
+    let mut out = Vec::with_capacity(files.len());
     for ((_, shown), ((lockfile, mut w), outcome)) in files.iter().zip(results) {
         cache.keep(shown, outcome);
         warnings.append(&mut w);
