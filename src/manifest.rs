@@ -627,10 +627,57 @@ struct ManifestRef<'a> {
     content: &'a Content,
 }
 
+/// One lockfile's part of a manifest, serialized on its own: its canonical JSON (an element of
+/// the content's `lockfiles` list) and its TOML (`[[lockfiles]]` with its packages).
+/// [`Content::prepare`] splices these into the rest of the manifest, so a lockfile taken
+/// unchanged from the lockfile cache, which keeps them, is not serialized again.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct LockfileText {
+    /// Canonical JSON of the lockfile.
+    pub json: String,
+    /// The lockfile's tables as a manifest holds them.
+    pub toml: String,
+}
+
+/// A list of lockfiles alone, serialized as in a manifest.
+#[derive(Serialize)]
+struct LockfilesRef<'a> {
+    lockfiles: [&'a Lockfile; 1],
+}
+
+impl LockfileText {
+    /// Serializes one lockfile.
+    pub fn of(lockfile: &Lockfile) -> Option<LockfileText> {
+        Some(LockfileText {
+            json: serde_json::to_string(lockfile).ok()?,
+            toml: toml::to_string_pretty(&LockfilesRef {
+                lockfiles: [lockfile],
+            })
+            .ok()?,
+        })
+    }
+}
+
+/// `text` with the one occurrence of `from` replaced by `to`; `None` unless it occurs exactly
+/// once.
+fn replace_once(text: &str, from: &str, to: &str) -> Option<String> {
+    let at = text.find(from)?;
+    if text[at + from.len()..].contains(from) {
+        return None;
+    }
+    let mut out = String::with_capacity(text.len() - from.len() + to.len());
+    out.push_str(&text[..at]);
+    out.push_str(to);
+    out.push_str(&text[at + from.len()..]);
+    Some(out)
+}
+
 impl Content {
     /// Prepares the serializations of everything after `git` (see [`Prepared`]); `self.git`
-    /// is left as it was. `None` when the output does not have the expected layout.
-    pub fn prepare(&mut self) -> Option<Prepared> {
+    /// is left as it was. `texts` may hold the serialized form of some lockfiles (by position
+    /// in `self.lockfiles`; see [`LockfileText`]); the others are serialized here. `None` when
+    /// the output does not have the expected layout.
+    pub fn prepare(&mut self, texts: &[Option<LockfileText>]) -> Option<Prepared> {
         static CALLS: std::sync::atomic::AtomicU64 = std::sync::atomic::AtomicU64::new(0);
         let unique = format!(
             "runprint-placeholder-{}-{}-{}",
@@ -643,30 +690,72 @@ impl Content {
             ..GitInfo::default()
         };
         let real = std::mem::replace(&mut self.git, placeholder);
-        let result = self.prepare_with_placeholder(&unique);
+        let result = self.prepare_with_placeholder(&unique, texts);
         self.git = real;
         result
     }
 
-    fn prepare_with_placeholder(&self, unique: &str) -> Option<Prepared> {
-        let json = serde_json::to_vec(self).ok()?;
+    /// The JSON and TOML of this content, with the lockfiles serialized one by one and
+    /// spliced in where a placeholder lockfile stood.
+    fn serialize_spliced(
+        &mut self,
+        unique: &str,
+        texts: &[Option<LockfileText>],
+    ) -> Option<(String, String)> {
+        let render = |content: &Content| -> Option<(String, String)> {
+            let json = serde_json::to_string(content).ok()?;
+            let toml = toml::to_string_pretty(&ManifestRef {
+                schema_version: SCHEMA_VERSION,
+                fingerprint: "",
+                run: &RunInfo::default(),
+                content,
+            })
+            .ok()?;
+            Some((json, toml))
+        };
+        if self.lockfiles.is_empty() {
+            return render(self);
+        }
+        let mut parts = Vec::with_capacity(self.lockfiles.len());
+        for (i, l) in self.lockfiles.iter().enumerate() {
+            match texts.get(i).cloned().flatten() {
+                Some(t) => parts.push(t),
+                None => parts.push(LockfileText::of(l)?),
+            }
+        }
+        let placeholder = Lockfile {
+            path: unique.to_string(),
+            ..Lockfile::default()
+        };
+        let own = LockfileText::of(&placeholder)?;
+        let lockfiles = std::mem::replace(&mut self.lockfiles, vec![placeholder]);
+        let rendered = render(self);
+        self.lockfiles = lockfiles;
+        let (json, toml) = rendered?;
+        let joined_json = parts.iter().map(|t| t.json.as_str()).collect::<Vec<_>>();
+        let joined_toml = parts.iter().map(|t| t.toml.as_str()).collect::<Vec<_>>();
+        Some((
+            replace_once(&json, &own.json, &joined_json.join(","))?,
+            replace_once(&toml, &own.toml, &joined_toml.join("\n"))?,
+        ))
+    }
+
+    fn prepare_with_placeholder(
+        &mut self,
+        unique: &str,
+        texts: &[Option<LockfileText>],
+    ) -> Option<Prepared> {
+        let (json, toml) = self.serialize_spliced(unique, texts)?;
         let mut head = b"{\"git\":".to_vec();
         head.extend(serde_json::to_vec(&self.git).ok()?);
         head.push(b',');
-        let json_tail = json.strip_prefix(head.as_slice())?;
-        let toml = toml::to_string_pretty(&ManifestRef {
-            schema_version: SCHEMA_VERSION,
-            fingerprint: "",
-            run: &RunInfo::default(),
-            content: self,
-        })
-        .ok()?;
+        let json_tail = json.as_bytes().strip_prefix(head.as_slice())?;
         // The placeholder's only key after `present`; the next line ends the table.
         let line = format!("\nbranch = \"{unique}\"\n");
         let at = toml.find(&line)? + line.len();
         let toml_tail = &toml[at..];
         toml_tail.starts_with("\n[").then(|| Prepared {
-            json_tail: json_tail[..].to_vec(),
+            json_tail: json_tail.to_vec(),
             toml_tail: toml_tail.to_string(),
         })
     }
@@ -852,6 +941,21 @@ mod tests {
         ] {
             bases.push(Manifest::load(&root.join(rel)).unwrap());
         }
+        // Several lockfiles, one without packages, one whose path needs quoting.
+        let mut many = bases[1].clone();
+        let first = many.content.lockfiles[0].clone();
+        for (i, path) in ["b/\"odd\" path.lock", "c/empty.lock", "d/uv.lock"]
+            .iter()
+            .enumerate()
+        {
+            let mut l = first.clone();
+            l.path = path.to_string();
+            if i == 1 {
+                l.packages.clear();
+            }
+            many.content.lockfiles.push(l);
+        }
+        bases.push(many);
         let gits = |base: &GitInfo| {
             let mut out = vec![base.clone(), GitInfo::default()];
             out.push(GitInfo {
@@ -891,19 +995,30 @@ mod tests {
                     // Prepared with another git section, as a stamp does before git answers.
                     let mut early = full_content.clone();
                     early.git = GitInfo::default();
-                    let prepared = early.prepare().expect("the expected layout");
-                    assert_eq!(early.git, GitInfo::default(), "prepare restores git");
-                    early.git = git;
-                    let fast = Manifest::new_prepared(run, early, Some(&prepared));
-                    assert_eq!(fast, full);
-                    assert_eq!(
-                        fast.render_prepared(ManifestFormat::Toml, Some(&prepared)),
-                        full.render(ManifestFormat::Toml)
-                    );
-                    assert_eq!(
-                        fast.render_prepared(ManifestFormat::Json, Some(&prepared)),
-                        full.render(ManifestFormat::Json)
-                    );
+                    // Without serialized lockfiles, with all of them, with every other one.
+                    let all: Vec<Option<LockfileText>> =
+                        early.lockfiles.iter().map(LockfileText::of).collect();
+                    let some: Vec<Option<LockfileText>> = all
+                        .iter()
+                        .enumerate()
+                        .map(|(i, t)| t.clone().filter(|_| i % 2 == 0))
+                        .collect();
+                    for texts in [Vec::new(), all, some] {
+                        let prepared = early.prepare(&texts).expect("the expected layout");
+                        assert_eq!(early.git, GitInfo::default(), "prepare restores git");
+                        let mut content = early.clone();
+                        content.git = git.clone();
+                        let fast = Manifest::new_prepared(run.clone(), content, Some(&prepared));
+                        assert_eq!(fast, full);
+                        assert_eq!(
+                            fast.render_prepared(ManifestFormat::Toml, Some(&prepared)),
+                            full.render(ManifestFormat::Toml)
+                        );
+                        assert_eq!(
+                            fast.render_prepared(ManifestFormat::Json, Some(&prepared)),
+                            full.render(ManifestFormat::Json)
+                        );
+                    }
                     checked += 1;
                 }
             }

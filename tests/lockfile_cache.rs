@@ -14,6 +14,7 @@ use std::path::Path;
 
 use common::{crate_path, git, repo_with, stamp_cached, write_files};
 use runprint::manifest::{Lockfile, Manifest};
+use sha2::{Digest, Sha256};
 
 /// `(reused, read, index listing reused)` as `RUNPRINT_TIMINGS` reports the cache's use.
 type Use = (usize, usize, bool);
@@ -121,8 +122,9 @@ fn the_stored_result_is_what_a_warm_stamp_records_until_the_lockfile_changes() {
     let cache = scratch.path().join("cache");
     age();
     stamp(repo.path(), &cache, &[]);
-    // Edit the stored result: a warm stamp must report the edit, which shows the result is
-    // taken from the cache rather than only written to it.
+    // Edit the stored result (keeping its length: the file stores serialized lockfiles by
+    // byte range): a warm stamp must report the edit, which shows the result is taken from
+    // the cache rather than only written to it.
     let file = std::fs::read_dir(&cache)
         .unwrap()
         .map(|e| e.unwrap().path())
@@ -134,15 +136,29 @@ fn the_stored_result_is_what_a_warm_stamp_records_until_the_lockfile_changes() {
         })
         .expect("a lockfile cache file");
     let text = std::fs::read_to_string(&file).unwrap();
-    assert!(text.contains("\"1.26.4\""));
-    std::fs::write(
-        &file,
-        text.replace("\"1.26.4\"", "\"0.0.0-from-the-cache\""),
-    )
-    .unwrap();
+    let (header, blobs) = text.split_once('\n').unwrap();
+    assert!(blobs.contains("\"1.26.4\""));
+    let edited = blobs.replace("\"1.26.4\"", "\"9.99.9\"");
+    // A stored record edited without its checksum is damage: read over, not trusted.
+    std::fs::write(&file, format!("{header}\n{edited}")).unwrap();
+    let (read_over, used) = stamp(repo.path(), &cache, &[]);
+    assert_eq!(used.0, 0);
+    assert!(versions(&read_over, "trainer/requirements.txt")
+        .contains(&("numpy".to_string(), "1.26.4".to_string())));
+    // Edited with its checksum (the file's own layout: a JSON header line naming the SHA-256
+    // of the stored lockfiles that follow it).
+    let text = std::fs::read_to_string(&file).unwrap();
+    let (header, blobs) = text.split_once('\n').unwrap();
+    let edited = blobs.replace("\"1.26.4\"", "\"9.99.9\"");
+    let sha = |b: &str| runprint::manifest::hex(&Sha256::digest(b.as_bytes()));
+    let header = header.replace(&sha(blobs), &sha(&edited));
+    std::fs::write(&file, format!("{header}\n{edited}")).unwrap();
     let (warm, _) = stamp(repo.path(), &cache, &[]);
     assert!(versions(&warm, "trainer/requirements.txt")
-        .contains(&("numpy".to_string(), "0.0.0-from-the-cache".to_string())));
+        .contains(&("numpy".to_string(), "9.99.9".to_string())));
+    // The manifest's fingerprint still matches its content: the stored text and the stored
+    // record agree.
+    assert!(!warm.is_modified());
     // The lockfile itself changes (same size, so only its times and content differ).
     write_files(
         repo.path(),

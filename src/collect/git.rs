@@ -428,21 +428,46 @@ fn uncommitted_change(
     if entries.is_empty() {
         return (Vec::new(), None, Vec::new());
     }
-    // The files are hashed in parallel; the digest then takes them in path order.
+    // Each file's metadata is looked at here, and a digest the cache still holds is reused;
+    // the files left to read are hashed in parallel when there are several (handing a few
+    // metadata checks to the thread pool costs more than doing them). The digest then takes
+    // them in path order.
     let started_ns = crate::cache::now_ns();
-    let states: Vec<(String, Option<change_cache::Entry>)> = {
-        use rayon::prelude::*;
-        entries
-            .par_iter()
-            .map(|e| {
-                if e.deleted {
-                    ("deleted".to_string(), None)
-                } else {
-                    content_digest(&e.abs, &e.path, cache, started_ns)
+    let mut to_hash = Vec::new();
+    let mut states: Vec<Option<(String, Option<change_cache::Entry>)>> = entries
+        .iter()
+        .enumerate()
+        .map(|(i, e)| {
+            if e.deleted {
+                return Some(("deleted".to_string(), None));
+            }
+            match look(&e.abs, &e.path, cache, started_ns) {
+                Look::Known(state, entry) => Some((state, entry)),
+                Look::Read(stamp) => {
+                    to_hash.push((i, stamp));
+                    None
                 }
-            })
-            .collect()
+            }
+        })
+        .collect();
+    let hash = |&(i, stamp): &(usize, FileStamp)| {
+        let e: &StatusEntry = &entries[i];
+        let sha256 = file_sha256(&e.abs);
+        let entry = sha256
+            .as_deref()
+            .and_then(|d| ChangeCache::entry(&e.path, stamp, d, started_ns));
+        (sha256.unwrap_or_else(|| "unreadable".into()), entry)
     };
+    let hashed: Vec<(String, Option<change_cache::Entry>)> = if to_hash.len() > 1 {
+        use rayon::prelude::*;
+        to_hash.par_iter().map(hash).collect()
+    } else {
+        to_hash.iter().map(hash).collect()
+    };
+    for ((i, _), h) in to_hash.iter().zip(hashed) {
+        states[*i] = Some(h);
+    }
+    let states: Vec<(String, Option<change_cache::Entry>)> = states.into_iter().flatten().collect();
     let mut digest = Sha256::new();
     for (e, (state, _)) in entries.iter().zip(&states) {
         digest.update(&e.raw);
@@ -472,41 +497,43 @@ fn path_from_bytes(bytes: &[u8]) -> PathBuf {
     }
 }
 
-/// SHA-256 of a work-tree file's content (a symbolic link's target, a folder's marker), taken
-/// from `cache` when the file's metadata is unchanged; `key` is its path in the work tree.
-/// Also the entry for the cache to keep for a regular file.
-fn content_digest(
-    path: &Path,
-    key: &str,
-    cache: &ChangeCache,
-    started_ns: i128,
-) -> (String, Option<change_cache::Entry>) {
+/// What a changed work-tree file's state is, from its metadata alone.
+enum Look {
+    /// Known without reading: a symbolic link's target, a folder's or special file's
+    /// marker, a missing file, or a digest the cache holds for this metadata (with the entry
+    /// to keep).
+    Known(String, Option<change_cache::Entry>),
+    /// A regular file to read, with its metadata before the reading.
+    Read(FileStamp),
+}
+
+/// The state of the work-tree file at `path` (`key`: its path in the work tree) as far as
+/// its metadata tells, taking a digest from `cache` when the file's metadata is unchanged.
+fn look(path: &Path, key: &str, cache: &ChangeCache, started_ns: i128) -> Look {
     let meta = match std::fs::symlink_metadata(path) {
         Ok(m) => m,
-        Err(_) => return ("missing".into(), None),
+        Err(_) => return Look::Known("missing".into(), None),
     };
     if meta.file_type().is_symlink() {
         let target = std::fs::read_link(path).unwrap_or_default();
-        return (format!("link:{}", target.display()), None);
+        return Look::Known(format!("link:{}", target.display()), None);
     }
     if meta.is_dir() {
         // A submodule or nested repository: its own commit is recorded elsewhere.
-        return ("dir".into(), None);
+        return Look::Known("dir".into(), None);
     }
     if !meta.is_file() {
         // A FIFO would block the open; a socket or device has no content to hash.
-        return ("special".into(), None);
+        return Look::Known("special".into(), None);
     }
     let stamp = FileStamp::of(&meta);
-    if let Some(known) = cache.get(key, &stamp) {
-        let entry = ChangeCache::entry(key, stamp, known, started_ns);
-        return (known.to_string(), entry);
+    match cache.get(key, &stamp) {
+        Some(known) => {
+            let entry = ChangeCache::entry(key, stamp, known, started_ns);
+            Look::Known(known.to_string(), entry)
+        }
+        None => Look::Read(stamp),
     }
-    let sha256 = file_sha256(path);
-    let entry = sha256
-        .as_deref()
-        .and_then(|d| ChangeCache::entry(key, stamp, d, started_ns));
-    (sha256.unwrap_or_else(|| "unreadable".into()), entry)
 }
 
 /// Hex SHA-256 of a regular file's content; `None` when it cannot be read.

@@ -28,11 +28,11 @@ use std::path::{Path, PathBuf};
 use std::time::SystemTime;
 
 use crate::cache::FileStamp;
-use crate::manifest::Lockfile;
+use crate::manifest::{Lockfile, LockfileText};
 use serde::{Deserialize, Serialize};
 
 const CACHE_KIND: &str = "runprint-lockfile-cache";
-const CACHE_VERSION: u32 = 1;
+const CACHE_VERSION: u32 = 2;
 
 /// What the results depend on besides files: the build that parsed them and the size limit
 /// files were read with.
@@ -60,7 +60,7 @@ struct Listing {
 }
 
 /// One lockfile's result and what it was read from.
-#[derive(Debug, Clone, Serialize, Deserialize)]
+#[derive(Debug, Clone)]
 pub struct Entry {
     /// The path shown in the manifest.
     shown: String,
@@ -68,17 +68,105 @@ pub struct Entry {
     inputs: Vec<(PathBuf, Option<FileStamp>)>,
     /// For `Cargo.lock`: the `Cargo.toml` files below its folder that decided its features.
     manifests: Vec<PathBuf>,
-    lockfile: Option<Lockfile>,
+    /// The parsed lockfile and its serialized form (`None` when it could not be read).
+    lockfile: Option<(Lockfile, LockfileText)>,
     warnings: Vec<String>,
 }
 
+/// An entry as the cache file's header holds it: the lockfile's serialized forms are stored
+/// raw after the header (byte ranges), not as escaped JSON strings.
+#[derive(Serialize, Deserialize)]
+struct StoredEntry {
+    shown: String,
+    inputs: Vec<(PathBuf, Option<FileStamp>)>,
+    manifests: Vec<PathBuf>,
+    /// Byte ranges of the lockfile's canonical JSON and of its TOML, after the header.
+    lockfile: Option<[(usize, usize); 2]>,
+    warnings: Vec<String>,
+}
+
+/// The cache file's header: one line of JSON, followed by the raw serialized lockfiles.
 #[derive(Serialize, Deserialize)]
 struct CacheFile {
     kind: String,
     version: u32,
     writer: Writer,
     listing: Option<Listing>,
-    files: Vec<Entry>,
+    files: Vec<StoredEntry>,
+    /// SHA-256 of what follows the header: a lockfile's TOML is used as stored, beside the
+    /// record parsed from its JSON, so the two must be the pair that was written.
+    blobs_sha256: String,
+}
+
+impl CacheFile {
+    /// Reads a cache file; `None` when it is damaged.
+    fn decode(bytes: &[u8]) -> Option<(CacheFile, Vec<Entry>)> {
+        // Compact JSON escapes every newline, so the header ends at the first one.
+        let nl = bytes.iter().position(|&b| b == b'\n')?;
+        let header: CacheFile = serde_json::from_slice(&bytes[..nl]).ok()?;
+        let blobs = &bytes[nl + 1..];
+        if crate::hashing::sha256_bytes(blobs) != header.blobs_sha256 {
+            return None;
+        }
+        let text = |(from, to): (usize, usize)| -> Option<String> {
+            String::from_utf8(blobs.get(from..to)?.to_vec()).ok()
+        };
+        let mut entries = Vec::with_capacity(header.files.len());
+        for f in &header.files {
+            let lockfile = match f.lockfile {
+                Some([json, toml]) => {
+                    let json = text(json)?;
+                    let lockfile: Lockfile = serde_json::from_str(&json).ok()?;
+                    let toml = text(toml)?;
+                    Some((lockfile, LockfileText { json, toml }))
+                }
+                None => None,
+            };
+            entries.push(Entry {
+                shown: f.shown.clone(),
+                inputs: f.inputs.clone(),
+                manifests: f.manifests.clone(),
+                lockfile,
+                warnings: f.warnings.clone(),
+            });
+        }
+        Some((header, entries))
+    }
+
+    /// Writes the header and the raw serialized lockfiles.
+    fn encode(writer: Writer, listing: Option<Listing>, entries: Vec<Entry>) -> Option<Vec<u8>> {
+        let mut blobs = Vec::new();
+        let mut files = Vec::with_capacity(entries.len());
+        for e in entries {
+            let lockfile = e.lockfile.map(|(_, t)| {
+                let mut range = |s: &str| {
+                    let from = blobs.len();
+                    blobs.extend_from_slice(s.as_bytes());
+                    (from, blobs.len())
+                };
+                [range(&t.json), range(&t.toml)]
+            });
+            files.push(StoredEntry {
+                shown: e.shown,
+                inputs: e.inputs,
+                manifests: e.manifests,
+                lockfile,
+                warnings: e.warnings,
+            });
+        }
+        let header = CacheFile {
+            kind: CACHE_KIND.into(),
+            version: CACHE_VERSION,
+            writer,
+            listing,
+            files,
+            blobs_sha256: crate::hashing::sha256_bytes(&blobs),
+        };
+        let mut out = serde_json::to_vec(&header).ok()?;
+        out.push(b'\n');
+        out.extend(blobs);
+        Some(out)
+    }
 }
 
 /// One lockfile's result: the parsed file (`None` when it could not be read) and warnings.
@@ -144,16 +232,16 @@ impl LockfileCache {
         }
         let loaded = crate::limits::read_regular_file(&path)
             .ok()
-            .and_then(|bytes| serde_json::from_slice::<CacheFile>(&bytes).ok())
-            .filter(|f| {
+            .and_then(|bytes| CacheFile::decode(&bytes))
+            .filter(|(f, _)| {
                 f.kind == CACHE_KIND
                     && f.version == CACHE_VERSION
                     && f.writer == Writer::this_process()
             });
         match loaded {
-            Some(f) => {
+            Some((f, entries)) => {
                 cache.old_listing = f.listing;
-                cache.old = f.files.into_iter().map(|e| (e.shown.clone(), e)).collect();
+                cache.old = entries.into_iter().map(|e| (e.shown.clone(), e)).collect();
             }
             None => cache.changed = true,
         }
@@ -201,7 +289,12 @@ impl LockfileCache {
         let current = e.inputs.first().is_some_and(|(p, _)| p == abs)
             && e.manifests == manifests
             && e.inputs.iter().all(|(p, s)| stamp_of(p) == *s);
-        current.then(|| (e.lockfile.clone(), e.warnings.clone()))
+        current.then(|| {
+            (
+                e.lockfile.as_ref().map(|(l, _)| l.clone()),
+                e.warnings.clone(),
+            )
+        })
     }
 
     /// An entry for a result read from `abs` and `inputs` since `started`, or `None` when it
@@ -227,11 +320,15 @@ impl LockfileCache {
             }
             stamped.push((p, s));
         }
+        let lockfile = match &result.0 {
+            Some(l) => Some((l.clone(), LockfileText::of(l)?)),
+            None => None,
+        };
         Some(Entry {
             shown: shown.to_string(),
             inputs: stamped,
             manifests: inputs.manifests,
-            lockfile: result.0.clone(),
+            lockfile,
             warnings: result
                 .1
                 .iter()
@@ -264,6 +361,22 @@ impl LockfileCache {
         }
     }
 
+    /// The serialized form of each of `lockfiles` that this stamp's entries hold (see
+    /// [`LockfileText`]), by position; `None` for a lockfile they do not hold as it is.
+    pub fn texts(&self, lockfiles: &[Lockfile]) -> Vec<Option<LockfileText>> {
+        lockfiles
+            .iter()
+            .map(|l| {
+                self.files
+                    .iter()
+                    .find(|e| e.shown == l.path)
+                    .and_then(|e| e.lockfile.as_ref())
+                    .filter(|(stored, _)| stored == l)
+                    .map(|(_, text)| text.clone())
+            })
+            .collect()
+    }
+
     /// For `RUNPRINT_TIMINGS`: how many lockfile results were reused and read, and whether the
     /// index listing was reused.
     pub fn summary(&self) -> String {
@@ -284,14 +397,8 @@ impl LockfileCache {
         if unchanged {
             return;
         }
-        let file = CacheFile {
-            kind: CACHE_KIND.into(),
-            version: CACHE_VERSION,
-            writer: Writer::this_process(),
-            listing: self.listing,
-            files: self.files,
-        };
-        let Ok(text) = serde_json::to_string(&file) else {
+        let Some(bytes) = CacheFile::encode(Writer::this_process(), self.listing, self.files)
+        else {
             return;
         };
         if let Some(dir) = path.parent() {
@@ -299,7 +406,7 @@ impl LockfileCache {
                 return;
             }
         }
-        let _ = crate::atomic::write_atomic(&path, text.as_bytes());
+        let _ = crate::atomic::write_atomic(&path, &bytes);
     }
 }
 

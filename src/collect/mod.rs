@@ -395,7 +395,11 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
         // Lockfiles are final unless the status names an untracked one (checked below).
         let lockfiles_known = opts.no_lockfiles || early.is_some();
         let prepared = (prepare && lockfiles_known && !opts.private)
-            .then(|| timed(t, "prepare", || content.prepare()))
+            .then(|| {
+                // Lockfiles taken from the cache come with their serialized form.
+                let texts = lock_cache.texts(&content.lockfiles);
+                timed(t, "prepare", || content.prepare(&texts))
+            })
             .flatten();
         let git = git
             .join()
