@@ -96,11 +96,14 @@ static STUCK_GIT: std::sync::Mutex<std::collections::BTreeSet<PathBuf>> =
 ///   reader spin, see `tests/fs_traps.rs`) and a thread cannot be killed: after the timeout the
 ///   git section is left empty with a warning, the repository is remembered, and later stamps
 ///   of it in this process return that warning at once instead of starting another thread.
-fn collect_git_with_timeout(
+///
+/// [`start_git_collector`] starts the thread; [`GitPending::wait`] waits for its answer, so
+/// the caller does other work meanwhile.
+fn start_git_collector(
     opts: &StampOptions,
     control: std::sync::Arc<git::GitControl>,
     started: git::Started,
-) -> Result<git::GitFacts, String> {
+) -> GitPending {
     let secs = opts
         .env
         .get(GIT_TIMEOUT_VAR)
@@ -112,12 +115,12 @@ fn collect_git_with_timeout(
     if stuck().contains(&key) {
         drop(started);
         git::abandon_git_status(&control);
-        return Err(format!(
+        return GitPending::Done(Err(format!(
             "git: an earlier reading of the repository at `{}` has not finished (a damaged \
              object can make the git library loop; `git fsck` checks the repository); git \
              facts not recorded",
             opts.repo.display()
-        ));
+        )));
     }
     let (tx, rx) = std::sync::mpsc::channel();
     // Set by the thread when it ends, under the STUCK_GIT lock, so that the watchdog never
@@ -159,32 +162,84 @@ fn collect_git_with_timeout(
             .unwrap_or_else(|e| e.into_inner())
             .take()
             .unwrap_or(Ok(None));
-        return git::collect(&opts.repo, opts.private, &control, started, cache_use);
+        return GitPending::Done(git::collect(
+            &opts.repo,
+            opts.private,
+            &control,
+            started,
+            cache_use,
+        ));
     }
-    let timeout = |what: &str| {
-        format!(
-            "git: no answer from the repository at `{}` within {secs} s{what}; git facts not \
-             recorded",
-            opts.repo.display()
-        )
-    };
-    match rx.recv_timeout(std::time::Duration::from_secs(secs)) {
-        Ok(result) => result,
-        Err(_) => {
-            // Kill `git` if that is what runs; its thread then answers at once.
-            control.stop();
-            match rx.recv_timeout(std::time::Duration::from_millis(500)) {
-                Ok(Ok(facts)) => Ok(facts),
-                Ok(Err(_)) => Err(timeout(" (`git status` was stopped)")),
-                Err(_) => {
-                    let mut stuck = stuck();
-                    if !finished.load(std::sync::atomic::Ordering::SeqCst) {
-                        stuck.insert(key);
+    GitPending::Running {
+        rx,
+        finished,
+        key,
+        secs,
+        control,
+        repo: opts.repo.clone(),
+    }
+}
+
+/// A git collector started by [`start_git_collector`].
+enum GitPending {
+    /// Answered without a thread.
+    Done(Result<git::GitFacts, String>),
+    /// Running on its thread, which sends its answer on `rx`.
+    Running {
+        rx: std::sync::mpsc::Receiver<Result<git::GitFacts, String>>,
+        /// Set by the thread when it ends.
+        finished: std::sync::Arc<std::sync::atomic::AtomicBool>,
+        /// The repository's key in [`STUCK_GIT`].
+        key: PathBuf,
+        /// The timeout in seconds.
+        secs: u64,
+        control: std::sync::Arc<git::GitControl>,
+        repo: PathBuf,
+    },
+}
+
+impl GitPending {
+    /// The collector's answer, or a warning once the timeout has passed.
+    fn wait(self) -> Result<git::GitFacts, String> {
+        let (rx, finished, key, secs, control, repo) = match self {
+            GitPending::Done(result) => return result,
+            GitPending::Running {
+                rx,
+                finished,
+                key,
+                secs,
+                control,
+                repo,
+            } => (rx, finished, key, secs, control, repo),
+        };
+        let timeout = |what: &str| {
+            format!(
+                "git: no answer from the repository at `{}` within {secs} s{what}; git facts \
+                 not recorded",
+                repo.display()
+            )
+        };
+        match rx.recv_timeout(std::time::Duration::from_secs(secs)) {
+            Ok(result) => result,
+            Err(std::sync::mpsc::RecvTimeoutError::Disconnected) => {
+                Err("git: the collector stopped unexpectedly".into())
+            }
+            Err(std::sync::mpsc::RecvTimeoutError::Timeout) => {
+                // Kill `git` if that is what runs; its thread then answers at once.
+                control.stop();
+                match rx.recv_timeout(std::time::Duration::from_millis(500)) {
+                    Ok(Ok(facts)) => Ok(facts),
+                    Ok(Err(_)) => Err(timeout(" (`git status` was stopped)")),
+                    Err(_) => {
+                        let mut stuck = STUCK_GIT.lock().unwrap_or_else(|e| e.into_inner());
+                        if !finished.load(std::sync::atomic::Ordering::SeqCst) {
+                            stuck.insert(key);
+                        }
+                        Err(timeout(
+                            " (a damaged object can make the git library loop; `git fsck` \
+                             checks the repository)",
+                        ))
                     }
-                    Err(timeout(
-                        " (a damaged object can make the git library loop; `git fsck` \
-                         checks the repository)",
-                    ))
                 }
             }
         }
@@ -338,12 +393,9 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
             (l, w)
         };
     let mut lock_cache = lockfile_cache::LockfileCache::disabled();
+    let git_started = std::time::Instant::now();
+    let git = start_git_collector(opts, control, started);
     let (git_result, mut content, early, mut prepared, early_warnings) = std::thread::scope(|s| {
-        let git = s.spawn(|| {
-            timed(t, "git", || {
-                collect_git_with_timeout(opts, control, started)
-            })
-        });
         let stack = s.spawn(|| {
             lower_this_threads_priority();
             let mut w = Vec::new();
@@ -401,9 +453,13 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
                 timed(t, "prepare", || content.prepare(&texts))
             })
             .flatten();
-        let git = git
-            .join()
-            .unwrap_or_else(|_| Err("git: the collector stopped unexpectedly".into()));
+        let git = git.wait();
+        if t {
+            eprintln!(
+                "timing: git {:.3} ms",
+                git_started.elapsed().as_secs_f64() * 1e3
+            );
+        }
         (
             git,
             content,
