@@ -80,8 +80,13 @@ pub fn collect(
     control: &GitControl,
     started: Started,
     cache: CacheUse,
+    opened: Option<Repository>,
 ) -> Result<GitFacts, String> {
-    let repo = match Repository::discover(dir) {
+    let found = match opened {
+        Some(repo) => Ok(repo),
+        None => Repository::discover(dir),
+    };
+    let repo = match found {
         Ok(r) => r,
         Err(e) if e.code() == git2::ErrorCode::NotFound => {
             abandon_git_status(control);
@@ -397,8 +402,8 @@ fn status_with_libgit2(repo: &Repository, root: &Path) -> Result<Vec<StatusEntry
 
 /// The files in the index (submodules left out), relative to the work tree, in the index's
 /// (sorted) order. Reading the index touches no object, so a damaged object cannot stall it.
-pub fn tracked_files(repo: &Repository) -> Option<Vec<String>> {
-    let index = repo.index().ok()?;
+pub fn tracked_files(index: &Path) -> Option<Vec<String>> {
+    let index = git2::Index::open(index).ok()?;
     Some(
         index
             .iter()
@@ -582,8 +587,9 @@ fn submodules(repo: &Repository) -> Vec<Submodule> {
     subs
 }
 
-/// The work tree that contains `dir`: its root, and the repository opened once (for its
-/// index). `None` outside a repository or in a bare one.
+/// The work tree that contains `dir`: its root, and the repository opened once (its index is
+/// the `index` file of [`Repository::path`]; [`collect`] takes it). `None` outside a
+/// repository or in a bare one.
 pub fn work_tree(dir: &Path) -> Option<(PathBuf, Repository)> {
     let repo = Repository::discover(dir).ok()?;
     let root = repo.workdir()?.to_path_buf();

@@ -103,6 +103,7 @@ fn start_git_collector(
     opts: &StampOptions,
     control: std::sync::Arc<git::GitControl>,
     started: git::Started,
+    opened: Option<git2::Repository>,
 ) -> GitPending {
     let secs = opts
         .env
@@ -138,18 +139,21 @@ fn start_git_collector(
         key.clone(),
         finished.clone(),
     );
-    // The status moves into the thread; if the thread cannot start, it comes back here.
-    let started = std::sync::Arc::new(std::sync::Mutex::new(Some(started)));
-    let mine = started.clone();
+    // The status and the opened repository move into the thread; if the thread cannot
+    // start, they come back here.
+    let handed = std::sync::Arc::new(std::sync::Mutex::new(Some((started, opened))));
+    let mine = handed.clone();
+    let take = |h: &std::sync::Mutex<Option<(git::Started, Option<git2::Repository>)>>| {
+        h.lock()
+            .unwrap_or_else(|e| e.into_inner())
+            .take()
+            .unwrap_or((Ok(None), None))
+    };
     let spawned = std::thread::Builder::new()
         .name("runprint-git".into())
         .spawn(move || {
-            let started = mine
-                .lock()
-                .unwrap_or_else(|e| e.into_inner())
-                .take()
-                .unwrap_or(Ok(None));
-            let result = git::collect(&repo, private, &ctl, started, cache);
+            let (started, opened) = take(&mine);
+            let result = git::collect(&repo, private, &ctl, started, cache, opened);
             let mut stuck = STUCK_GIT.lock().unwrap_or_else(|e| e.into_inner());
             done.store(true, std::sync::atomic::Ordering::SeqCst);
             stuck.remove(&done_key);
@@ -157,17 +161,14 @@ fn start_git_collector(
             let _ = tx.send(result);
         });
     if spawned.is_err() {
-        let started = started
-            .lock()
-            .unwrap_or_else(|e| e.into_inner())
-            .take()
-            .unwrap_or(Ok(None));
+        let (started, opened) = take(&handed);
         return GitPending::Done(git::collect(
             &opts.repo,
             opts.private,
             &control,
             started,
             cache_use,
+            opened,
         ));
     }
     GitPending::Running {
@@ -373,7 +374,10 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
     // git's status takes longest: it starts before anything else.
     let control = std::sync::Arc::new(git::GitControl::new(opts.env.get("PATH").cloned()));
     let started = git::start_status(&opts.repo, &control);
-    let work_tree = git::work_tree(&opts.repo);
+    let (work_tree, opened) = match git::work_tree(&opts.repo) {
+        Some((root, repo)) => (Some((root, repo.path().join("index"))), Some(repo)),
+        None => (None, None),
+    };
     let guess_root = work_tree
         .as_ref()
         .map_or_else(|| opts.repo.clone(), |(root, _)| root.clone());
@@ -394,7 +398,7 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
         };
     let mut lock_cache = lockfile_cache::LockfileCache::disabled();
     let git_started = std::time::Instant::now();
-    let git = start_git_collector(opts, control, started);
+    let git = start_git_collector(opts, control, started, opened);
     let (git_result, mut content, early, mut prepared, early_warnings) = std::thread::scope(|s| {
         let stack = s.spawn(|| {
             lower_this_threads_priority();
@@ -417,8 +421,8 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
         }
         // The tracked files, and the warnings of the lockfiles read from them.
         let early = match &work_tree {
-            Some((root, repo)) if !opts.no_lockfiles => lock_cache
-                .tracked_candidates(&repo.path().join("index"), || git::tracked_files(repo))
+            Some((root, index)) if !opts.no_lockfiles => lock_cache
+                .tracked_candidates(index, || git::tracked_files(index))
                 .map(|tracked| {
                     let (found, w) = read_lockfiles(root, Some(&tracked), &mut lock_cache);
                     content.lockfiles = found;
