@@ -68,6 +68,25 @@ pub fn manifest(data: &[u8]) {
                 assert_eq!(back, m, "round trip changed the manifest:\n{rendered}");
                 assert_eq!(back.is_modified(), m.is_modified());
             }
+            // A stamp serializes everything after `[git]` ahead of time and puts the manifest
+            // together from the parts: byte for byte what a full serialization gives.
+            let mut content = m.content.clone();
+            content.git = Default::default();
+            let texts: Vec<_> = content
+                .lockfiles
+                .iter()
+                .map(runprint::manifest::LockfileText::of)
+                .collect();
+            if let Some(prepared) = content.prepare(&texts) {
+                content.git = m.content.git.clone();
+                let rebuilt = Manifest::new_prepared(m.run.clone(), content, Some(&prepared));
+                let full = Manifest::new(m.run.clone(), m.content.clone());
+                assert_eq!(rebuilt, full);
+                assert_eq!(
+                    rebuilt.render_prepared(ManifestFormat::Toml, Some(&prepared)),
+                    full.render(ManifestFormat::Toml)
+                );
+            }
         }
         Err(e) => assert!(e.to_string().contains("fuzz/m.toml"), "{e}"),
     }
