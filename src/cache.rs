@@ -26,6 +26,59 @@ pub const CACHE_VERSION: u32 = 1;
 const CACHE_KIND: &str = "runprint-digest-cache";
 const CACHE_FILE: &str = "digests-v1.json";
 
+/// Cache files unused for this long are removed when a cache file is next written: a new
+/// runprint build, another set of variables or another working folder starts a new stack
+/// cache file, and every repository stamped has its own lockfile and work-tree files.
+pub const UNUSED_CACHE_FILE: std::time::Duration = std::time::Duration::from_secs(30 * 24 * 3600);
+
+/// The per-key and per-repository cache files that [`write_cache_file`] prunes.
+const PRUNED_PREFIXES: &[&str] = &["stack-", "lockfiles-", "worktree-"];
+
+/// Marks a cache file as used now (its modification time), so that pruning keeps it. Best
+/// effort.
+pub fn mark_used(path: &Path) {
+    if let Ok(f) = std::fs::File::options().append(true).open(path) {
+        let _ = f.set_modified(std::time::SystemTime::now());
+    }
+}
+
+/// Writes a cache file atomically, then removes the per-key and per-repository cache files in
+/// its folder left unused for [`UNUSED_CACHE_FILE`]. Best effort: a cache that cannot be
+/// written only costs time later.
+pub fn write_cache_file(path: &Path, bytes: &[u8]) {
+    let Some(dir) = path.parent() else { return };
+    if std::fs::create_dir_all(dir).is_err() {
+        return;
+    }
+    let _ = write_atomic(path, bytes);
+    prune_unused(dir, std::time::SystemTime::now());
+}
+
+/// Removes the cache files named like [`PRUNED_PREFIXES`] (`*.json`) in `dir` last modified
+/// more than [`UNUSED_CACHE_FILE`] before `now`.
+pub fn prune_unused(dir: &Path, now: std::time::SystemTime) {
+    let Ok(entries) = std::fs::read_dir(dir) else {
+        return;
+    };
+    for entry in entries.flatten() {
+        let name = entry.file_name();
+        let Some(name) = name.to_str() else { continue };
+        if !(name.ends_with(".json") && PRUNED_PREFIXES.iter().any(|p| name.starts_with(p))) {
+            continue;
+        }
+        let unused = entry
+            .metadata()
+            .ok()
+            .filter(|m| m.is_file())
+            .and_then(|m| m.modified().ok())
+            .and_then(|m| now.duration_since(m).ok())
+            .is_some_and(|age| age > UNUSED_CACHE_FILE);
+        if unused {
+            let _ = std::fs::remove_file(entry.path());
+        }
+    }
+}
+
 /// The metadata of the running program: a cache written by another build of runprint may
 /// hold results that build computed differently.
 pub fn program_stamp() -> Option<FileStamp> {

@@ -203,3 +203,73 @@ fn a_lockfile_added_to_the_index_or_left_untracked_is_found() {
         .iter()
         .all(|l| l.path != "eval/requirements.txt"));
 }
+
+/// Cache files left unused for 30 days are removed when a cache file is next written; the
+/// files a stamp uses are marked as used (their modification time), so they stay.
+#[test]
+fn cache_files_left_unused_are_removed_and_used_ones_kept() {
+    let repo = repository();
+    let scratch = tempfile::tempdir().unwrap();
+    let cache = scratch.path().join("cache");
+    std::fs::create_dir_all(&cache).unwrap();
+    let long_ago = std::time::SystemTime::now() - std::time::Duration::from_secs(40 * 24 * 3600);
+    let set_old = |p: &Path| {
+        let f = std::fs::File::options().append(true).open(p).unwrap();
+        f.set_modified(long_ago).unwrap();
+    };
+    // A stack cache of an older build, another repository's lockfiles, and files that are
+    // not per-key caches (kept whatever their age).
+    for name in [
+        "stack-0123456789abcdef.json",
+        "lockfiles-0123456789abcdef.json",
+        "digests-v1.json",
+        "notes.txt",
+    ] {
+        std::fs::write(cache.join(name), "{}").unwrap();
+        set_old(&cache.join(name));
+    }
+    age();
+    stamp(repo.path(), &cache, &[]);
+    let names = |dir: &Path| -> Vec<String> {
+        let mut v: Vec<String> = std::fs::read_dir(dir)
+            .unwrap()
+            .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+            .collect();
+        v.sort();
+        v
+    };
+    let after = names(&cache);
+    assert!(
+        !after.contains(&"stack-0123456789abcdef.json".to_string()),
+        "{after:?}"
+    );
+    assert!(!after.contains(&"lockfiles-0123456789abcdef.json".to_string()));
+    assert!(after.contains(&"digests-v1.json".to_string()));
+    assert!(after.contains(&"notes.txt".to_string()));
+    // This stamp's own files, made to look old, are marked used again by a warm stamp (which
+    // writes nothing), so the next pruning keeps them.
+    let own: Vec<String> = after
+        .iter()
+        .filter(|n| n.starts_with("lockfiles-") || n.starts_with("stack-"))
+        .cloned()
+        .collect();
+    assert_eq!(own.len(), 2, "{after:?}");
+    for n in &own {
+        set_old(&cache.join(n));
+    }
+    let (_, used) = stamp(repo.path(), &cache, &[]);
+    assert_eq!(used, (3, 0, true));
+    for n in &own {
+        let age = cache
+            .join(n)
+            .metadata()
+            .unwrap()
+            .modified()
+            .unwrap()
+            .elapsed();
+        assert!(
+            age.unwrap_or_default() < std::time::Duration::from_secs(3600),
+            "{n}"
+        );
+    }
+}

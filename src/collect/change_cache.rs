@@ -101,6 +101,7 @@ impl ChangeCache {
         let same = entries.len() == self.old.len()
             && entries.iter().all(|e| self.old.get(&e.path) == Some(e));
         if same {
+            crate::cache::mark_used(&path);
             return;
         }
         entries.sort_by(|a, b| a.path.cmp(&b.path));
@@ -112,12 +113,7 @@ impl ChangeCache {
         let Ok(bytes) = serde_json::to_vec(&file) else {
             return;
         };
-        if let Some(dir) = path.parent() {
-            if std::fs::create_dir_all(dir).is_err() {
-                return;
-            }
-        }
-        let _ = crate::atomic::write_atomic(&path, &bytes);
+        crate::cache::write_cache_file(&path, &bytes);
     }
 }
 

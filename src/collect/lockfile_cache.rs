@@ -395,18 +395,14 @@ impl LockfileCache {
             && self.listing.as_ref().map(|l| (&l.index, l.stamp))
                 == self.old_listing.as_ref().map(|l| (&l.index, l.stamp));
         if unchanged {
+            crate::cache::mark_used(&path);
             return;
         }
         let Some(bytes) = CacheFile::encode(Writer::this_process(), self.listing, self.files)
         else {
             return;
         };
-        if let Some(dir) = path.parent() {
-            if std::fs::create_dir_all(dir).is_err() {
-                return;
-            }
-        }
-        let _ = crate::atomic::write_atomic(&path, &bytes);
+        crate::cache::write_cache_file(&path, &bytes);
     }
 }
 

@@ -124,13 +124,17 @@ struct CacheFile {
 /// The cached result for `key` in `dir`, if there is one and every path it was computed from
 /// still looks the same.
 pub fn load(dir: &Path, key: &Key) -> Option<Scanned> {
-    let bytes = crate::limits::read_regular_file(&dir.join(key.file_name())).ok()?;
+    let path = dir.join(key.file_name());
+    let bytes = crate::limits::read_regular_file(&path).ok()?;
     let file: CacheFile = serde_json::from_slice(&bytes).ok()?;
-    (file.kind == CACHE_KIND
+    let current = file.kind == CACHE_KIND
         && file.version == CACHE_VERSION
         && file.key == *key
-        && file.snapshot.is_current())
-    .then_some(file.scanned)
+        && file.snapshot.is_current();
+    if current {
+        crate::cache::mark_used(&path);
+    }
+    current.then_some(file.scanned)
 }
 
 /// Saves a result with the snapshot of what it was computed from. Best effort: a cache that
@@ -146,9 +150,6 @@ pub fn save(dir: &Path, key: &Key, snapshot: Snapshot, scanned: &Scanned) {
         snapshot,
         scanned: scanned.clone(),
     };
-    if std::fs::create_dir_all(dir).is_err() {
-        return;
-    }
     let Ok(text) = serde_json::to_string(&file) else {
         return;
     };
@@ -158,7 +159,7 @@ pub fn save(dir: &Path, key: &Key, snapshot: Snapshot, scanned: &Scanned) {
     if crate::redact::scrub_secrets(&text) != text {
         return;
     }
-    let _ = crate::atomic::write_atomic(&dir.join(key.file_name()), text.as_bytes());
+    crate::cache::write_cache_file(&dir.join(key.file_name()), text.as_bytes());
 }
 
 /// Runs `scan` with its file accesses recorded, and saves the result when it can be trusted.
