@@ -46,23 +46,37 @@ pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<(), WriteError> {
 /// `.runprint-*.tmp` last modified more than [`STALE_TEMPORARY`] before `now`. Best effort:
 /// a file that cannot be read or removed (another process removed it first) is left alone.
 pub fn remove_stale_temporaries(dir: &Path, now: SystemTime) {
+    remove_older_than(dir, now, STALE_TEMPORARY, |name| {
+        name.starts_with(PREFIX) && name.ends_with(SUFFIX)
+    });
+}
+
+/// Removes the plain files in `dir` whose (UTF-8) name `matches` and that were last modified
+/// more than `age` before `now`. Best effort: a file that cannot be read or removed (another
+/// process removed it first) is left alone.
+pub fn remove_older_than(
+    dir: &Path,
+    now: SystemTime,
+    age: std::time::Duration,
+    matches: impl Fn(&str) -> bool,
+) {
     let Ok(entries) = std::fs::read_dir(dir) else {
         return;
     };
     for entry in entries.flatten() {
         let name = entry.file_name();
         let Some(name) = name.to_str() else { continue };
-        if !(name.starts_with(PREFIX) && name.ends_with(SUFFIX)) {
+        if !matches(name) {
             continue;
         }
         // `DirEntry::metadata` does not follow symbolic links.
         let Ok(meta) = entry.metadata() else { continue };
-        let stale = meta
+        let old = meta
             .modified()
             .ok()
             .and_then(|m| now.duration_since(m).ok())
-            .is_some_and(|age| age > STALE_TEMPORARY);
-        if meta.is_file() && stale {
+            .is_some_and(|a| a > age);
+        if meta.is_file() && old {
             let _ = std::fs::remove_file(entry.path());
         }
     }

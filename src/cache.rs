@@ -57,26 +57,9 @@ pub fn write_cache_file(path: &Path, bytes: &[u8]) {
 /// Removes the cache files named like [`PRUNED_PREFIXES`] (`*.json`) in `dir` last modified
 /// more than [`UNUSED_CACHE_FILE`] before `now`.
 pub fn prune_unused(dir: &Path, now: std::time::SystemTime) {
-    let Ok(entries) = std::fs::read_dir(dir) else {
-        return;
-    };
-    for entry in entries.flatten() {
-        let name = entry.file_name();
-        let Some(name) = name.to_str() else { continue };
-        if !(name.ends_with(".json") && PRUNED_PREFIXES.iter().any(|p| name.starts_with(p))) {
-            continue;
-        }
-        let unused = entry
-            .metadata()
-            .ok()
-            .filter(|m| m.is_file())
-            .and_then(|m| m.modified().ok())
-            .and_then(|m| now.duration_since(m).ok())
-            .is_some_and(|age| age > UNUSED_CACHE_FILE);
-        if unused {
-            let _ = std::fs::remove_file(entry.path());
-        }
-    }
+    crate::atomic::remove_older_than(dir, now, UNUSED_CACHE_FILE, |name| {
+        name.ends_with(".json") && PRUNED_PREFIXES.iter().any(|p| name.starts_with(p))
+    });
 }
 
 /// The metadata of the running program: a cache written by another build of runprint may

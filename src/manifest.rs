@@ -769,9 +769,9 @@ impl Content {
         }
         let mut parts = Vec::with_capacity(self.lockfiles.len());
         for (i, l) in self.lockfiles.iter().enumerate() {
-            match texts.get(i).cloned().flatten() {
-                Some(t) => parts.push(t),
-                None => parts.push(LockfileText::of(l)?),
+            match texts.get(i).and_then(Option::as_ref) {
+                Some(t) => parts.push(std::borrow::Cow::Borrowed(t)),
+                None => parts.push(std::borrow::Cow::Owned(LockfileText::of(l)?)),
             }
         }
         let placeholder = Lockfile {
@@ -796,18 +796,22 @@ impl Content {
         unique: &str,
         texts: &[Option<LockfileText>],
     ) -> Option<Prepared> {
-        let (json, toml) = self.serialize_spliced(unique, texts)?;
+        let (json, mut toml) = self.serialize_spliced(unique, texts)?;
         let mut head = b"{\"git\":".to_vec();
         head.extend(serde_json::to_vec(&self.git).ok()?);
         head.push(b',');
-        let json_tail = json.as_bytes().strip_prefix(head.as_slice())?;
+        let mut json_tail = json.into_bytes();
+        if !json_tail.starts_with(&head) {
+            return None;
+        }
+        json_tail.drain(..head.len());
         // The placeholder's only key after `present`; the next line ends the table.
         let line = format!("\nbranch = \"{unique}\"\n");
         let at = toml.find(&line)? + line.len();
-        let toml_tail = &toml[at..];
-        toml_tail.starts_with("\n[").then(|| Prepared {
-            json_tail: json_tail.to_vec(),
-            toml_tail: toml_tail.to_string(),
+        let toml_tail = toml.split_off(at);
+        toml_tail.starts_with("\n[").then_some(Prepared {
+            json_tail,
+            toml_tail,
         })
     }
 

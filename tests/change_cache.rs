@@ -9,7 +9,7 @@ mod common;
 use std::path::Path;
 use std::process::Command;
 
-use common::{git, repo_with, stamp_cached, write_files};
+use common::{cache_file, git, repo_with, stamp_cached, write_files};
 use sha2::{Digest, Sha256};
 
 fn stamp(repo: &Path, cache: &Path, extra: &[&str]) -> Option<String> {
@@ -67,16 +67,7 @@ fn a_warm_stamp_reuses_file_digests_only_while_their_metadata_is_unchanged() {
     assert_eq!(stamp(repo.path(), &cache, &[]).as_deref(), Some(&*want));
 
     // Replace one stored digest: the warm stamp's result changes, so the digests are reused.
-    let file = std::fs::read_dir(&cache)
-        .unwrap()
-        .map(|e| e.unwrap().path())
-        .find(|p| {
-            p.file_name()
-                .unwrap()
-                .to_string_lossy()
-                .starts_with("worktree-")
-        })
-        .expect("a work-tree cache file");
+    let file = cache_file(&cache, "worktree-");
     let text = std::fs::read_to_string(&file).unwrap();
     let out = Command::new("sha256sum")
         .arg("train.py")

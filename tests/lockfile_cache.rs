@@ -12,7 +12,7 @@ mod common;
 
 use std::path::Path;
 
-use common::{crate_path, git, repo_with, stamp_cached, write_files};
+use common::{cache_file, crate_path, git, repo_with, stamp_cached, write_files};
 use runprint::manifest::{Lockfile, Manifest};
 use sha2::{Digest, Sha256};
 
@@ -125,16 +125,7 @@ fn the_stored_result_is_what_a_warm_stamp_records_until_the_lockfile_changes() {
     // Edit the stored result (keeping its length: the file stores serialized lockfiles by
     // byte range): a warm stamp must report the edit, which shows the result is taken from
     // the cache rather than only written to it.
-    let file = std::fs::read_dir(&cache)
-        .unwrap()
-        .map(|e| e.unwrap().path())
-        .find(|p| {
-            p.file_name()
-                .unwrap()
-                .to_string_lossy()
-                .starts_with("lockfiles-")
-        })
-        .expect("a lockfile cache file");
+    let file = cache_file(&cache, "lockfiles-");
     let text = std::fs::read_to_string(&file).unwrap();
     let (header, blobs) = text.split_once('\n').unwrap();
     assert!(blobs.contains("\"1.26.4\""));

@@ -172,15 +172,6 @@ impl CacheFile {
 /// One lockfile's result: the parsed file (`None` when it could not be read) and warnings.
 pub type Result = (Option<Lockfile>, Vec<String>);
 
-/// How a lockfile's result was obtained, for [`LockfileCache::keep`].
-#[derive(Debug)]
-pub enum Outcome {
-    /// Taken from the cache.
-    Reused,
-    /// Read anew; the entry to store, `None` when it cannot be trusted later.
-    Read(Option<Box<Entry>>),
-}
-
 /// What one lockfile's reading depended on, noted by the reader.
 #[derive(Debug, Default)]
 pub struct Inputs {
@@ -264,10 +255,7 @@ impl LockfileCache {
                 return Some(old.candidates.clone());
             }
         }
-        let candidates: Vec<String> = list()?
-            .into_iter()
-            .filter(|f| is_candidate(f.rsplit('/').next().unwrap_or(f)))
-            .collect();
+        let candidates: Vec<String> = list()?.into_iter().filter(|f| is_candidate(f)).collect();
         // Metadata taken after the reading, trusted only if older than the racy window.
         let now = stamp_of(index);
         self.listing = match now {
@@ -284,17 +272,34 @@ impl LockfileCache {
 
     /// The stored result for the lockfile shown as `shown` at `abs`, if every path it was read
     /// from looks the same and (for `Cargo.lock`) the same `manifests` decide its features.
-    pub fn lookup(&self, shown: &str, abs: &Path, manifests: &[PathBuf]) -> Option<Result> {
-        let e = self.old.get(shown)?;
-        let current = e.inputs.first().is_some_and(|(p, _)| p == abs)
-            && e.manifests == manifests
-            && e.inputs.iter().all(|(p, s)| stamp_of(p) == *s);
-        current.then(|| {
+    /// A stored entry used moves to this stamp's entries (looked up first, for a second
+    /// reading after git's status).
+    pub fn lookup(&mut self, shown: &str, abs: &Path, manifests: &[PathBuf]) -> Option<Result> {
+        let current = |e: &Entry| {
+            e.inputs.first().is_some_and(|(p, _)| p == abs)
+                && e.manifests == manifests
+                && e.inputs.iter().all(|(p, s)| stamp_of(p) == *s)
+        };
+        let result = |e: &Entry| {
             (
                 e.lockfile.as_ref().map(|(l, _)| l.clone()),
                 e.warnings.clone(),
             )
-        })
+        };
+        if let Some(e) = self.files.iter().find(|e| e.shown == shown) {
+            return current(e).then(|| {
+                self.reused += 1;
+                result(e)
+            });
+        }
+        let e = self.old.remove(shown)?;
+        if !current(&e) {
+            return None;
+        }
+        self.reused += 1;
+        let found = result(&e);
+        self.files.push(e);
+        Some(found)
     }
 
     /// An entry for a result read from `abs` and `inputs` since `started`, or `None` when it
@@ -337,28 +342,13 @@ impl LockfileCache {
         })
     }
 
-    /// Keeps the entry of the lockfile shown as `shown` for saving.
-    pub fn keep(&mut self, shown: &str, outcome: Outcome) {
-        match outcome {
-            Outcome::Read(Some(e)) => {
-                self.read += 1;
-                self.changed = true;
-                self.files.retain(|f| f.shown != e.shown);
-                self.files.push(*e);
-            }
-            Outcome::Read(None) => {
-                self.read += 1;
-                self.changed = true;
-            }
-            Outcome::Reused => {
-                self.reused += 1;
-                if let Some(e) = self.old.get(shown) {
-                    if !self.files.iter().any(|f| f.shown == shown) {
-                        self.files.push(e.clone());
-                    }
-                }
-            }
-        }
+    /// Keeps for saving the entry of the lockfile shown as `shown`, just read (`None` when it
+    /// cannot be trusted later; see [`LockfileCache::entry`]).
+    pub fn keep(&mut self, shown: &str, entry: Option<Entry>) {
+        self.read += 1;
+        self.changed = true;
+        self.files.retain(|f| f.shown != shown);
+        self.files.extend(entry);
     }
 
     /// The serialized form of each of `lockfiles` that this stamp's entries hold (see
@@ -390,8 +380,9 @@ impl LockfileCache {
     /// that cannot be written only costs time on the next stamp.
     pub fn save(self) {
         let Some(path) = self.path else { return };
+        // Unchanged: nothing read anew, and every stored entry used again.
         let unchanged = !self.changed
-            && self.files.len() == self.old.len()
+            && self.old.is_empty()
             && self.listing.as_ref().map(|l| (&l.index, l.stamp))
                 == self.old_listing.as_ref().map(|l| (&l.index, l.stamp));
         if unchanged {
@@ -406,8 +397,10 @@ impl LockfileCache {
     }
 }
 
-/// A name that makes a tracked file matter for lockfiles.
-pub fn is_candidate(name: &str) -> bool {
+/// Whether a repository file (a `/`-separated path) matters for lockfiles: its name makes it a
+/// lockfile or a `Cargo.toml`.
+pub fn is_candidate(path: &str) -> bool {
+    let name = path.rsplit('/').next().unwrap_or(path);
     name == "Cargo.toml" || crate::lockfile::Format::detect(name).is_some()
 }
 
@@ -467,16 +460,17 @@ mod tests {
             ..Inputs::default()
         };
         let e = LockfileCache::entry("requirements.txt", &lock, inputs, later, &result());
-        cache.keep("requirements.txt", Outcome::Read(e.map(Box::new)));
+        cache.keep("requirements.txt", e);
         cache.save();
-        let cache = LockfileCache::open(Some(dir.path()), &root, false);
+        let mut cache = LockfileCache::open(Some(dir.path()), &root, false);
         assert!(cache.lookup("requirements.txt", &lock, &[]).is_some());
         // Another path shown under the same name is another file.
+        let mut cache = LockfileCache::open(Some(dir.path()), &root, false);
         assert!(cache
             .lookup("requirements.txt", &root.join("x/requirements.txt"), &[])
             .is_none());
         // --rehash does not use what is stored.
-        let rehash = LockfileCache::open(Some(dir.path()), &root, true);
+        let mut rehash = LockfileCache::open(Some(dir.path()), &root, true);
         assert!(rehash.lookup("requirements.txt", &lock, &[]).is_none());
         // The written file names the limit it was read under; another limit ignores it.
         let path = cache.path.clone().unwrap();
@@ -488,7 +482,7 @@ mod tests {
         );
         assert_ne!(other, text);
         std::fs::write(&path, other).unwrap();
-        let cache = LockfileCache::open(Some(dir.path()), &root, false);
+        let mut cache = LockfileCache::open(Some(dir.path()), &root, false);
         assert!(cache.lookup("requirements.txt", &lock, &[]).is_none());
     }
 }

@@ -11,7 +11,7 @@ use std::path::{Path, PathBuf};
 use sha2::{Digest, Sha256};
 
 use crate::collect::cargo_features;
-use crate::collect::lockfile_cache::{self as cache, Inputs, LockfileCache, Outcome};
+use crate::collect::lockfile_cache::{self as cache, Inputs, LockfileCache};
 use crate::lockfile::{cargo, requirements, Format, Parsed};
 use crate::manifest::{hex, Lockfile};
 
@@ -185,13 +185,9 @@ pub fn collect_cached(
     // thread pool costs more than doing them, and the pool may be busy. The files left are
     // read and parsed in parallel when there are several. Results and warnings keep the
     // files' order.
-    let mut results: Vec<Option<(cache::Result, Outcome)>> = files
+    let mut results: Vec<Option<cache::Result>> = files
         .iter()
-        .map(|(abs, shown)| {
-            cache
-                .lookup(shown, abs, &ctx.manifests_for(abs))
-                .map(|hit| (hit, Outcome::Reused))
-        })
+        .map(|(abs, shown)| cache.lookup(shown, abs, &ctx.manifests_for(abs)))
         .collect();
     let read = |(abs, shown): &(PathBuf, String)| {
         let started = std::time::SystemTime::now();
@@ -202,22 +198,21 @@ pub fn collect_cached(
         let mut w = Vec::new();
         let result = (read_one(&ctx, abs, shown, &mut inputs, &mut w), w);
         let entry = LockfileCache::entry(shown, abs, inputs, started, &result);
-        (result, Outcome::Read(entry.map(Box::new)))
+        (result, entry)
     };
     let missing: Vec<usize> = (0..files.len()).filter(|&i| results[i].is_none()).collect();
-    let fresh: Vec<(cache::Result, Outcome)> = if missing.len() > 1 {
+    let fresh: Vec<(cache::Result, Option<cache::Entry>)> = if missing.len() > 1 {
         use rayon::prelude::*;
         missing.par_iter().map(|&i| read(&files[i])).collect()
     } else {
         missing.iter().map(|&i| read(&files[i])).collect()
     };
-    for (i, r) in missing.into_iter().zip(fresh) {
-        results[i] = Some(r);
+    for (i, (result, entry)) in missing.into_iter().zip(fresh) {
+        cache.keep(&files[i].1, entry);
+        results[i] = Some(result);
     }
-    let results = results.into_iter().flatten();
     let mut out = Vec::with_capacity(files.len());
-    for ((_, shown), ((lockfile, mut w), outcome)) in files.iter().zip(results) {
-        cache.keep(shown, outcome);
+    for (lockfile, mut w) in results.into_iter().flatten() {
         warnings.append(&mut w);
         out.extend(lockfile);
     }

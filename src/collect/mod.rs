@@ -171,47 +171,50 @@ fn start_git_collector(
             opened,
         ));
     }
-    GitPending::Running {
+    GitPending::Running(GitThread {
         rx,
         finished,
         key,
         secs,
         control,
         repo: opts.repo.clone(),
-    }
+    })
 }
 
 /// A git collector started by [`start_git_collector`].
 enum GitPending {
     /// Answered without a thread.
     Done(Result<git::GitFacts, String>),
-    /// Running on its thread, which sends its answer on `rx`.
-    Running {
-        rx: std::sync::mpsc::Receiver<Result<git::GitFacts, String>>,
-        /// Set by the thread when it ends.
-        finished: std::sync::Arc<std::sync::atomic::AtomicBool>,
-        /// The repository's key in [`STUCK_GIT`].
-        key: PathBuf,
-        /// The timeout in seconds.
-        secs: u64,
-        control: std::sync::Arc<git::GitControl>,
-        repo: PathBuf,
-    },
+    /// Running on its thread.
+    Running(GitThread),
+}
+
+/// The git collector's thread, which sends its answer on `rx`.
+struct GitThread {
+    rx: std::sync::mpsc::Receiver<Result<git::GitFacts, String>>,
+    /// Set by the thread when it ends.
+    finished: std::sync::Arc<std::sync::atomic::AtomicBool>,
+    /// The repository's key in [`STUCK_GIT`].
+    key: PathBuf,
+    /// The timeout in seconds.
+    secs: u64,
+    control: std::sync::Arc<git::GitControl>,
+    repo: PathBuf,
 }
 
 impl GitPending {
     /// The collector's answer, or a warning once the timeout has passed.
     fn wait(self) -> Result<git::GitFacts, String> {
-        let (rx, finished, key, secs, control, repo) = match self {
+        let GitThread {
+            rx,
+            finished,
+            key,
+            secs,
+            control,
+            repo,
+        } = match self {
             GitPending::Done(result) => return result,
-            GitPending::Running {
-                rx,
-                finished,
-                key,
-                secs,
-                control,
-                repo,
-            } => (rx, finished, key, secs, control, repo),
+            GitPending::Running(thread) => thread,
         };
         let timeout = |what: &str| {
             format!(
@@ -485,8 +488,7 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
     } else {
         let reread = match (early, untracked) {
             (Some((tracked, early_warnings)), Some(untracked)) => {
-                let matters =
-                    |f: &String| lockfile_cache::is_candidate(f.rsplit('/').next().unwrap_or(f));
+                let matters = |f: &String| lockfile_cache::is_candidate(f);
                 if untracked.iter().any(matters) {
                     let mut all = tracked;
                     all.extend(untracked.iter().filter(|f| matters(f)).cloned());

@@ -156,3 +156,13 @@ pub fn stamp_cached(
     assert!(result.status.success(), "{stderr}");
     (runprint::manifest::Manifest::load(&out).unwrap(), stderr)
 }
+
+/// The file in the cache folder `cache` whose name starts with `prefix` (`lockfiles-`,
+/// `worktree-`, `stack-`); panics when there is none.
+pub fn cache_file(cache: &Path, prefix: &str) -> PathBuf {
+    std::fs::read_dir(cache)
+        .unwrap()
+        .map(|e| e.unwrap().path())
+        .find(|p| p.file_name().unwrap().to_string_lossy().starts_with(prefix))
+        .unwrap_or_else(|| panic!("no {prefix}* file in {}", cache.display()))
+}
