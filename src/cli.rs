@@ -271,7 +271,7 @@ fn fail(message: impl std::fmt::Display) -> ExitStatus {
     // Errors may quote a line of a file the user did not write; never echo a credential.
     eprintln!(
         "error: {}",
-        crate::redact::scrub_secrets(&message.to_string())
+        crate::escape::printable_lines(&crate::redact::scrub_secrets(&message.to_string()))
     );
     EXIT_BAD_INPUT
 }
@@ -320,7 +320,7 @@ impl CollectArgs {
         let strict = self.strict;
         let (manifest, prepared) = stamp_prepared(&self.options(), prepare);
         for w in &manifest.run.warnings {
-            eprintln!("warning: {w}");
+            eprintln!("warning: {}", crate::escape::printable(w));
         }
         if strict && !manifest.run.warnings.is_empty() {
             return Err(fail(format!(

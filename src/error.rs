@@ -51,12 +51,13 @@ pub struct LockfileError {
 }
 
 impl LockfileError {
-    /// An error at a line of a file.
+    /// An error at a line of a file. The message passes [`crate::redact::content_free`]: it
+    /// may name a package or a key, never quote a line of the file.
     pub fn at(path: &str, line: Option<usize>, message: impl Into<String>) -> Self {
         LockfileError {
             path: path.to_string(),
             line,
-            message: message.into(),
+            message: crate::redact::content_free(&message.into()),
         }
     }
 }

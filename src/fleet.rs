@@ -26,7 +26,9 @@ use serde::Serialize;
 
 use crate::diff::{compare, Change, Impact};
 use crate::error::ManifestError;
+use crate::escape::{md_code, md_text, printable as p};
 use crate::manifest::{Content, Manifest, RunInfo};
+use crate::report::value_change;
 
 /// Variables set per rank or per node by launchers (torchrun, Slurm, Open MPI, PMI, Kubernetes
 /// indexed Jobs). Common practice: each launcher's documentation lists them.
@@ -366,15 +368,6 @@ fn short_key(key: &str) -> &str {
     &h[..h.len().min(12)]
 }
 
-fn value_change(c: &Change) -> String {
-    match (&c.old, &c.new) {
-        (Some(a), Some(b)) => format!("{a} → {b}"),
-        (Some(a), None) => format!("{a} → (absent)"),
-        (None, Some(b)) => format!("(absent) → {b}"),
-        (None, None) => String::new(),
-    }
-}
-
 /// Plain text: the verdict, then each group with its members and its differences.
 pub fn render_text(report: &FleetReport, color: bool) -> String {
     let paint = |s: &str, impact: Impact| -> String {
@@ -413,22 +406,22 @@ pub fn render_text(report: &FleetReport, color: bool) -> String {
             g.size,
             short_key(&g.key)
         );
-        let _ = writeln!(out, "  {}", node_list(g));
+        let _ = writeln!(out, "  {}", p(&node_list(g)));
         for c in &g.differences {
             let word = format!("{:<7}", c.impact.as_str());
-            let _ = write!(out, "  {}  {}", paint(&word, c.impact), c.subject);
+            let _ = write!(out, "  {}  {}", paint(&word, c.impact), p(&c.subject));
             let v = value_change(c);
             if !v.is_empty() {
-                let _ = write!(out, "  {v}");
+                let _ = write!(out, "  {}", p(&v));
             }
-            let _ = writeln!(out, "\n           {}", c.reason);
+            let _ = writeln!(out, "\n           {}", p(&c.reason));
         }
     }
     if report.groups.len() == 1 {
         out.push_str("\nEvery manifest shares one environment.\n");
     }
     for note in &report.notes {
-        let _ = writeln!(out, "\nnote: {note}");
+        let _ = writeln!(out, "\nnote: {}", p(note));
     }
     out
 }
@@ -438,10 +431,6 @@ pub fn render_json(report: &FleetReport) -> String {
     let mut s = serde_json::to_string_pretty(report).expect("fleet report always serializes");
     s.push('\n');
     s
-}
-
-fn md(s: &str) -> String {
-    s.replace('|', "\\|").replace('\n', " ")
 }
 
 /// A Markdown block for a job summary or a pull-request comment.
@@ -457,7 +446,7 @@ pub fn render_markdown(report: &FleetReport) -> String {
         report.manifests
     );
     for note in &report.notes {
-        let _ = writeln!(out, "\n> **Note:** {}", md(note));
+        let _ = writeln!(out, "\n> **Note:** {}", md_text(note));
     }
     out.push_str("\n| Group | Manifests | Impact | Members |\n|---|---|---|---|\n");
     for (i, g) in report.groups.iter().enumerate() {
@@ -471,7 +460,7 @@ pub fn render_markdown(report: &FleetReport) -> String {
             "| {} | {} | {impact} | {} |",
             i + 1,
             g.size,
-            md(&node_list(g))
+            md_text(&node_list(g))
         );
     }
     for (i, g) in report.groups.iter().enumerate().skip(1) {
@@ -483,11 +472,11 @@ pub fn render_markdown(report: &FleetReport) -> String {
         for c in &g.differences {
             let _ = writeln!(
                 out,
-                "| {} | `{}` | {} | {} |",
+                "| {} | {} | {} | {} |",
                 c.impact,
-                md(&c.subject),
-                md(&value_change(c)),
-                md(&c.reason)
+                md_code(&c.subject),
+                md_text(&value_change(c)),
+                md_text(&c.reason)
             );
         }
     }

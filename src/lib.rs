@@ -26,10 +26,12 @@
 pub mod atomic;
 pub mod cache;
 pub mod check;
+pub mod child;
 pub mod cli;
 pub mod collect;
 pub mod diff;
 pub mod error;
+pub mod escape;
 pub mod fleet;
 pub mod hashing;
 pub mod limits;

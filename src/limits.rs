@@ -1,8 +1,15 @@
-//! Bounded reading of the files runprint parses: manifests, lockfiles and the digest cache.
+//! The file-opening policy: every read of a file runprint did not write goes through here
+//! (`tests/file_policy.rs` fails when `std::fs::read*`, `File::open` or `OpenOptions` appear
+//! in another module).
 //!
-//! runprint runs inside training jobs on files it did not write, so no input may make it read
-//! without bound or wait forever:
+//! runprint runs in CI on pull requests from strangers and inside training jobs next to
+//! credentials, on files it did not write, so no input may make it read without bound, wait
+//! forever, or read a file the repository merely points at:
 //!
+//! * [`Confinement::read`] reads a repository's file only when its real path, the one the
+//!   opened descriptor has (`/proc/self/fd/N` on Linux), lies inside the repository: a
+//!   committed symbolic link `requirements.txt -> /etc/shadow` or `-> ../.netrc` is refused
+//!   with a warning that names the file and never its content;
 //! * a file larger than [`max_file_bytes`] is refused before it is read, judged first by its
 //!   metadata and then by a reader that stops one byte past the limit (a file that grows while
 //!   it is read, or a pipe, cannot get past it);
@@ -73,40 +80,191 @@ pub fn read_regular_file(path: &Path) -> io::Result<Vec<u8>> {
 
 /// [`read_regular_file`] with an explicit limit.
 pub fn read_regular_file_with_limit(path: &Path, limit: u64) -> io::Result<Vec<u8>> {
+    let file = open_regular(path, true)?;
+    let len = file.metadata()?.len();
+    if len > limit {
+        return Err(too_large(Some(len), limit));
+    }
+    read_to_limit(file, len, limit)
+}
+
+/// Opens a regular file for reading without blocking on a FIFO and without following a
+/// symbolic link at the last component when `follow` is false. The descriptor is back in
+/// blocking mode when returned. Anything but a regular file is refused.
+pub fn open_regular(path: &Path, follow: bool) -> io::Result<File> {
+    // Judged by its metadata first, so a device is never even opened (opening some devices
+    // has effects of its own); the opened descriptor is checked again below, as the file may
+    // be swapped between the two steps.
+    let before = if follow {
+        std::fs::metadata(path)?
+    } else {
+        std::fs::symlink_metadata(path)?
+    };
+    if before.is_symlink() {
+        return Err(io::Error::new(
+            io::ErrorKind::InvalidInput,
+            "is a symbolic link",
+        ));
+    }
+    if !before.is_file() {
+        return Err(not_regular(&before));
+    }
     let mut options = std::fs::OpenOptions::new();
     options.read(true);
     #[cfg(unix)]
     {
         use std::os::unix::fs::OpenOptionsExt;
-        // Opening a FIFO for reading blocks until a writer appears, unless non-blocking.
-        options.custom_flags(libc::O_NONBLOCK);
+        // Opening a FIFO for reading blocks until a writer appears, unless non-blocking;
+        // O_NOCTTY keeps a terminal device from becoming the controlling terminal.
+        let mut flags = libc::O_NONBLOCK | libc::O_NOCTTY;
+        if !follow {
+            flags |= libc::O_NOFOLLOW;
+        }
+        options.custom_flags(flags);
     }
-    let file = options.open(path)?;
+    let file = options.open(path).map_err(|e| {
+        if !follow && e.raw_os_error() == Some(libc::ELOOP) {
+            io::Error::new(io::ErrorKind::InvalidInput, "is a symbolic link")
+        } else {
+            e
+        }
+    })?;
     let meta = file.metadata()?;
     if !meta.is_file() {
-        return Err(io::Error::new(
-            io::ErrorKind::InvalidInput,
-            "not a regular file (a FIFO, socket or device is never read)",
-        ));
+        return Err(not_regular(&meta));
     }
-    if meta.len() > limit {
-        return Err(too_large(Some(meta.len()), limit));
-    }
+    blocking(&file);
+    Ok(file)
+}
+
+/// Why a non-regular file is refused, by its type.
+fn not_regular(meta: &std::fs::Metadata) -> io::Error {
+    let what = kind_of(meta);
+    io::Error::new(
+        io::ErrorKind::InvalidInput,
+        format!("is {what}, not a regular file (never read)"),
+    )
+}
+
+/// The kind of a file, in words.
+pub fn kind_of(meta: &std::fs::Metadata) -> &'static str {
     #[cfg(unix)]
     {
-        // Back to blocking reads: a regular file ignores the flag, but a slow network file
-        // system should not see spurious `WouldBlock` errors.
-        use std::os::unix::io::AsRawFd;
-        let fd = file.as_raw_fd();
-        // SAFETY: `fd` is a valid open descriptor owned by `file` for the duration of the calls.
-        unsafe {
-            let flags = libc::fcntl(fd, libc::F_GETFL);
-            if flags >= 0 {
-                libc::fcntl(fd, libc::F_SETFL, flags & !libc::O_NONBLOCK);
-            }
+        use std::os::unix::fs::FileTypeExt;
+        let t = meta.file_type();
+        if t.is_fifo() {
+            return "a FIFO";
+        }
+        if t.is_socket() {
+            return "a socket";
+        }
+        if t.is_char_device() {
+            return "a character device";
+        }
+        if t.is_block_device() {
+            return "a block device";
         }
     }
-    read_to_limit(file, meta.len(), limit)
+    if meta.is_dir() {
+        "a folder"
+    } else if meta.is_symlink() {
+        "a symbolic link"
+    } else if meta.is_file() {
+        "a regular file"
+    } else {
+        "a special file"
+    }
+}
+
+#[cfg(unix)]
+fn blocking(file: &File) {
+    // Back to blocking reads: a regular file ignores the flag, but a slow network file
+    // system should not see spurious `WouldBlock` errors.
+    use std::os::unix::io::AsRawFd;
+    let fd = file.as_raw_fd();
+    // SAFETY: `fd` is a valid open descriptor owned by `file` for the duration of the calls.
+    unsafe {
+        let flags = libc::fcntl(fd, libc::F_GETFL);
+        if flags >= 0 {
+            libc::fcntl(fd, libc::F_SETFL, flags & !libc::O_NONBLOCK);
+        }
+    }
+}
+
+#[cfg(not(unix))]
+fn blocking(_file: &File) {}
+
+/// The real path of an open file: what `/proc/self/fd/N` points at on Linux (the file that was
+/// opened, whatever links led there), else the path resolved again.
+fn real_path_of(file: &File, path: &Path) -> io::Result<std::path::PathBuf> {
+    #[cfg(target_os = "linux")]
+    {
+        use std::os::unix::io::AsRawFd;
+        let link = format!("/proc/self/fd/{}", file.as_raw_fd());
+        if let Ok(p) = std::fs::read_link(link) {
+            return Ok(p);
+        }
+    }
+    let _ = file;
+    std::fs::canonicalize(path)
+}
+
+/// Reads that stay inside one folder (the repository being stamped): a file whose real path
+/// lies outside it is refused, whatever symbolic links lead there.
+#[derive(Debug, Clone)]
+pub struct Confinement {
+    root: std::path::PathBuf,
+}
+
+impl Confinement {
+    /// Reads confined to `root` (resolved once, here).
+    pub fn new(root: &Path) -> Confinement {
+        Confinement {
+            root: std::fs::canonicalize(root).unwrap_or_else(|_| {
+                std::path::absolute(root).unwrap_or_else(|_| root.to_path_buf())
+            }),
+        }
+    }
+
+    /// The resolved folder reads are confined to.
+    pub fn root(&self) -> &Path {
+        &self.root
+    }
+
+    /// True when a resolved path lies inside the folder.
+    pub fn contains(&self, real: &Path) -> bool {
+        real.starts_with(&self.root)
+    }
+
+    /// Opens a regular file inside the folder (see [`open_regular`]).
+    pub fn open(&self, path: &Path) -> io::Result<File> {
+        let file = open_regular(path, true)?;
+        let real = real_path_of(&file, path)?;
+        if !self.contains(&real) {
+            return Err(io::Error::new(
+                io::ErrorKind::PermissionDenied,
+                "is a symbolic link to a file outside the repository (never read)",
+            ));
+        }
+        Ok(file)
+    }
+
+    /// Reads a regular file of at most [`max_file_bytes`] bytes inside the folder.
+    pub fn read(&self, path: &Path) -> io::Result<Vec<u8>> {
+        let limit = max_file_bytes();
+        let file = self.open(path)?;
+        let len = file.metadata()?.len();
+        if len > limit {
+            return Err(too_large(Some(len), limit));
+        }
+        read_to_limit(file, len, limit)
+    }
+}
+
+/// Reads a regular file as UTF-8 text, bounded like [`read_regular_file`].
+pub fn read_regular_text(path: &Path) -> io::Result<String> {
+    String::from_utf8(read_regular_file(path)?)
+        .map_err(|_| io::Error::new(io::ErrorKind::InvalidData, "is not valid UTF-8"))
 }
 
 /// Reads a file the user named (a pipe allowed), of at most [`max_file_bytes`] bytes.
@@ -154,7 +312,42 @@ mod tests {
         // SAFETY: a valid NUL-terminated path.
         assert_eq!(unsafe { libc::mkfifo(c.as_ptr(), 0o600) }, 0);
         let err = read_regular_file(&p).unwrap_err().to_string();
-        assert!(err.contains("not a regular file"), "{err}");
+        assert!(err.contains("a FIFO, not a regular file"), "{err}");
+    }
+
+    #[cfg(unix)]
+    #[test]
+    fn confinement_refuses_links_out_of_the_folder_and_keeps_links_inside() {
+        let outside = tempfile::tempdir().unwrap();
+        let secret = outside.path().join(".netrc");
+        std::fs::write(&secret, "machine h login u password hunter2\n").unwrap();
+        let repo = tempfile::tempdir().unwrap();
+        std::fs::write(repo.path().join("real.txt"), "numpy==1.26.4\n").unwrap();
+        std::os::unix::fs::symlink(&secret, repo.path().join("requirements.txt")).unwrap();
+        std::os::unix::fs::symlink("real.txt", repo.path().join("requirements-dev.txt")).unwrap();
+        std::fs::create_dir(repo.path().join("sub")).unwrap();
+        let rel = format!("../../{}", secret.strip_prefix("/").unwrap().display());
+        let deep = format!("../{rel}");
+        std::os::unix::fs::symlink(&deep, repo.path().join("sub/requirements.txt")).unwrap();
+        let c = Confinement::new(repo.path());
+        for p in ["requirements.txt", "sub/requirements.txt"] {
+            let err = c.read(&repo.path().join(p)).unwrap_err().to_string();
+            assert!(err.contains("outside the repository"), "{p}: {err}");
+            assert!(!err.contains("hunter2"), "{err}");
+        }
+        assert_eq!(
+            c.read(&repo.path().join("requirements-dev.txt")).unwrap(),
+            b"numpy==1.26.4\n"
+        );
+        // A symbolic link to a device is refused for its type before anything is read.
+        std::os::unix::fs::symlink("/dev/zero", repo.path().join("zero")).unwrap();
+        let err = c.read(&repo.path().join("zero")).unwrap_err().to_string();
+        assert!(err.contains("character device"), "{err}");
+        // Not following: the link itself is refused.
+        let err = open_regular(&repo.path().join("requirements-dev.txt"), false)
+            .unwrap_err()
+            .to_string();
+        assert!(err.contains("symbolic link"), "{err}");
     }
 
     #[test]

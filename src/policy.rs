@@ -346,6 +346,7 @@ pub fn today() -> String {
 impl Policy {
     /// Parses a policy; `path` names the file in errors.
     pub fn parse(text: &str, path: &Path) -> Result<Policy, PolicyError> {
+        let lines = crate::lockfile::LineIndex::new(text);
         let invalid = |offset: Option<usize>, key: Option<String>, message: String| {
             let line = offset.map(|o| line_of(text, o));
             PolicyError::Invalid {
@@ -460,7 +461,7 @@ impl Policy {
                 new: a.new.clone(),
                 reason: a.reason.get_ref().trim().to_string(),
                 expires,
-                line: line_of(text, a.subject.span().start),
+                line: lines.line(a.subject.span().start),
                 matcher,
             });
         }
@@ -469,9 +470,18 @@ impl Policy {
 
     /// Reads and parses a policy file.
     pub fn load(path: &Path) -> Result<Policy, PolicyError> {
-        let text = std::fs::read_to_string(path).map_err(|source| PolicyError::Read {
+        let bytes = crate::limits::read_named_file(path).map_err(|source| PolicyError::Read {
             path: path.to_path_buf(),
             source,
+        })?;
+        Policy::parse_bytes(bytes, path)
+    }
+
+    /// Parses a policy file's bytes (UTF-8).
+    fn parse_bytes(bytes: Vec<u8>, path: &Path) -> Result<Policy, PolicyError> {
+        let text = String::from_utf8(bytes).map_err(|_| PolicyError::Read {
+            path: path.to_path_buf(),
+            source: std::io::Error::new(std::io::ErrorKind::InvalidData, "is not valid UTF-8"),
         })?;
         Policy::parse(&text, path)
     }

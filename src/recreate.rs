@@ -11,7 +11,11 @@
 //!    driver and runtime; file data inputs get a `sha256sum --check` line.
 //!
 //! Every value from the manifest is shell-quoted ([`shlex`]) or, in comments, kept on one line,
-//! so a label or a value with spaces, quotes or newlines cannot break out of its place.
+//! so a label or a value with spaces, quotes or newlines cannot break out of its place. A value
+//! that a command would read as an option cannot become one: folders and files starting with
+//! `-` are written `./-x`, a commit must be a hexadecimal object id, and a Python package must
+//! carry a valid name (PEP 508, "Names") and a version without spaces or a leading `-`, or it
+//! is left out with a comment.
 
 use std::fmt::Write;
 
@@ -22,11 +26,43 @@ fn quote(s: &str) -> Option<String> {
     shlex::try_quote(s).ok().map(|q| q.into_owned())
 }
 
-/// Text made safe for a `#` comment: one line, no control characters.
+/// Text made safe for a `#` comment: one line, no control, bidirectional or invisible
+/// characters ([`crate::escape::is_unsafe`]).
 fn comment(s: &str) -> String {
     s.chars()
-        .map(|c| if c.is_control() { ' ' } else { c })
+        .map(|c| {
+            if c.is_control() || crate::escape::is_unsafe(c) {
+                ' '
+            } else {
+                c
+            }
+        })
         .collect()
+}
+
+/// A relative path that a command could take for an option (`-P`) gets `./` in front.
+fn not_an_option(path: &str) -> String {
+    if path.starts_with('-') {
+        format!("./{path}")
+    } else {
+        path.to_string()
+    }
+}
+
+/// A git object id: 40 (SHA-1) or 64 (SHA-256) hexadecimal digits.
+fn is_object_id(s: &str) -> bool {
+    matches!(s.len(), 40 | 64) && s.bytes().all(|b| b.is_ascii_hexdigit())
+}
+
+/// A valid Python distribution name (PEP 508, "Names":
+/// `^([A-Z0-9]|[A-Z0-9][A-Z0-9._-]*[A-Z0-9])$`, case-insensitive).
+fn is_python_name(name: &str) -> bool {
+    let b = name.as_bytes();
+    !b.is_empty()
+        && b[0].is_ascii_alphanumeric()
+        && b[b.len() - 1].is_ascii_alphanumeric()
+        && b.iter()
+            .all(|c| c.is_ascii_alphanumeric() || matches!(c, b'.' | b'_' | b'-'))
 }
 
 /// A portable shell variable name: letters, digits and `_`, not starting with a digit.
@@ -93,6 +129,14 @@ fn code(m: &Manifest, out: &mut String) {
     if let Some(remote) = &git.remote {
         let _ = writeln!(out, "# The repository was cloned from {}", comment(remote));
     }
+    if !is_object_id(commit) {
+        let _ = writeln!(
+            out,
+            "# the recorded commit {} is not a git object id; check it out by hand",
+            comment(commit)
+        );
+        return;
+    }
     let Some(commit_q) = quote(commit) else {
         return;
     };
@@ -100,7 +144,8 @@ fn code(m: &Manifest, out: &mut String) {
     if !git.submodules.is_empty() {
         out.push_str("git submodule update --init --recursive\n");
         for s in &git.submodules {
-            match (quote(&s.path), s.commit.as_deref().and_then(quote)) {
+            let commit = s.commit.as_deref().filter(|c| is_object_id(c));
+            match (quote(&not_an_option(&s.path)), commit.and_then(quote)) {
                 (Some(p), Some(c)) => {
                     let _ = writeln!(out, "git -C {p} checkout --detach {c}");
                 }
@@ -147,18 +192,26 @@ fn code(m: &Manifest, out: &mut String) {
 /// The folder of a lockfile, quoted, for `cd`.
 fn folder(l: &Lockfile) -> Option<String> {
     let dir = l.path.rsplit_once('/').map_or(".", |(d, _)| d);
-    quote(if dir.is_empty() { "/" } else { dir })
+    quote(&not_an_option(if dir.is_empty() { "/" } else { dir }))
 }
 
 /// A pip requirement that installs exactly this entry, or `None` when the entry cannot be
 /// pinned (an editable install, a local path).
 fn pip_requirement(p: &Package) -> Option<String> {
+    if !is_python_name(&p.name) {
+        return None;
+    }
     let direct = p.source.as_deref().filter(|s| {
         s.contains("://") && !s.starts_with("registry+") && !s.starts_with("editable+")
     });
     let base = match direct {
         Some(url) => format!("{} @ {url}", p.name),
-        None if !p.version.is_empty() => format!("{}=={}", p.name, p.version),
+        None if !p.version.is_empty()
+            && !p.version.starts_with('-')
+            && !p.version.contains(char::is_whitespace) =>
+        {
+            format!("{}=={}", p.name, p.version)
+        }
         None => return None,
     };
     // Environment markers (PEP 508) keep platform-specific pins to their platform.
@@ -203,7 +256,9 @@ fn packages(lockfiles: &[Lockfile], out: &mut String) {
                 format!("(cd {dir} && {cmd})")
             }
         };
-        let Some(file) = quote(&l.path) else { continue };
+        let Some(file) = quote(&not_an_option(&l.path)) else {
+            continue;
+        };
         // Each tool's locked install, which installs exactly what the lockfile lists (from
         // memory: the npm, Yarn, pnpm, Cargo, Go, NuGet, renv, Pkg.jl and conda manuals).
         let step = match (l.ecosystem.as_str(), name) {
@@ -252,7 +307,7 @@ fn pip_pins(l: &Lockfile, out: &mut String) {
     if !left_out.is_empty() {
         let _ = writeln!(
             out,
-            "# cannot be pinned (local paths or editable installs): {}",
+            "# cannot be pinned (local paths, editable installs or names pip would not read as a package): {}",
             comment(&left_out.join(", "))
         );
     }
@@ -383,6 +438,33 @@ mod tests {
         assert!(is_shell_name("OMP_NUM_THREADS"));
         assert!(!is_shell_name("1X"));
         assert!(!is_shell_name("A-B"));
+    }
+
+    #[test]
+    fn option_looking_values_never_become_options() {
+        // PEP 508 names start and end with a letter or digit; `-e/srv/evil` is none.
+        let evil = Package {
+            name: "-e/srv/evil".into(),
+            version: "1.0".into(),
+            ..Package::default()
+        };
+        assert_eq!(pip_requirement(&evil), None);
+        let bad_version = Package {
+            name: "numpy".into(),
+            version: "--index-url=x".into(),
+            ..Package::default()
+        };
+        assert_eq!(pip_requirement(&bad_version), None);
+        assert_eq!(not_an_option("-P"), "./-P");
+        assert_eq!(not_an_option("sub/dir"), "sub/dir");
+        let l = Lockfile {
+            path: "-P/Cargo.lock".into(),
+            ..Lockfile::default()
+        };
+        assert_eq!(folder(&l).unwrap(), "./-P");
+        assert!(is_object_id(&"a".repeat(40)));
+        assert!(!is_object_id("--orphan"));
+        assert_eq!(comment("to\u{200b}rch\u{202e}x"), "to rch x");
     }
 
     #[test]

@@ -5,6 +5,7 @@
 use std::fmt::Write;
 
 use crate::diff::{Change, Impact, Report};
+use crate::escape::{md_code, md_fence, md_text, printable as p, printable_lines};
 
 /// Output formats of `diff`.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -36,13 +37,22 @@ pub fn render(report: &Report, format: ReportFormat, color: bool) -> String {
     }
 }
 
-fn value_change(c: &Change) -> String {
+/// The old and new values as `old → new`, unescaped (each renderer escapes for its medium).
+pub(crate) fn value_change(c: &Change) -> String {
     match (&c.old, &c.new) {
         (Some(a), Some(b)) => format!("{a} → {b}"),
         (Some(a), None) => format!("{a} → (absent)"),
         (None, Some(b)) => format!("(absent) → {b}"),
         (None, None) => String::new(),
     }
+}
+
+/// The first twelve characters of a fingerprint, cut on a character boundary (a damaged
+/// manifest may hold any text there).
+fn short(fp: &str) -> &str {
+    let fp = fp.strip_prefix("sha256:").unwrap_or(fp);
+    let end = fp.char_indices().nth(12).map_or(fp.len(), |(i, _)| i);
+    &fp[..end]
 }
 
 fn counts(report: &Report) -> String {
@@ -72,22 +82,18 @@ fn text(report: &Report, color: bool) -> String {
     let verdict = report.verdict.as_str().to_uppercase();
     let _ = writeln!(out, "verdict: {}", paint(&verdict, report.verdict, color));
     if let Some(cause) = &report.most_likely_cause {
-        let _ = writeln!(out, "Most likely cause: {cause}");
+        let _ = writeln!(out, "Most likely cause: {}", p(cause));
     }
     for (tag, side) in [("old", &report.old), ("new", &report.new)] {
-        let fp = side
-            .fingerprint
-            .strip_prefix("sha256:")
-            .unwrap_or(&side.fingerprint);
         let _ = write!(
             out,
             "  {tag}: {}  {}  {}",
-            side.path,
-            &fp[..fp.len().min(12)],
-            side.created
+            p(&side.path),
+            p(short(&side.fingerprint)),
+            p(&side.created)
         );
         if let Some(label) = &side.label {
-            let _ = write!(out, "  \"{label}\"");
+            let _ = write!(out, "  \"{}\"", p(label));
         }
         if side.modified {
             let _ = write!(out, "  (modified after stamping)");
@@ -95,7 +101,7 @@ fn text(report: &Report, color: bool) -> String {
         out.push('\n');
     }
     if let Some(policy) = &report.policy {
-        let _ = writeln!(out, "  policy: {policy}");
+        let _ = writeln!(out, "  policy: {}", p(policy));
     }
     if report.changes.is_empty() {
         out.push_str("\nNo differences that runprint records.\n");
@@ -104,34 +110,35 @@ fn text(report: &Report, color: bool) -> String {
         out.push('\n');
         for c in &report.changes {
             let word = format!("{:<7}", c.impact.as_str());
-            let _ = write!(out, "{}  {}", paint(&word, c.impact, color), c.subject);
+            let _ = write!(out, "{}  {}", paint(&word, c.impact, color), p(&c.subject));
             let v = value_change(c);
             if !v.is_empty() {
-                let _ = write!(out, "  {v}");
+                let _ = write!(out, "  {}", p(&v));
             }
             out.push('\n');
-            let _ = writeln!(out, "         {}", c.reason);
+            let _ = writeln!(out, "         {}", p(&c.reason));
             if report.verbose {
                 if !c.rule.is_empty() {
-                    let _ = writeln!(out, "         rule {}; source: {}", c.rule, c.source);
+                    let _ = writeln!(out, "         rule {}; source: {}", c.rule, p(&c.source));
                 }
                 if let Some(d) = &c.value_diff {
-                    let _ = writeln!(out, "         diff: {d}");
+                    let _ = writeln!(out, "         diff: {}", p(d));
                 }
             }
         }
     }
     for note in &report.notes {
-        let _ = writeln!(out, "\nnote: {note}");
+        let _ = writeln!(out, "\nnote: {}", p(note));
     }
     for d in &report.details {
-        let _ = write!(out, "\npackages in {}:\n{}", d.subject, d.diff);
+        let _ = write!(
+            out,
+            "\npackages in {}:\n{}",
+            p(&d.subject),
+            printable_lines(&d.diff)
+        );
     }
     out
-}
-
-fn md_cell(s: &str) -> String {
-    s.replace('|', "\\|").replace('\n', " ")
 }
 
 fn markdown(report: &Report) -> String {
@@ -139,20 +146,20 @@ fn markdown(report: &Report) -> String {
     let _ = writeln!(out, "### runprint: **{}**", report.verdict);
     out.push('\n');
     if let Some(cause) = &report.most_likely_cause {
-        let _ = writeln!(out, "**Most likely cause:** {}\n", md_cell(cause));
+        let _ = writeln!(out, "**Most likely cause:** {}\n", md_text(cause));
     }
     let _ = writeln!(
         out,
-        "Compared `{}` (old) with `{}` (new): {}.",
-        md_cell(&report.old.path),
-        md_cell(&report.new.path),
+        "Compared {} (old) with {} (new): {}.",
+        md_code(&report.old.path),
+        md_code(&report.new.path),
         counts(report)
     );
     if let Some(policy) = &report.policy {
-        let _ = writeln!(out, "\nPolicy: `{}`.", md_cell(policy));
+        let _ = writeln!(out, "\nPolicy: {}.", md_code(policy));
     }
     for note in &report.notes {
-        let _ = writeln!(out, "\n> **Note:** {}", md_cell(note));
+        let _ = writeln!(out, "\n> **Note:** {}", md_text(note));
     }
     if report.changes.is_empty() {
         out.push_str("\nNo differences that runprint records.\n");
@@ -160,32 +167,29 @@ fn markdown(report: &Report) -> String {
     }
     out.push_str("\n| Impact | Subject | Change | Reason |\n|---|---|---|---|\n");
     for c in &report.changes {
-        let mut reason = md_cell(&c.reason);
+        let mut reason = md_text(&c.reason);
         if report.verbose && !c.rule.is_empty() {
-            reason.push_str(&format!(
-                " <br>rule `{}`; source: {}",
-                c.rule,
-                md_cell(&c.source)
-            ));
+            reason.push_str(&format!(" <br>rule `{}`; source: {}", c.rule, p(&c.source)));
             if let Some(d) = &c.value_diff {
-                reason.push_str(&format!(" <br>diff: `{}`", md_cell(d).replace('`', "'")));
+                reason.push_str(&format!(" <br>diff: {}", md_code(d)));
             }
         }
         let _ = writeln!(
             out,
-            "| {} | `{}` | {} | {} |",
+            "| {} | {} | {} | {} |",
             c.impact,
-            md_cell(&c.subject),
-            md_cell(&value_change(c)),
+            md_code(&c.subject),
+            md_text(&value_change(c)),
             reason
         );
     }
     for d in &report.details {
+        let body = crate::escape::md_block(&d.diff);
+        let fence = md_fence(&body);
         let _ = write!(
             out,
-            "\n<details><summary>Packages in <code>{}</code></summary>\n\n```diff\n{}```\n</details>\n",
-            md_cell(&d.subject),
-            d.diff
+            "\n<details><summary>Packages in <code>{}</code></summary>\n\n{fence}diff\n{body}{fence}\n</details>\n",
+            md_text(&d.subject),
         );
     }
     out
@@ -194,6 +198,15 @@ fn markdown(report: &Report) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn a_fingerprint_with_any_text_is_cut_on_a_character_boundary() {
+        // A damaged manifest may hold multi-byte characters where the digest belongs; a byte
+        // slice at 12 would cut `é` (2 bytes in UTF-8) in half and panic.
+        assert_eq!(short("sha256:ééééééééééééééé"), "éééééééééééé");
+        assert_eq!(short("sha256:0123456789abcdef"), "0123456789ab");
+        assert_eq!(short("abc"), "abc");
+    }
 
     #[test]
     fn no_color_rules() {

@@ -186,11 +186,65 @@ fn walk(tree: &Tree<'_>) -> Result<(Vec<String>, Vec<Submodule>), git2::Error> {
     Ok((lockfiles, submodules))
 }
 
-/// The bytes of the blob at `path` in `tree`, if there is one.
-fn blob_bytes(repo: &Repository, tree: &Tree<'_>, path: &str) -> Option<Vec<u8>> {
-    let entry = tree.get_path(std::path::Path::new(path)).ok()?;
-    let blob = entry.to_object(repo).ok()?.peel_to_blob().ok()?;
-    Some(blob.content().to_vec())
+/// The bytes of the blob at `path` in `tree`: `Ok(None)` when there is none, `Err` with the
+/// reason when it is there but is not read. The same policy as for files on disk
+/// ([`crate::limits`]): a symbolic link (mode 120000, whose blob is the link's target) is never
+/// followed, and a blob over the size limit is refused from the object's header, before its
+/// content is loaded.
+fn blob_read(repo: &Repository, tree: &Tree<'_>, path: &str) -> Result<Option<Vec<u8>>, String> {
+    let Ok(entry) = tree.get_path(std::path::Path::new(path)) else {
+        return Ok(None);
+    };
+    if entry.filemode() == 0o120000 {
+        return Err("is a symbolic link (never followed)".into());
+    }
+    if entry.kind() != Some(git2::ObjectType::Blob) {
+        return Ok(None);
+    }
+    let limit = crate::limits::max_file_bytes();
+    let size = repo
+        .odb()
+        .and_then(|odb| odb.read_header(entry.id()))
+        .map(|(size, _)| size as u64)
+        .map_err(|e| format!("cannot read its object: {}", e.message()))?;
+    if size > limit {
+        return Err(format!(
+            "{size} bytes is over the {limit}-byte limit for files runprint reads (set {} to raise it)",
+            crate::limits::MAX_FILE_BYTES_VAR
+        ));
+    }
+    let blob = repo
+        .find_blob(entry.id())
+        .map_err(|e| format!("cannot read its object: {}", e.message()))?;
+    Ok(Some(blob.content().to_vec()))
+}
+
+/// [`blob_read`], with the reason for a refused blob pushed to `warnings`.
+fn blob_bytes_or_warn(
+    repo: &Repository,
+    tree: &Tree<'_>,
+    path: &str,
+    warnings: &mut Vec<String>,
+) -> Option<Vec<u8>> {
+    match blob_read(repo, tree, path) {
+        Ok(b) => b,
+        Err(e) => {
+            warnings.push(format!("lockfile `{path}`: {e}"));
+            None
+        }
+    }
+}
+
+/// Bytes as lockfile text, as on disk ([`crate::lockfile::decode`]: byte-order mark dropped,
+/// UTF-8 and control characters checked, with the line).
+fn decode_or_warn(bytes: &[u8], path: &str, warnings: &mut Vec<String>) -> Option<String> {
+    match crate::lockfile::decode(bytes, path) {
+        Ok(t) => Some(t.to_string()),
+        Err(e) => {
+            warnings.push(format!("lockfile {e}"));
+            None
+        }
+    }
 }
 
 /// Parses one lockfile from the tree, as `collect::lockfiles` does from disk.
@@ -202,25 +256,19 @@ fn read_lockfile(
 ) -> Option<Lockfile> {
     let name = path.rsplit('/').next().unwrap_or(path);
     let format = Format::detect(name)?;
-    let bytes = blob_bytes(repo, tree, path)?;
-    let text = match std::str::from_utf8(&bytes) {
-        Ok(t) => t,
-        Err(e) => {
-            warnings.push(format!(
-                "lockfile `{path}`: not UTF-8 text (invalid byte at offset {})",
-                e.valid_up_to()
-            ));
-            return None;
-        }
-    };
+    let bytes = blob_bytes_or_warn(repo, tree, path, warnings)?;
+    let text = decode_or_warn(&bytes, path, warnings)?;
     let companion = format.companion().and_then(|companion_name| {
         let companion_path = sibling(path, companion_name);
-        let bytes = blob_bytes(repo, tree, &companion_path)?;
-        Some((String::from_utf8(bytes).ok()?, companion_path))
+        let bytes = blob_bytes_or_warn(repo, tree, &companion_path, warnings)?;
+        Some((
+            decode_or_warn(&bytes, &companion_path, warnings)?,
+            companion_path,
+        ))
     });
     let mut parsed = crate::lockfile::parse_or_warn(
         format,
-        text,
+        &text,
         path,
         companion.as_ref().map(|(t, p)| (t.as_str(), p.as_str())),
         warnings,
@@ -290,22 +338,29 @@ fn merge_includes(
         }
         let Some(target) = resolve(&from, &inc.target) else {
             warnings.push(format!(
-                "lockfile `{from}`: included `{}` lies outside the repository and was not read",
-                inc.target
+                "lockfile `{from}`: included {} lies outside the repository and was not read",
+                crate::redact::content_free(&format!("`{}`", inc.target))
             ));
             continue;
         };
         if !seen.insert(target.clone()) {
             continue;
         }
-        let Some(text) = blob_bytes(repo, tree, &target).and_then(|b| String::from_utf8(b).ok())
-        else {
-            warnings.push(format!(
-                "lockfile `{from}`: cannot read included `{}` at this revision",
-                inc.target
-            ));
-            continue;
+        let text = match blob_read(repo, tree, &target) {
+            Ok(Some(b)) => decode_or_warn(&b, &target, warnings),
+            Ok(None) => {
+                warnings.push(format!(
+                    "lockfile `{from}`: cannot read included {} at this revision",
+                    crate::redact::content_free(&format!("`{}`", inc.target))
+                ));
+                None
+            }
+            Err(e) => {
+                warnings.push(format!("lockfile `{target}`: {e}"));
+                None
+            }
         };
+        let Some(text) = text else { continue };
         match requirements::parse(&text, &target) {
             Ok(mut sub) => {
                 warnings.append(&mut sub.warnings);

@@ -64,12 +64,13 @@ pub fn features(
                 .collect(),
         ));
     }
-    let Some(host) = cargo_host_triple() else {
+    refuse_toolchain_by_path(dir)?;
+    let Some(host) = cargo_host_triple(dir) else {
         return Ok(None);
     };
     // Only the host platform's packages: those for other platforms may never have been
     // downloaded, and `--offline` (no network in the middle of a training job) would fail.
-    let metadata = cargo_metadata::MetadataCommand::new()
+    let mut cmd = cargo_metadata::MetadataCommand::new()
         .manifest_path(&manifest)
         .other_options(vec![
             "--locked".to_string(),
@@ -77,13 +78,23 @@ pub fn features(
             "--filter-platform".to_string(),
             host,
         ])
-        .exec()
-        .map_err(|e| {
-            let msg = e.to_string();
-            crate::redact::scrub_url_credentials(
-                msg.lines().next().unwrap_or("cargo metadata failed"),
-            )
-        })?;
+        .cargo_command();
+    neutralise(&mut cmd, dir);
+    let out = crate::child::run(
+        cmd,
+        crate::child::timeout(METADATA_TIMEOUT),
+        METADATA_OUTPUT,
+    )
+    .map_err(|e| format!("`cargo metadata` {e}"))?;
+    if !out.status.success() {
+        return Err(format!(
+            "`cargo metadata` failed ({}): {}",
+            out.status,
+            crate::redact::scrub_url_credentials(&crate::child::first_line(&out.stderr))
+        ));
+    }
+    let metadata = cargo_metadata::MetadataCommand::parse(String::from_utf8_lossy(&out.stdout))
+        .map_err(|e| format!("`cargo metadata` printed something unexpected: {e}"))?;
     let map = feature_map(&metadata);
     if let Some(path) = cache_path {
         let order = cache.entries.values().map(|(o, _)| *o).max().unwrap_or(0) + 1;
@@ -114,7 +125,7 @@ pub fn features(
 }
 
 fn load(path: &Path) -> Option<CacheFile> {
-    let bytes = std::fs::read(path).ok()?;
+    let bytes = crate::limits::read_regular_file(path).ok()?;
     serde_json::from_slice::<CacheFile>(&bytes)
         .ok()
         .filter(|c| c.kind == CACHE_KIND && c.version == 1)
@@ -136,7 +147,7 @@ fn cache_key(dir: &Path, lock_bytes: &[u8], manifests: &[PathBuf]) -> String {
         h.update(m.to_string_lossy().as_bytes());
         h.update([0]);
         // An unreadable manifest still changes the key, through its absence marker.
-        match std::fs::read(m) {
+        match crate::limits::read_regular_file(m) {
             Ok(b) => h.update(&b),
             Err(_) => h.update(b"<unreadable>"),
         }
@@ -144,15 +155,85 @@ fn cache_key(dir: &Path, lock_bytes: &[u8], manifests: &[PathBuf]) -> String {
     hex(&h.finalize())
 }
 
+/// How long `cargo metadata` may take (it reads every package's manifest from the local
+/// registry cache; a large workspace takes a few seconds).
+const METADATA_TIMEOUT: std::time::Duration = std::time::Duration::from_secs(120);
+
+/// The most `cargo metadata` may print (a large workspace prints tens of megabytes).
+const METADATA_OUTPUT: usize = 256 << 20;
+
+/// Settings through which a repository's own files would make cargo run a program of the
+/// repository: `.cargo/config.toml` may set `build.rustc`, `build.rustc-wrapper` and
+/// `build.rustc-workspace-wrapper`, and `cargo metadata` runs `rustc` (through them) to learn
+/// the target's configuration. Environment variables take precedence over configuration files
+/// ("Configuration: Environment variables", The Cargo Book), and an empty wrapper variable
+/// turns the wrapper off ("Environment variables Cargo reads", `RUSTC_WRAPPER`); `RUSTC` is
+/// set to the plain name, found on `PATH`. `CARGO_NET_OFFLINE` keeps cargo off the network
+/// even where `--offline` would not reach (`net.offline`).
+const NEUTRAL_ENV: &[(&str, &str)] = &[
+    ("RUSTC", "rustc"),
+    ("RUSTC_WRAPPER", ""),
+    ("RUSTC_WORKSPACE_WRAPPER", ""),
+    ("CARGO_BUILD_RUSTC", "rustc"),
+    ("CARGO_BUILD_RUSTC_WRAPPER", ""),
+    ("CARGO_BUILD_RUSTC_WORKSPACE_WRAPPER", ""),
+    ("CARGO_NET_OFFLINE", "true"),
+];
+
+/// Starts cargo in the lockfile's folder (so its vendored-source configuration still applies)
+/// with every setting that could run the repository's programs overridden.
+fn neutralise(cmd: &mut Command, dir: &Path) {
+    if !dir.as_os_str().is_empty() {
+        cmd.current_dir(dir);
+    }
+    for (k, v) in NEUTRAL_ENV {
+        cmd.env(k, v);
+    }
+}
+
+/// rustup reads `rust-toolchain.toml` (or `rust-toolchain`) from the folder cargo starts in
+/// and its parents, and a `path = "…"` there names a toolchain folder whose `cargo` and
+/// `rustc` it then runs ("Overrides: The toolchain file", rustup book): a repository could
+/// ship its own. Such a file is refused rather than obeyed.
+fn refuse_toolchain_by_path(dir: &Path) -> Result<(), String> {
+    let start = std::path::absolute(dir).unwrap_or_else(|_| dir.to_path_buf());
+    for folder in start.ancestors() {
+        for name in ["rust-toolchain.toml", "rust-toolchain"] {
+            let file = folder.join(name);
+            let Ok(bytes) = crate::limits::read_regular_file(&file) else {
+                continue;
+            };
+            let text = String::from_utf8_lossy(&bytes);
+            let by_path = toml::from_str::<toml::Table>(&text)
+                .ok()
+                .and_then(|t| t.get("toolchain").and_then(|t| t.get("path")).cloned())
+                .is_some();
+            if by_path {
+                return Err(format!(
+                    "`{}` names a toolchain by path, whose programs runprint does not run",
+                    file.display()
+                ));
+            }
+            // The first toolchain file found decides, as for rustup.
+            return Ok(());
+        }
+    }
+    Ok(())
+}
+
 /// The host triple from `cargo -vV`, or `None` when cargo is not on PATH.
-fn cargo_host_triple() -> Option<String> {
+fn cargo_host_triple(dir: &Path) -> Option<String> {
     let cargo = std::env::var_os("CARGO").unwrap_or_else(|| "cargo".into());
-    let out = Command::new(cargo)
-        .arg("-vV")
-        .stderr(std::process::Stdio::null())
-        .output()
-        .ok()
-        .filter(|o| o.status.success())?;
+    let mut cmd = Command::new(cargo);
+    cmd.arg("-vV");
+    neutralise(&mut cmd, dir);
+    let out = crate::child::run(
+        cmd,
+        crate::child::timeout(std::time::Duration::from_secs(30)),
+        1 << 20,
+    )
+    .ok()
+    .filter(|o| o.status.success())?;
     String::from_utf8_lossy(&out.stdout)
         .lines()
         .find_map(|l| l.strip_prefix("host:"))

@@ -122,7 +122,7 @@ pub fn parse_allowed_cpus(status: &str) -> Option<(String, u32)> {
 
 /// Collects the CPU facts of this machine.
 pub fn collect() -> Result<CpuInfo, String> {
-    let mut info = match std::fs::read_to_string("/proc/cpuinfo") {
+    let mut info = match crate::limits::read_regular_text(std::path::Path::new("/proc/cpuinfo")) {
         Ok(text) => parse_cpuinfo(&text),
         Err(_) => fallback_features(),
     };
@@ -147,7 +147,7 @@ pub fn collect() -> Result<CpuInfo, String> {
         info.logical_cores = sys.cpus().len() as u32;
     }
     info.physical_cores = sys.physical_core_count().map(|n| n as u32);
-    match std::fs::read_to_string("/proc/self/status")
+    match crate::limits::read_regular_text(std::path::Path::new("/proc/self/status"))
         .ok()
         .and_then(|s| parse_allowed_cpus(&s))
     {

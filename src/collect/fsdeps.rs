@@ -72,25 +72,28 @@ fn note(path: &Path, access: Access) {
     });
 }
 
-/// `std::fs::read`.
+/// Reads a file through the file-opening policy ([`crate::limits::read_regular_file`]: a
+/// regular file only, never a FIFO or a device such as `/dev/zero` behind a `METADATA`
+/// link, and bounded in size).
 pub fn read(path: impl AsRef<Path>) -> std::io::Result<Vec<u8>> {
     let path = path.as_ref();
     note(path, Access::Read);
-    std::fs::read(path)
+    crate::limits::read_regular_file(path)
 }
 
-/// `std::fs::read_to_string`.
+/// [`read`] as UTF-8 text.
 pub fn read_to_string(path: impl AsRef<Path>) -> std::io::Result<String> {
     let path = path.as_ref();
     note(path, Access::Read);
-    std::fs::read_to_string(path)
+    crate::limits::read_regular_text(path)
 }
 
-/// `std::fs::File::open`, for reading.
+/// Opens a regular file for reading ([`crate::limits::open_regular`]: never a FIFO or a
+/// device); the caller bounds how much it reads.
 pub fn open(path: impl AsRef<Path>) -> std::io::Result<std::fs::File> {
     let path = path.as_ref();
     note(path, Access::Read);
-    std::fs::File::open(path)
+    crate::limits::open_regular(path, true)
 }
 
 /// `std::fs::read_dir`.

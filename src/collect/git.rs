@@ -541,10 +541,19 @@ fn look(path: &Path, key: &str, cache: &ChangeCache, started_ns: i128) -> Look {
     }
 }
 
-/// Hex SHA-256 of a regular file's content; `None` when it cannot be read.
+/// Hex SHA-256 of a changed file's content; `None` when it cannot be read. A symbolic link is
+/// never followed: as git stores it, its content is the path it points to (gitglossary,
+/// "symlink"; mode 120000 in git's tree format), so a link to a file outside the repository
+/// is hashed as its target's name, not its content. A FIFO, socket or device is never opened.
 fn file_sha256(path: &Path) -> Option<String> {
     let mut hasher = Sha256::new();
-    let mut file = std::fs::File::open(path).ok()?;
+    if std::fs::symlink_metadata(path).ok()?.is_symlink() {
+        use std::os::unix::ffi::OsStrExt;
+        let target = std::fs::read_link(path).ok()?;
+        hasher.update(target.as_os_str().as_bytes());
+        return Some(hex(&hasher.finalize()));
+    }
+    let mut file = crate::limits::open_regular(path, false).ok()?;
     // On the stack: hundreds of changed files are hashed per stamp, and a fresh heap block
     // per file made the allocator map, zero and purge tens of megabytes.
     let mut buf = [0u8; 1 << 14];

@@ -67,7 +67,7 @@ impl GpuPaths {
 /// Collects the GPU section.
 pub fn collect(paths: &GpuPaths, scans: &[PythonScan], warnings: &mut Vec<String>) -> GpuInfo {
     let mut info = GpuInfo {
-        nvidia_driver: std::fs::read_to_string(paths.proc_nvidia.join("version"))
+        nvidia_driver: crate::limits::read_regular_text(&paths.proc_nvidia.join("version"))
             .ok()
             .and_then(|t| parse::parse_driver_version(&t)),
         ..GpuInfo::default()
@@ -88,7 +88,7 @@ pub fn collect(paths: &GpuPaths, scans: &[PythonScan], warnings: &mut Vec<String
             ..CudaToolkit::default()
         };
         let json = real.join("version.json");
-        if let Ok(text) = std::fs::read_to_string(&json) {
+        if let Ok(text) = crate::limits::read_regular_text(&json) {
             match parse::parse_cuda_version_json(&text, &json.display().to_string()) {
                 Ok((cuda, runtime, nvcc)) => {
                     tk.version = cuda;
@@ -97,7 +97,7 @@ pub fn collect(paths: &GpuPaths, scans: &[PythonScan], warnings: &mut Vec<String
                 }
                 Err(e) => warnings.push(format!("gpu: {e}")),
             }
-        } else if let Ok(text) = std::fs::read_to_string(real.join("version.txt")) {
+        } else if let Ok(text) = crate::limits::read_regular_text(&real.join("version.txt")) {
             tk.version = parse::parse_cuda_version_txt(&text);
         }
         let include = real.join("include");
@@ -159,7 +159,7 @@ pub fn collect(paths: &GpuPaths, scans: &[PythonScan], warnings: &mut Vec<String
         .flatten()
     {
         let bus = entry.file_name().to_string_lossy().into_owned();
-        if let Ok(text) = std::fs::read_to_string(entry.path().join("information")) {
+        if let Ok(text) = crate::limits::read_regular_text(&entry.path().join("information")) {
             if let Some(d) = parse::parse_gpu_information(&text, &bus) {
                 devices.insert(normalize_bus(&d.bus_id), d);
             }
@@ -195,12 +195,17 @@ fn query_smi(smi: &Path) -> Vec<GpuDevice> {
         "pci.bus_id,name,memory.total,compute_cap",
         "pci.bus_id,name,memory.total",
     ] {
-        let out = Command::new(smi)
-            .args([
-                &format!("--query-gpu={fields}"),
-                "--format=csv,noheader,nounits",
-            ])
-            .output();
+        let mut cmd = Command::new(smi);
+        cmd.args([
+            &format!("--query-gpu={fields}"),
+            "--format=csv,noheader,nounits",
+        ]);
+        // A driver in a bad state can make nvidia-smi hang; a stamp must not.
+        let out = crate::child::run(
+            cmd,
+            crate::child::timeout(std::time::Duration::from_secs(20)),
+            1 << 20,
+        );
         if let Ok(out) = out {
             if out.status.success() {
                 return parse::parse_nvidia_smi_csv(&String::from_utf8_lossy(&out.stdout));
@@ -212,7 +217,7 @@ fn query_smi(smi: &Path) -> Vec<GpuDevice> {
 
 /// Library versions from the headers in a folder.
 fn headers(dir: &Path, owner: &str, out: &mut BTreeSet<GpuLibrary>) {
-    let read = |name: &str| std::fs::read_to_string(dir.join(name)).ok();
+    let read = |name: &str| crate::limits::read_regular_text(&dir.join(name)).ok();
     let mut add = |lib: &str, version: Option<String>, file: &str| {
         if let Some(version) = version {
             out.insert(GpuLibrary {
@@ -232,7 +237,7 @@ fn headers(dir: &Path, owner: &str, out: &mut BTreeSet<GpuLibrary>) {
     for entry in std::fs::read_dir(dir).into_iter().flatten().flatten() {
         let name = entry.file_name().to_string_lossy().into_owned();
         if name.starts_with("cudnn_version_v") && name.ends_with(".h") {
-            if let Ok(t) = std::fs::read_to_string(entry.path()) {
+            if let Ok(t) = crate::limits::read_regular_text(&entry.path()) {
                 add("cudnn", parse::parse_cudnn_header(&t), &name);
             }
         }

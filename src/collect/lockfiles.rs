@@ -99,11 +99,34 @@ fn from_listing(root: &Path, files: &[String]) -> (Vec<PathBuf>, Vec<PathBuf>) {
 /// What reading one lockfile needs to know about the others.
 struct Context<'a> {
     root: &'a Path,
+    /// `root` made absolute (not resolved), to tell the repository's files from those named
+    /// on the command line outside it.
+    root_abs: PathBuf,
+    /// Reads of the repository's files stay inside it.
+    confine: crate::limits::Confinement,
     cargo_manifests: Vec<PathBuf>,
     cache_dir: Option<&'a Path>,
 }
 
 impl Context<'_> {
+    /// True for a path of the repository (lexically under its root, or resolving into it).
+    fn read_confined(&self, path: &Path) -> bool {
+        path.starts_with(self.root)
+            || path.starts_with(&self.root_abs)
+            || self.confine.contains(path)
+    }
+
+    /// Reads a file: confined to the repository when it is one of the repository's files (so a
+    /// committed symbolic link out of it is refused), else (a file the user named outside the
+    /// repository) bounded and regular only.
+    fn read(&self, path: &Path) -> std::io::Result<Vec<u8>> {
+        if self.read_confined(path) {
+            self.confine.read(path)
+        } else {
+            crate::limits::read_regular_file(path)
+        }
+    }
+
     /// For a `Cargo.lock`, the `Cargo.toml` files below its folder (they decide its enabled
     /// features), sorted; empty for other formats.
     fn manifests_for(&self, lockfile: &Path) -> Vec<PathBuf> {
@@ -178,6 +201,8 @@ pub fn collect_cached(
     }
     let ctx = Context {
         root,
+        root_abs: root_abs.clone(),
+        confine: crate::limits::Confinement::new(root),
         cargo_manifests,
         cache_dir,
     };
@@ -238,7 +263,7 @@ fn read_one(
         ));
         return None;
     };
-    let bytes = match crate::limits::read_regular_file(abs) {
+    let bytes = match ctx.read(abs) {
         Ok(b) => b,
         Err(e) => {
             // Perhaps passing (permissions, a full disk): read again next time.
@@ -265,7 +290,7 @@ fn read_one(
         if std::fs::symlink_metadata(&path).is_err() {
             return None;
         }
-        let bytes = match crate::limits::read_regular_file(&path) {
+        let bytes = match ctx.read(&path) {
             Ok(b) => b,
             Err(e) => {
                 warnings.push(format!("lockfile `{shown}`: cannot read: {e}"));
@@ -288,7 +313,7 @@ fn read_one(
         warnings,
     )?;
     if !parsed.includes.is_empty() {
-        merge_includes(ctx.root, abs, &mut parsed, &mut inputs.paths, warnings);
+        merge_includes(ctx, abs, &mut parsed, &mut inputs.paths, warnings);
     }
     if format == Format::CargoLock {
         let beside = abs.with_file_name("Cargo.toml");
@@ -322,13 +347,13 @@ fn read_one(
 /// installation.
 /// Every included path looked for is pushed to `read`.
 fn merge_includes(
-    root: &Path,
+    ctx: &Context,
     file: &Path,
     parsed: &mut Parsed,
     read: &mut Vec<PathBuf>,
     warnings: &mut Vec<String>,
 ) {
-    let root = root.canonicalize().unwrap_or_else(|_| root.to_path_buf());
+    let root = ctx.confine.root().to_path_buf();
     let mut seen: HashSet<PathBuf> = file.canonicalize().into_iter().collect();
     let mut queue: Vec<(PathBuf, crate::lockfile::Include)> = parsed
         .includes
@@ -347,7 +372,12 @@ fn merge_includes(
         let target = from.parent().unwrap_or(Path::new(".")).join(&inc.target);
         read.push(target.clone());
         let loaded = target.canonicalize().and_then(|c| {
-            let bytes = crate::limits::read_regular_file(&c)?;
+            // An include inside the repository stays inside it, whatever links it follows.
+            let bytes = if ctx.read_confined(&from) {
+                ctx.confine.read(&target)?
+            } else {
+                crate::limits::read_regular_file(&c)?
+            };
             let text = crate::lockfile::decode(&bytes, &inc.target)
                 .map_err(|e| std::io::Error::new(std::io::ErrorKind::InvalidData, e.message))?;
             Ok((text.to_string(), c))
@@ -356,8 +386,8 @@ fn merge_includes(
             Ok(v) => v,
             Err(e) => {
                 warnings.push(format!(
-                    "lockfile `{from_shown}`: cannot read included `{}`: {e}",
-                    inc.target
+                    "lockfile `{from_shown}`: cannot read included {}: {e}",
+                    crate::redact::content_free(&format!("`{}`", inc.target))
                 ));
                 continue;
             }

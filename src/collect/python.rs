@@ -311,21 +311,33 @@ fn locate_static(interpreter: &Path) -> Option<Located> {
     None
 }
 
+/// How long the interpreter may take to answer: a cold start with site hooks on a network
+/// file system takes seconds, a hang never ends.
+const INTERPRETER_TIMEOUT: std::time::Duration = std::time::Duration::from_secs(30);
+
+/// The most the interpreter may print: `sys.path` as JSON is a few kilobytes.
+const INTERPRETER_OUTPUT: usize = 4 << 20;
+
 /// The one call of the interpreter: it prints its version, implementation, prefix and
 /// `sys.path` as JSON. `-E`-free on purpose: the environment that shapes a training run's
 /// `sys.path` (PYTHONPATH, user site) shapes this answer too.
 fn ask_interpreter(interpreter: &Path) -> Result<Located, String> {
     const SCRIPT: &str = "import sys, json, platform; print(json.dumps({'version': platform.python_version(), 'implementation': sys.implementation.name, 'prefix': sys.prefix, 'base': sys.base_prefix, 'path': [p for p in sys.path if p]}))";
-    let out = Command::new(interpreter)
-        .args(["-c", SCRIPT])
-        .output()
-        .map_err(|e| format!("cannot run `{}`: {e}", interpreter.display()))?;
+    let mut cmd = Command::new(interpreter);
+    cmd.args(["-c", SCRIPT]);
+    // An interpreter whose site hooks sleep or print without end must not hold up the stamp.
+    let out = crate::child::run(
+        cmd,
+        crate::child::timeout(INTERPRETER_TIMEOUT),
+        INTERPRETER_OUTPUT,
+    )
+    .map_err(|e| format!("`{}` {e}", interpreter.display()))?;
     if !out.status.success() {
         return Err(format!(
             "`{}` failed ({}): {}",
             interpreter.display(),
             out.status,
-            String::from_utf8_lossy(&out.stderr).trim()
+            crate::child::first_line(&out.stderr)
         ));
     }
     let v: serde_json::Value = serde_json::from_slice(&out.stdout).map_err(|e| {
@@ -479,7 +491,9 @@ fn read_head(path: &Path) -> std::io::Result<String> {
     loop {
         let n = f.read(&mut buf[len..])?;
         len += n;
-        if n == 0 || memchr::memmem::find(&buf[..len], b"\n\n").is_some() {
+        // Headers end at the first blank line (core metadata, RFC 822 layout); real ones are a
+        // few kilobytes, so a file with none in its first MiB is read no further.
+        if n == 0 || memchr::memmem::find(&buf[..len], b"\n\n").is_some() || len >= 1 << 20 {
             break;
         }
         if len == buf.len() {

@@ -60,8 +60,10 @@ pub fn parse_environment(text: &str, path: &str) -> Result<Parsed, LockfileError
     for dep in env.dependencies {
         match dep {
             YamlDependency::Spec(spec) => {
-                let line = line_of_str(text, &spec);
+                // The line is looked for only on error (searching for every entry was
+                // quadratic in the number of dependencies).
                 packages.push(match_spec(&spec).ok_or_else(|| {
+                    let line = line_of_str(text, &spec);
                     LockfileError::at(path, line, format!("`{spec}` is not a conda match spec"))
                 })?);
             }

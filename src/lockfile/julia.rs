@@ -89,8 +89,10 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
             continue;
         };
         for entry in entries {
-            let line = text.find(&format!("{name}]]")).map(|o| line_of(text, o));
+            // The line is looked for only when there is an error to report: searching the
+            // text for every entry made large manifests quadratic.
             let e: TomlEntry = entry.try_into().map_err(|e: toml::de::Error| {
+                let line = text.find(&format!("{name}]]")).map(|o| line_of(text, o));
                 LockfileError::at(path, line, format!("package `{name}`: {}", e.message()))
             })?;
             let source = match (&e.repo_url, &e.path) {

@@ -261,13 +261,39 @@ pub fn parse_or_warn(
 ) -> Option<Parsed> {
     match format.parse_with_companion(text, path, companion) {
         Ok(mut parsed) => {
-            warnings.append(&mut parsed.warnings);
+            warnings.extend(
+                parsed
+                    .warnings
+                    .drain(..)
+                    .map(|w| crate::redact::content_free(&w)),
+            );
             Some(parsed)
         }
         Err(e) => {
             warnings.push(format!("lockfile {e}"));
             None
         }
+    }
+}
+
+/// Line numbers of byte offsets in one text, each found by binary search over the offsets of
+/// its line feeds (counted once), so that numbering every entry of a large file stays linear.
+#[derive(Debug, Clone)]
+pub struct LineIndex {
+    newlines: Vec<usize>,
+}
+
+impl LineIndex {
+    /// The index of a text.
+    pub fn new(text: &str) -> LineIndex {
+        LineIndex {
+            newlines: memchr::memchr_iter(b'\n', text.as_bytes()).collect(),
+        }
+    }
+
+    /// 1-based line of a byte offset (as [`line_of`]).
+    pub fn line(&self, offset: usize) -> usize {
+        self.newlines.partition_point(|&n| n < offset) + 1
     }
 }
 
