@@ -42,6 +42,75 @@ pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<(), WriteError> {
     Ok(())
 }
 
+/// Writes a file the user named (`stamp --out`, `check --save`) without ever destroying what
+/// the name stands for:
+/// * a symbolic link is written through: its target is replaced atomically, the link stays;
+/// * a character device, FIFO or socket (`/dev/null`, `/dev/stdout`, a pipe) is written to in
+///   place, never replaced by a regular file (which, as root, would destroy a device node);
+/// * an existing regular file is replaced atomically and keeps its permission bits;
+/// * a new file is written atomically.
+pub fn write_output(path: &Path, bytes: &[u8]) -> Result<(), WriteError> {
+    let err = |source| WriteError {
+        path: path.to_path_buf(),
+        source,
+    };
+    let meta = match std::fs::symlink_metadata(path) {
+        Ok(m) => m,
+        Err(e) if e.kind() == std::io::ErrorKind::NotFound => return write_atomic(path, bytes),
+        Err(e) => return Err(err(e)),
+    };
+    if meta.is_symlink() {
+        // The final target, following every link; a dangling link's target is created.
+        let target = match std::fs::canonicalize(path) {
+            Ok(t) => t,
+            Err(_) => {
+                let link = std::fs::read_link(path).map_err(err)?;
+                path.parent().unwrap_or(Path::new(".")).join(link)
+            }
+        };
+        if std::fs::symlink_metadata(&target).is_ok_and(|m| m.is_symlink()) {
+            return Err(err(std::io::Error::new(
+                std::io::ErrorKind::InvalidInput,
+                "is a chain of symbolic links that does not end in a file",
+            )));
+        }
+        return write_output(&target, bytes);
+    }
+    if meta.is_dir() {
+        return Err(err(std::io::Error::new(
+            std::io::ErrorKind::InvalidInput,
+            "is a folder",
+        )));
+    }
+    if !meta.is_file() {
+        let mut options = std::fs::OpenOptions::new();
+        options.write(true);
+        #[cfg(unix)]
+        {
+            use std::os::unix::fs::OpenOptionsExt;
+            // A FIFO without a reader is an error at once rather than a wait (open(2), ENXIO).
+            options.custom_flags(libc::O_NONBLOCK | libc::O_NOCTTY);
+        }
+        let mut f = options.open(path).map_err(err)?;
+        #[cfg(unix)]
+        {
+            use std::os::unix::io::AsRawFd;
+            let fd = f.as_raw_fd();
+            // SAFETY: `fd` is owned by `f` for the duration of the calls.
+            unsafe {
+                let flags = libc::fcntl(fd, libc::F_GETFL);
+                if flags >= 0 {
+                    libc::fcntl(fd, libc::F_SETFL, flags & !libc::O_NONBLOCK);
+                }
+            }
+        }
+        f.write_all(bytes).map_err(err)?;
+        return f.flush().map_err(err);
+    }
+    write_atomic(path, bytes)?;
+    std::fs::set_permissions(path, meta.permissions()).map_err(err)
+}
+
 /// Removes the temporary files of killed writers from `dir`: plain files named
 /// `.runprint-*.tmp` last modified more than [`STALE_TEMPORARY`] before `now`. Best effort:
 /// a file that cannot be read or removed (another process removed it first) is left alone.
@@ -119,6 +188,53 @@ mod tests {
                 "notes.tmp"
             ]
         );
+    }
+
+    #[cfg(unix)]
+    #[test]
+    fn named_outputs_are_written_through_never_replaced() {
+        use std::os::unix::fs::PermissionsExt;
+        let dir = tempfile::tempdir().unwrap();
+        // A symbolic link: the target gets the text, the link stays a link.
+        let target = dir.path().join("real.toml");
+        std::fs::write(&target, b"old").unwrap();
+        let link = dir.path().join("link.toml");
+        std::os::unix::fs::symlink("real.toml", &link).unwrap();
+        write_output(&link, b"new").unwrap();
+        assert!(std::fs::symlink_metadata(&link).unwrap().is_symlink());
+        assert_eq!(std::fs::read(&target).unwrap(), b"new");
+        // An existing file keeps its mode (644 stays 644, not the temporary file's 600).
+        std::fs::set_permissions(&target, std::fs::Permissions::from_mode(0o644)).unwrap();
+        write_output(&target, b"newer").unwrap();
+        let mode = std::fs::metadata(&target).unwrap().permissions().mode() & 0o777;
+        assert_eq!(mode, 0o644);
+        // A character device is written to, not replaced: /dev/null stays a device.
+        write_output(Path::new("/dev/null"), b"x").unwrap();
+        use std::os::unix::fs::FileTypeExt;
+        assert!(std::fs::metadata("/dev/null")
+            .unwrap()
+            .file_type()
+            .is_char_device());
+        // A FIFO with a reader gets the bytes in place.
+        let fifo = dir.path().join("fifo");
+        let c = std::ffi::CString::new(fifo.to_str().unwrap()).unwrap();
+        // SAFETY: a valid NUL-terminated path.
+        assert_eq!(unsafe { libc::mkfifo(c.as_ptr(), 0o600) }, 0);
+        let reader = {
+            let fifo = fifo.clone();
+            std::thread::spawn(move || std::fs::read(fifo).unwrap())
+        };
+        let mut tries = 0;
+        while let Err(e) = write_output(&fifo, b"through") {
+            tries += 1;
+            assert!(tries < 500, "{e}");
+            std::thread::sleep(Duration::from_millis(10));
+        }
+        assert_eq!(reader.join().unwrap(), b"through");
+        assert!(std::fs::symlink_metadata(&fifo)
+            .unwrap()
+            .file_type()
+            .is_fifo());
     }
 
     #[test]

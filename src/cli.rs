@@ -16,7 +16,7 @@ use std::path::PathBuf;
 
 use clap::{Parser, Subcommand, ValueEnum};
 
-use crate::atomic::write_atomic;
+use crate::atomic::write_output;
 use crate::collect::{stamp_prepared, StampOptions};
 use crate::diff::compare_with;
 use crate::diff::rules::{render_table, TableFormat};
@@ -344,7 +344,7 @@ fn run_stamp(args: StampArgs) -> ExitStatus {
     let text = manifest.render_prepared(format, prepared.as_ref());
     match args.out {
         Some(path) => {
-            if let Err(e) = write_atomic(&path, text.as_bytes()) {
+            if let Err(e) = write_output(&path, text.as_bytes()) {
                 return fail(e);
             }
             eprintln!(
@@ -495,7 +495,7 @@ fn run_check(args: CheckArgs) -> ExitStatus {
         let current_name = match &args.save {
             Some(path) => {
                 let text = current.render(ManifestFormat::Toml);
-                if let Err(e) = write_atomic(path, text.as_bytes()) {
+                if let Err(e) = write_output(path, text.as_bytes()) {
                     return fail(e);
                 }
                 eprintln!(

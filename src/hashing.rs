@@ -21,22 +21,15 @@ pub fn sha256_file(path: &Path, on_bytes: &dyn Fn(u64)) -> std::io::Result<(Stri
         // megabyte per file would cost more than hashing a small file.
         static BUF: std::cell::RefCell<Vec<u8>> = std::cell::RefCell::new(vec![0u8; BLOCK]);
     }
-    let mut options = std::fs::OpenOptions::new();
-    options.read(true);
-    #[cfg(unix)]
-    {
-        // A file swapped for a FIFO after it was listed must not block the stamp; regular
-        // files ignore the flag.
-        use std::os::unix::fs::OpenOptionsExt;
-        options.custom_flags(libc::O_NONBLOCK);
-    }
-    let mut file = options.open(path)?;
-    if !file.metadata()?.is_file() {
-        return Err(std::io::Error::new(
-            std::io::ErrorKind::InvalidInput,
-            "not a regular file",
-        ));
-    }
+    // A file swapped for a FIFO or a device after it was listed must not block the stamp
+    // (the file-opening policy, `crate::limits`).
+    let mut file = crate::limits::open_regular(path, true).map_err(|e| {
+        if e.kind() == std::io::ErrorKind::InvalidInput {
+            std::io::Error::new(std::io::ErrorKind::InvalidInput, "not a regular file")
+        } else {
+            e
+        }
+    })?;
     BUF.with(|buf| {
         let mut buf = buf.borrow_mut();
         let mut hasher = Sha256::new();
