@@ -92,18 +92,7 @@ pub fn write_output(path: &Path, bytes: &[u8]) -> Result<(), WriteError> {
             options.custom_flags(libc::O_NONBLOCK | libc::O_NOCTTY);
         }
         let mut f = options.open(path).map_err(err)?;
-        #[cfg(unix)]
-        {
-            use std::os::unix::io::AsRawFd;
-            let fd = f.as_raw_fd();
-            // SAFETY: `fd` is owned by `f` for the duration of the calls.
-            unsafe {
-                let flags = libc::fcntl(fd, libc::F_GETFL);
-                if flags >= 0 {
-                    libc::fcntl(fd, libc::F_SETFL, flags & !libc::O_NONBLOCK);
-                }
-            }
-        }
+        crate::limits::blocking(&f);
         f.write_all(bytes).map_err(err)?;
         return f.flush().map_err(err);
     }

@@ -142,12 +142,6 @@ fn longest_backtick_run(s: &str) -> usize {
     best
 }
 
-/// A fenced code block's body: unsafe characters escaped except newlines (inside a fence from
-/// [`md_fence`] everything else is literal).
-pub fn md_block(s: &str) -> String {
-    printable_lines(s).into_owned()
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;

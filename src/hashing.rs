@@ -23,13 +23,7 @@ pub fn sha256_file(path: &Path, on_bytes: &dyn Fn(u64)) -> std::io::Result<(Stri
     }
     // A file swapped for a FIFO or a device after it was listed must not block the stamp
     // (the file-opening policy, `crate::limits`).
-    let mut file = crate::limits::open_regular(path, true).map_err(|e| {
-        if e.kind() == std::io::ErrorKind::InvalidInput {
-            std::io::Error::new(std::io::ErrorKind::InvalidInput, "not a regular file")
-        } else {
-            e
-        }
-    })?;
+    let mut file = crate::limits::open_regular(path, true)?;
     BUF.with(|buf| {
         let mut buf = buf.borrow_mut();
         let mut hasher = Sha256::new();

@@ -48,7 +48,8 @@ pub fn max_file_bytes() -> u64 {
         .unwrap_or(DEFAULT_MAX_FILE_BYTES)
 }
 
-fn too_large(size: Option<u64>, limit: u64) -> io::Error {
+/// The error for a file over the limit (`size` when known).
+pub(crate) fn too_large(size: Option<u64>, limit: u64) -> io::Error {
     let what = match size {
         Some(size) => format!("{size} bytes is"),
         None => "the file is".to_string(),
@@ -176,8 +177,9 @@ pub fn kind_of(meta: &std::fs::Metadata) -> &'static str {
     }
 }
 
+/// Puts a descriptor opened with `O_NONBLOCK` back into blocking mode.
 #[cfg(unix)]
-fn blocking(file: &File) {
+pub(crate) fn blocking(file: &File) {
     // Back to blocking reads: a regular file ignores the flag, but a slow network file
     // system should not see spurious `WouldBlock` errors.
     use std::os::unix::io::AsRawFd;
@@ -192,7 +194,7 @@ fn blocking(file: &File) {
 }
 
 #[cfg(not(unix))]
-fn blocking(_file: &File) {}
+pub(crate) fn blocking(_file: &File) {}
 
 /// The real path of an open file: what `/proc/self/fd/N` points at on Linux (the file that was
 /// opened, whatever links led there), else the path resolved again.

@@ -184,7 +184,8 @@ fn markdown(report: &Report) -> String {
         );
     }
     for d in &report.details {
-        let body = crate::escape::md_block(&d.diff);
+        // Inside a fence from `md_fence` everything but the escaped characters is literal.
+        let body = printable_lines(&d.diff);
         let fence = md_fence(&body);
         let _ = write!(
             out,

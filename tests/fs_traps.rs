@@ -11,7 +11,7 @@ mod common;
 
 use std::path::Path;
 
-use common::{git, repo_with, runprint, write_files};
+use common::{git, mkfifo, repo_with, write_files};
 use runprint::manifest::Manifest;
 
 /// Stamps `dir` with extra arguments; asserts exit 0 and returns the manifest and stderr.
@@ -20,28 +20,9 @@ fn stamp(dir: &Path, args: &[&str]) -> (Manifest, String) {
 }
 
 fn stamp_env(dir: &Path, args: &[&str], env: &[(&str, &str)]) -> (Manifest, String) {
-    let out_dir = tempfile::tempdir().unwrap();
-    let out_file = out_dir.path().join("m.toml");
-    let out = runprint()
-        .args(["stamp", "--quiet", "--repo"])
-        .arg(dir)
-        .args(args)
-        .arg("--out")
-        .arg(&out_file)
-        .envs(env.iter().copied())
-        .output()
-        .unwrap();
-    let stderr = String::from_utf8_lossy(&out.stderr).into_owned();
-    assert_eq!(out.status.code(), Some(0), "{stderr}");
-    let m = Manifest::load(&out_file).unwrap();
+    let (m, _, stderr) = common::stamp_quiet(dir, args, env);
     assert!(!m.is_modified());
     (m, stderr)
-}
-
-fn mkfifo(path: &Path) {
-    let c = std::ffi::CString::new(path.to_str().unwrap()).unwrap();
-    // SAFETY: a valid NUL-terminated path.
-    assert_eq!(unsafe { libc::mkfifo(c.as_ptr(), 0o600) }, 0);
 }
 
 #[test]

@@ -6,28 +6,10 @@
 
 mod common;
 
-use std::path::Path;
-
 use common::{git, repo_with, runprint, write_files};
 use runprint::manifest::Manifest;
 
-fn stamp_env(dir: &Path, args: &[&str], env: &[(&str, &str)]) -> (Manifest, String, String) {
-    let out_dir = tempfile::tempdir().unwrap();
-    let out_file = out_dir.path().join("m.toml");
-    let out = runprint()
-        .args(["stamp", "--quiet", "--repo"])
-        .arg(dir)
-        .args(args)
-        .arg("--out")
-        .arg(&out_file)
-        .envs(env.iter().copied())
-        .output()
-        .unwrap();
-    let stderr = String::from_utf8_lossy(&out.stderr).into_owned();
-    assert_eq!(out.status.code(), Some(0), "{stderr}");
-    let text = std::fs::read_to_string(&out_file).unwrap();
-    (Manifest::load(&out_file).unwrap(), text, stderr)
-}
+use common::stamp_quiet as stamp_env;
 
 #[test]
 fn a_committed_link_out_of_the_repository_is_never_read() {
@@ -66,9 +48,7 @@ fn a_committed_link_out_of_the_repository_is_never_read() {
 fn a_fifo_lockfile_is_refused_without_waiting() {
     let repo = repo_with(&[("train.py", "print(1)\n")]);
     let fifo = repo.path().join("requirements.txt");
-    let c = std::ffi::CString::new(fifo.to_str().unwrap()).unwrap();
-    // SAFETY: a valid NUL-terminated path.
-    assert_eq!(unsafe { libc::mkfifo(c.as_ptr(), 0o644) }, 0);
+    common::mkfifo(&fifo);
     let started = std::time::Instant::now();
     let (m, _, _) = stamp_env(repo.path(), &["--lockfile", fifo.to_str().unwrap()], &[]);
     assert!(started.elapsed() < std::time::Duration::from_secs(60));

@@ -208,10 +208,7 @@ fn blob_read(repo: &Repository, tree: &Tree<'_>, path: &str) -> Result<Option<Ve
         .map(|(size, _)| size as u64)
         .map_err(|e| format!("cannot read its object: {}", e.message()))?;
     if size > limit {
-        return Err(format!(
-            "{size} bytes is over the {limit}-byte limit for files runprint reads (set {} to raise it)",
-            crate::limits::MAX_FILE_BYTES_VAR
-        ));
+        return Err(crate::limits::too_large(Some(size), limit).to_string());
     }
     let blob = repo
         .find_blob(entry.id())

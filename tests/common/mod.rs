@@ -79,6 +79,38 @@ pub fn stamp_to(dir: &Path, out: &Path, vars: &[(&str, &str)]) -> runprint::mani
     runprint::manifest::Manifest::load(out).unwrap()
 }
 
+/// Stamps `dir` quietly with extra arguments and variables; asserts exit 0 and returns the
+/// manifest, its text and stderr.
+pub fn stamp_quiet(
+    dir: &Path,
+    args: &[&str],
+    env: &[(&str, &str)],
+) -> (runprint::manifest::Manifest, String, String) {
+    let out_dir = tempfile::tempdir().unwrap();
+    let out_file = out_dir.path().join("m.toml");
+    let out = runprint()
+        .args(["stamp", "--quiet", "--repo"])
+        .arg(dir)
+        .args(args)
+        .arg("--out")
+        .arg(&out_file)
+        .envs(env.iter().copied())
+        .output()
+        .unwrap();
+    let stderr = String::from_utf8_lossy(&out.stderr).into_owned();
+    assert_eq!(out.status.code(), Some(0), "{stderr}");
+    let text = std::fs::read_to_string(&out_file).unwrap();
+    let m = runprint::manifest::Manifest::load(&out_file).unwrap();
+    (m, text, stderr)
+}
+
+/// Makes a FIFO at `path`.
+pub fn mkfifo(path: &Path) {
+    let c = std::ffi::CString::new(path.to_str().unwrap()).unwrap();
+    // SAFETY: a valid NUL-terminated path.
+    assert_eq!(unsafe { libc::mkfifo(c.as_ptr(), 0o600) }, 0);
+}
+
 /// Path of a file in the crate's folder.
 pub fn crate_path(rel: &str) -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR")).join(rel)
