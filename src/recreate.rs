@@ -95,10 +95,9 @@ pub fn script(m: &Manifest, path: &str) -> String {
             .hostname
             .as_deref()
             .map_or(String::new(), |h| format!(" on {}", comment(h))),
-        m.run
-            .label
-            .as_deref()
-            .map_or(String::new(), |l| format!(", label: {}", comment(l))),
+        m.run.label.as_deref().map_or(String::new(), |l| {
+            format!(", label: {}", comment(&crate::redact::scrub_secrets(l)))
+        }),
     );
     out.push_str(
         "# Printed by `runprint recreate`, which runs nothing: read it, then run it from the root\n\
@@ -344,6 +343,11 @@ fn environment(m: &Manifest, out: &mut String) {
             let _ = writeln!(
                 out,
                 "# {name}: its value was hashed by `stamp --private`; set it by hand"
+            );
+        } else if crate::redact::is_replaced(value) {
+            let _ = writeln!(
+                out,
+                "# {name}: its value was recorded as a digest (its form is not one runprint records as text, or part of it looked secret); set it by hand"
             );
         } else if let Some(q) = quote(value) {
             let _ = writeln!(out, "export {name}={q}");

@@ -115,14 +115,14 @@ fn shown_path(path: &Path, root: &Path, private: bool) -> String {
     let root_abs = std::path::absolute(root).unwrap_or_else(|_| root.to_path_buf());
     if let Ok(rel) = abs.strip_prefix(&root_abs) {
         if !rel.as_os_str().is_empty() {
-            return rel.to_string_lossy().replace('\\', "/");
+            return crate::redact::scrub_path(&rel.to_string_lossy().replace('\\', "/"));
         }
     }
     let given = path.to_string_lossy().into_owned();
     if private && path.is_absolute() {
         crate::privacy::digest(&given)
     } else {
-        given
+        crate::redact::scrub_path(&given)
     }
 }
 
@@ -249,6 +249,10 @@ fn assemble(inputs: Vec<(String, bool)>, jobs: Vec<Job>) -> Vec<DataInput> {
             h.update(b"\n");
         }
         input.sha256 = format!("sha256:{}", hex(&h.finalize()));
+        // The digest covers the real names; the names shown lose any token-like segment.
+        for e in &mut entries {
+            e.path = crate::redact::scrub_path(&e.path);
+        }
         if entries.len() <= DATA_ENTRY_LIMIT {
             input.entries = entries;
         }

@@ -1,13 +1,15 @@
 //! Environment variables that steer numerical results, threading or which libraries load.
 //!
-//! Only variables whose name matches [`RELEVANT_PREFIXES`] or [`RELEVANT_NAMES`] are kept; every
-//! other variable is left out. A kept variable whose name or value looks secret is recorded by
-//! name only (see [`crate::redact`]).
+//! Only variables whose name matches [`RELEVANT_PREFIXES`] or [`RELEVANT_NAMES`] are kept
+//! (Terraform's own `TF_` variables, [`TERRAFORM`], are not TensorFlow's and are left out);
+//! every other variable is left out. A kept variable is recorded by its value's grammar
+//! ([`crate::redact::env_value`]): the value when the grammar is known, a digest when it is
+//! not, the name only when its name or value holds a credential.
 
 use std::collections::BTreeMap;
 
 use crate::manifest::EnvInfo;
-use crate::redact::{is_secret_name, looks_secret_value, scrub_url_credentials};
+use crate::redact::{env_value, Recorded};
 
 /// Prefixes of variables read by OpenMP runtimes, BLAS libraries, the CUDA/ROCm stacks and the
 /// major ML frameworks (each library's documentation lists its own; see
@@ -66,8 +68,41 @@ pub const RELEVANT_NAMES: &[&str] = &[
     "CONDA_DEFAULT_ENV",
 ];
 
+/// Terraform's variables, which share TensorFlow's `TF_` prefix: input variables
+/// (`TF_VAR_name`), extra arguments (`TF_CLI_ARGS`, `TF_CLI_ARGS_name`), host credentials
+/// (`TF_TOKEN_host`) and the CLI's settings (Terraform CLI environment variables reference,
+/// developer.hashicorp.com/terraform/cli/config/environment-variables). They hold
+/// infrastructure inputs and credentials, never a numerical setting.
+pub const TERRAFORM: &[&str] = &[
+    "TF_VAR_",
+    "TF_CLI_",
+    "TF_TOKEN_",
+    "TF_LOG",
+    "TF_INPUT",
+    "TF_WORKSPACE",
+    "TF_DATA_DIR",
+    "TF_IN_AUTOMATION",
+    "TF_PLUGIN_CACHE_DIR",
+    "TF_PLUGIN_CACHE_MAY_BREAK_DEPENDENCY_LOCK_FILE",
+    "TF_REGISTRY_",
+    "TF_IGNORE",
+    "TF_STATE_PERSIST_INTERVAL",
+    "TF_APPEND_USER_AGENT",
+    "TF_REATTACH_PROVIDERS",
+    "TF_ACC",
+    "TF_MODULE_DEPTH",
+    "TF_WARN_OUTPUT_ERRORS",
+];
+
 /// True when a variable is recorded.
 pub fn is_relevant(name: &str) -> bool {
+    if TERRAFORM.iter().any(|t| {
+        name == *t
+            || (t.ends_with('_') && name.starts_with(t))
+            || name.starts_with(&format!("{t}_"))
+    }) {
+        return false;
+    }
     RELEVANT_NAMES.contains(&name) || RELEVANT_PREFIXES.iter().any(|p| name.starts_with(p))
 }
 
@@ -80,11 +115,14 @@ pub fn collect(vars: &BTreeMap<String, String>, private: bool) -> EnvInfo {
         if !is_relevant(name) {
             continue;
         }
-        if is_secret_name(name) || looks_secret_value(value) {
-            info.redacted.push(name.clone());
-            continue;
-        }
-        let value = scrub_url_credentials(value);
+        let value = match env_value(name, value) {
+            Recorded::NameOnly => {
+                info.redacted.push(name.clone());
+                continue;
+            }
+            Recorded::Digest(d) => d,
+            Recorded::Value(v) => v,
+        };
         let value = if private && value.contains('/') {
             crate::privacy::digest(&value)
         } else {
@@ -122,6 +160,37 @@ mod tests {
         assert_eq!(info.vars.get("CUBLAS_WORKSPACE_CONFIG").unwrap(), ":4096:8");
         assert!(!info.vars.contains_key("HOME"));
         assert_eq!(info.redacted, vec!["CUDA_TOKEN", "TF_SERVER"]);
+    }
+
+    #[test]
+    fn terraform_variables_are_not_tensorflow_settings() {
+        // Names from the Terraform CLI environment variables reference.
+        let info = collect(
+            &env(&[
+                ("TF_VAR_db_password", "hunter2"),
+                ("TF_VAR_region", "us-west-1"),
+                ("TF_CLI_ARGS_plan", "-var=token=abc"),
+                ("TF_CLI_CONFIG_FILE", "/home/someone/.terraformrc"),
+                ("TF_TOKEN_app_example_invalid", "abc"),
+                ("TF_LOG", "trace"),
+                // TensorFlow's own (TensorFlow determinism and oneDNN docs).
+                ("TF_DETERMINISTIC_OPS", "1"),
+                ("TF_ENABLE_ONEDNN_OPTS", "0"),
+            ]),
+            false,
+        );
+        let names: Vec<&str> = info.vars.keys().map(String::as_str).collect();
+        assert_eq!(names, ["TF_DETERMINISTIC_OPS", "TF_ENABLE_ONEDNN_OPTS"]);
+        assert!(info.redacted.is_empty());
+    }
+
+    #[test]
+    fn values_of_unknown_grammar_are_digests() {
+        let info = collect(
+            &env(&[("TF_CONFIG", r#"{"task": {"type": "worker"}}"#)]),
+            false,
+        );
+        assert!(info.vars["TF_CONFIG"].starts_with("[sha256:"));
     }
 
     #[test]

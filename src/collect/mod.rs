@@ -538,7 +538,7 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
     let run = RunInfo {
         tool_version: env!("CARGO_PKG_VERSION").to_string(),
         created: humantime::format_rfc3339_seconds(std::time::SystemTime::now()).to_string(),
-        label: opts.label.clone(),
+        label: opts.label.as_deref().map(scrub_secrets),
         hostname: if opts.private {
             None
         } else {

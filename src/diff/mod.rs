@@ -165,7 +165,7 @@ impl Side {
         Side {
             path: path.to_string(),
             fingerprint: m.fingerprint.clone(),
-            label: m.run.label.clone(),
+            label: m.run.label.as_deref().map(crate::redact::scrub_secrets),
             created: m.run.created.clone(),
             modified: m.is_modified(),
         }
