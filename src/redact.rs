@@ -99,9 +99,9 @@ pub fn is_secret_name(name: &str) -> bool {
         SECRET_INFIXES.iter().any(|w| p.contains(w))
             || SECRET_PARTS.contains(&p.as_str())
             || (p.len() > 5 && p.ends_with("TOKEN"))
-    }) || parts
-        .last()
-        .is_some_and(|p| p == "KEY" || p.ends_with("APIKEY"))
+            || (p.len() > 4 && (p.ends_with("PASS") || p.ends_with("APIPW")))
+            || (p.len() > 5 && p.ends_with("APIKEY"))
+    }) || parts.last().is_some_and(|p| p == "KEY" || p == "PW")
 }
 
 // ------------------------------------------------------------------------------------------
@@ -113,11 +113,11 @@ pub fn is_secret_name(name: &str) -> bool {
 /// `tests/secret_shapes.rs` checks them against published pattern collections).
 const TOKEN_PREFIXES: &[(&str, usize)] = &[
     // GitHub.
-    ("ghp_", 20),
-    ("gho_", 20),
-    ("ghu_", 20),
-    ("ghs_", 20),
-    ("ghr_", 20),
+    ("ghp_", 12),
+    ("gho_", 12),
+    ("ghu_", 12),
+    ("ghs_", 12),
+    ("ghr_", 12),
     ("github_pat_", 20),
     // GitLab (personal, deploy, runner, trigger, OAuth, CI job, feed, incoming mail…).
     ("glpat-", 12),
@@ -161,17 +161,17 @@ const TOKEN_PREFIXES: &[(&str, usize)] = &[
     ("pplx-", 20),
     // Package registries.
     ("npm_", 20),
-    ("pypi-", 20),
+    ("pypi-", 12),
     ("rubygems_", 20),
     ("dckr_pat_", 12),
-    ("CLOJARS_", 20),
+    ("CLOJARS", 12),
     // Clouds and hosting.
     ("AKIA", 16),
     ("ASIA", 16),
     ("ABIA", 16),
     ("ACCA", 16),
-    ("AIza", 30),
-    ("ya29.", 20),
+    ("AIza", 12),
+    ("ya29.", 1),
     ("GOCSPX-", 16),
     ("dop_v1_", 20),
     ("doo_v1_", 20),
@@ -189,13 +189,13 @@ const TOKEN_PREFIXES: &[(&str, usize)] = &[
     ("NRAK-", 20),
     ("sntrys_", 20),
     ("sntryu_", 20),
-    ("glc_", 20),
-    ("glsa_", 20),
-    ("lin_api_", 20),
-    ("PMAK-", 20),
+    ("glc_", 12),
+    ("glsa_", 12),
+    ("lin_api_", 12),
+    ("PMAK-", 12),
     ("ATATT3", 20),
-    ("dp.pt.", 20),
-    ("dp.st.", 20),
+    ("dp.pt.", 12),
+    ("dp.st.", 12),
     ("tskey-", 16),
     ("nfp_", 20),
     ("sbp_", 20),
@@ -206,14 +206,50 @@ const TOKEN_PREFIXES: &[(&str, usize)] = &[
     ("pscale_tkn_", 20),
     ("pscale_pw_", 20),
     ("pnu_", 20),
-    ("dt0c01.", 20),
+    ("dt0c01.", 12),
     ("AGE-SECRET-KEY-1", 20),
     ("eyJ", 20),
+    // Shapes that the public pattern collections (detect-secrets 1.5.0, trufflehog3 3.0.10,
+    // whispers 2.4.0 `apikey-known`) list, checked by tests/secrets.rs.
+    ("AKC", 10),
+    ("AGPA", 16),
+    ("AIDA", 16),
+    ("AROA", 16),
+    ("AIPA", 16),
+    ("ANPA", 16),
+    ("ANVA", 16),
+    ("APKA", 16),
+    ("ASCA", 16),
+    ("sq0atp", 12),
+    ("sq0csp", 12),
+    ("sq0idp", 12),
+    ("FLWSECK-", 12),
+    ("CFPAT", 12),
+    ("EAACEdEose0cBA", 4),
+    ("akab", 12),
+    ("aio", 12),
+    ("ion_", 12),
+    ("fio-u-", 12),
+    ("dG9rO", 12),
+    ("amzn.mws.", 12),
+    ("lin_oauth_", 12),
+    ("skapi_cert_", 12),
+    ("sk.eyj1ijoi", 12),
+    ("sk.eyJ1Ijoi", 12),
+    ("pk.eyJ1Ijoi", 12),
+    ("NRAA-", 12),
+    ("NRII-", 12),
+    ("NRIQ-", 12),
+    ("NRRA-", 12),
+    ("NRSP-", 12),
+    ("eyJrIjoi", 12),
+    ("access_token$production$", 12),
+    ("amzn1.", 20),
 ];
 
-/// Characters that appear inside tokens.
+/// Characters that appear inside prefixed tokens (a `/` ends one: paths hold names).
 fn is_token_char(c: char) -> bool {
-    c.is_ascii_alphanumeric() || matches!(c, '_' | '-' | '.' | '=' | '+' | '/')
+    c.is_ascii_alphanumeric() || matches!(c, '_' | '-' | '.' | '=' | '+')
 }
 
 /// True when a word starts with a known token prefix and continues like a token: enough
@@ -241,8 +277,12 @@ fn has_token_prefix(word: &str) -> bool {
 /// `-`, `_` or `.`, each piece either all digits or at most two digits long among letters
 /// (`learn-1.5.2`, `cache_2024_models`).
 fn is_plain_words(text: &str) -> bool {
-    text.split(['-', '_', '.'])
-        .all(|p| p.chars().all(|c| c.is_ascii_digit()) || p.chars().all(|c| c.is_ascii_lowercase()))
+    let mut words = false;
+    text.split(['-', '_', '.']).all(|p| {
+        let word = !p.is_empty() && p.chars().all(|c| c.is_ascii_lowercase());
+        words |= word;
+        word || p.chars().all(|c| c.is_ascii_digit())
+    }) && words
 }
 
 /// True for a Mailchimp-style key (32 hex digits, `-us`, a data-centre number). Shape as the
@@ -433,8 +473,26 @@ fn token_shape(word: &str, generic_min: usize) -> bool {
             return true;
         }
     }
-    word.split(|c: char| !c.is_ascii_alphanumeric())
+    if word
+        .split(|c: char| !c.is_ascii_alphanumeric())
         .any(|run| is_generated_run(run, generic_min))
+    {
+        return true;
+    }
+    // base64url runs (`-` and `_` inside, as in bot tokens): judged with the separators
+    // taken out, when one of their pieces is itself mixed (`NZty1`), so that words joined by
+    // `_` (`hf_cache_2024`) and UUIDs (hex pieces) stay words.
+    word.split(|c: char| !(c.is_ascii_alphanumeric() || c == '_' || c == '-'))
+        .filter(|run| run.contains(['_', '-']))
+        .any(|run| {
+            let mixed = run.split(['_', '-']).any(|piece| {
+                word_pieces(piece) >= 3 && !piece.chars().all(|c| c.is_ascii_hexdigit())
+            });
+            mixed && {
+                let joined: String = run.chars().filter(char::is_ascii_alphanumeric).collect();
+                is_generated_run(&joined, generic_min)
+            }
+        })
 }
 
 // ------------------------------------------------------------------------------------------
@@ -706,10 +764,15 @@ pub fn scrub_url(url: &str) -> String {
     out
 }
 
-/// Where a URL inside a text ends: at whitespace, a quote, a backtick or an angle bracket.
+/// Where a URL inside a text ends: at whitespace, less the quotes, brackets and punctuation
+/// that close the text around it (`` `https://host/x`, `` keeps its backtick and comma
+/// outside). A quote or bracket inside stays part of it, so that a password with one in it
+/// is still found before its `@`.
 fn url_end(text: &str) -> usize {
-    text.find(|c: char| c.is_whitespace() || matches!(c, '"' | '\'' | '`' | '<' | '>'))
-        .unwrap_or(text.len())
+    let end = text.find(char::is_whitespace).unwrap_or(text.len());
+    let url = &text[..end];
+    url.trim_end_matches(['"', '\'', '`', '>', ')', ']', ',', ';', '.'])
+        .len()
 }
 
 /// Every URL in a text scrubbed by its structure; `found` is set when a credential went.
@@ -754,6 +817,28 @@ pub fn has_url_credentials(text: &str) -> bool {
 /// RFC 6750 for `Bearer`) and netrc's `password` (GNU inetutils manual).
 const CREDENTIAL_BEFORE: &[&str] = &["bearer", "basic", "password", "passwd", "digest"];
 
+/// Marks of a private key outside a `-----BEGIN` block: a header written without its dashes
+/// (`BEGIN RSA PRIVATE KEY`) and PuTTY's key file header (PuTTY user manual, appendix C).
+const KEY_MARKS: &[&str] = &["PRIVATE KEY", "PuTTY-User-Key-File-"];
+
+/// True when a `-----BEGIN …-----` line opens a key (any label with `KEY` in it but a public
+/// key), per RFC 7468's labels.
+fn opens_key_block(text: &str) -> bool {
+    let mut from = 0;
+    while let Some(rel) = text[from..].find("-----BEGIN") {
+        let start = from + rel + "-----BEGIN".len();
+        let label_end = text[start..]
+            .find("-----")
+            .map_or(text.len(), |e| start + e);
+        let label = &text[start..label_end];
+        if label.contains("KEY") && !label.contains("PUBLIC") {
+            return true;
+        }
+        from = start;
+    }
+    false
+}
+
 /// Replaces every private-key block (`-----BEGIN … PRIVATE KEY-----` … `-----END …-----`,
 /// RFC 7468 textual encoding; an unclosed block runs to the end).
 fn scrub_key_blocks(text: &str, found: &mut bool) -> String {
@@ -771,6 +856,10 @@ fn scrub_key_blocks(text: &str, found: &mut bool) -> String {
         *found = true;
         text.replace_range(start..end, "[redacted key block]");
         from = start + "[redacted key block]".len();
+    }
+    if KEY_MARKS.iter().any(|m| text.contains(m)) {
+        *found = true;
+        return "[redacted key block]".to_string();
     }
     text
 }
@@ -825,6 +914,7 @@ pub fn scrub_text(text: &str) -> (String, bool) {
     let mut out = String::with_capacity(text.len());
     // Walk the words (whitespace-separated), keeping the separators as they are.
     let mut redact_next = false;
+    let mut key_seen = false;
     let mut prev_word = String::new();
     let mut rest = text.as_str();
     while !rest.is_empty() {
@@ -846,6 +936,16 @@ pub fn scrub_text(text: &str) -> (String, bool) {
             })
             .to_ascii_lowercase();
         let scheme = matches!(bare.as_str(), "bearer" | "basic" | "token" | "digest");
+        // `key : value`, `key => value`: separators between a key and its value.
+        let separator =
+            !bare.is_empty() && bare.chars().all(|c| matches!(c, ':' | '=' | '>' | '-'));
+        if separator && (redact_next || key_seen) {
+            out.push_str(word);
+            redact_next = true;
+            key_seen = false;
+            continue;
+        }
+        let key_before = std::mem::take(&mut key_seen);
         if redact_next && !bare.is_empty() && !word.starts_with(REDACTED) && !scheme {
             found = true;
             redact_next = false;
@@ -861,6 +961,22 @@ pub fn scrub_text(text: &str) -> (String, bool) {
             redact_next = true;
             prev_word = bare;
             continue;
+        }
+        if key_before && word.starts_with(['"', '\'']) {
+            // `"api_token"  "value"`: a key and its quoted value with only space between.
+            found = true;
+            out.push_str(REDACTED);
+            prev_word = bare;
+            continue;
+        }
+        if !bare.is_empty()
+            && bare
+                .chars()
+                .all(|c| c.is_ascii_alphanumeric() || matches!(c, '_' | '-' | '.'))
+            && is_secret_name(&bare)
+        {
+            // A key alone; its value follows a separator word.
+            key_seen = true;
         }
         if let Some((key, value)) = key_of(word) {
             if is_secret_name(key) {
@@ -973,8 +1089,8 @@ fn is_literal_value(value: &str) -> bool {
 /// `"password": "x"`, `DD_API_KEY=0123…`), or a token by its shape (a known prefix, or a
 /// generated-looking run of at least 32 characters, so that short run ids stay).
 pub fn code_line_secret(line: &str) -> bool {
-    if line.contains("PRIVATE KEY")
-        || line.contains("-----BEGIN OPENSSH")
+    if KEY_MARKS.iter().any(|m| line.contains(m))
+        || opens_key_block(line)
         || has_url_credentials(line)
     {
         return true;
@@ -1009,8 +1125,7 @@ pub fn code_line_secret(line: &str) -> bool {
     while let Some(pos) = rest.find(['=', ':']) {
         let (before, after) = (&rest[..pos], &rest[pos + 1..]);
         let key: String = before
-            .trim_end()
-            .trim_end_matches(['"', '\''])
+            .trim_end_matches(['"', '\'', ']', ')', ' ', '\t', ':', '='])
             .chars()
             .rev()
             .take_while(|c| c.is_ascii_alphanumeric() || matches!(c, '_' | '-' | '.'))
@@ -1018,7 +1133,7 @@ pub fn code_line_secret(line: &str) -> bool {
             .into_iter()
             .rev()
             .collect();
-        let after = after.strip_prefix('=').unwrap_or(after);
+        let after = after.trim_start_matches([':', '=', '>']);
         if !key.is_empty() && is_secret_name(&key) {
             let value: String = after
                 .trim_start()
@@ -1046,6 +1161,17 @@ pub fn code_line_secret(line: &str) -> bool {
             }
         }
         rest = &rest[pos + 1..];
+    }
+    // `"api_token"  "value"`: a quoted credential-named key and a quoted literal after it.
+    let words: Vec<&str> = line.split_whitespace().collect();
+    if words.windows(2).any(|w| {
+        let key = w[0].trim_matches(['"', '\'', '[', ']', '(', ')']);
+        (w[0].starts_with(['"', '\'', '[']) || w[0].ends_with(['"', '\'', ']']))
+            && is_secret_name(key)
+            && w[1].starts_with(['"', '\''])
+            && is_literal_value(w[1])
+    }) {
+        return true;
     }
     line.split(|c: char| c.is_whitespace() || matches!(c, '"' | '\'' | '`' | ',' | ';' | '(' | ')'))
         .any(|w| token_shape(w, 32))
@@ -1522,6 +1648,7 @@ mod tests {
                 "--xla_gpu_deterministic_ops=true --xla_dump_to=/tmp/x",
             ),
             ("PYTHONPATH", "/opt/sk-learn-extensions/lib:/srv/code"),
+            ("PYTHONPATH", "/opt/sk-learn-extensions-1.5/lib"),
             ("TORCH_HOME", "/mnt/hf_cache_2024/torch"),
             ("TF_REGION", "eu-west-1"),
             ("KMP_AFFINITY", "granularity=fine,compact,1,0"),

@@ -164,7 +164,8 @@ pub fn collect(
         digests.save(keep);
         info.dirty = !paths.is_empty();
         info.dirty_digest = digest;
-        info.changed_paths = paths;
+        // The digest covers the real names; the names shown lose any token-like segment.
+        info.changed_paths = paths.iter().map(|p| crate::redact::scrub_path(p)).collect();
     }
 
     if !private {
