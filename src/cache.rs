@@ -13,6 +13,18 @@
 //! other's additions (costing a rehash later) but can never make an entry wrong, since every
 //! entry is re-validated against the file's metadata before use. A cache that cannot be parsed
 //! or comes from another format version is discarded with a warning.
+//!
+//! # Seals
+//!
+//! Every cache file runprint writes ([`write_cache_file`]) starts with a seal line,
+//! `runprint-seal HEX`: an HMAC-SHA256 (RFC 2104) of the file's name (its key: every cache
+//! file is named by the digest of what it is keyed on) and of its content, under a random
+//! 32-byte key kept in the cache folder (`seal-key`, created once, readable by its owner
+//! only). [`read_cache_file`] checks it: a file edited by hand, cut short, or copied from
+//! another machine or folder does not match, is reported as a warning
+//! ([`take_warnings`]) and is treated as absent, so its results are computed again. The seal
+//! is no defence against someone who can read the key: that person could as well replace
+//! the runprint binary.
 
 use std::collections::HashMap;
 use std::path::{Path, PathBuf};
@@ -20,6 +32,131 @@ use std::path::{Path, PathBuf};
 use serde::{Deserialize, Serialize};
 
 use crate::atomic::write_atomic;
+
+/// The seal key's file in a cache folder.
+const SEAL_KEY_FILE: &str = "seal-key";
+/// What a sealed cache file starts with, before the hexadecimal seal and a line feed.
+const SEAL_PREFIX: &[u8] = b"runprint-seal ";
+
+/// Warnings about cache files that did not match their seal, until the stamp collects them.
+static WARNINGS: std::sync::Mutex<Vec<String>> = std::sync::Mutex::new(Vec::new());
+
+/// The warnings about broken cache seals since the last call (the stamp adds them to the
+/// manifest's warnings).
+pub fn take_warnings() -> Vec<String> {
+    WARNINGS
+        .lock()
+        .map(|mut w| std::mem::take(&mut *w))
+        .unwrap_or_default()
+}
+
+/// The seal key of a cache folder, created (32 random bytes, mode 0600, published with a
+/// link so that concurrent stamps agree on one key) when missing. `None` when it cannot be
+/// read or made: caching is then off.
+fn seal_key(dir: &Path) -> Option<[u8; 32]> {
+    let path = dir.join(SEAL_KEY_FILE);
+    for _ in 0..2 {
+        match crate::limits::read_regular_file_with_limit(&path, 64) {
+            Ok(bytes) => return bytes.try_into().ok(),
+            Err(e) if e.kind() == std::io::ErrorKind::NotFound => {
+                let mut key = [0u8; 32];
+                getrandom::fill(&mut key).ok()?;
+                std::fs::create_dir_all(dir).ok()?;
+                // tempfile creates the file readable and writable by its owner only.
+                let mut tmp = tempfile::NamedTempFile::new_in(dir).ok()?;
+                std::io::Write::write_all(&mut tmp, &key).ok()?;
+                match tmp.persist_noclobber(&path) {
+                    Ok(_) => return Some(key),
+                    // Another stamp made it first: read that one.
+                    Err(e) if e.error.kind() == std::io::ErrorKind::AlreadyExists => continue,
+                    Err(_) => return None,
+                }
+            }
+            Err(_) => return None,
+        }
+    }
+    None
+}
+
+/// The seal of a cache file's content under the folder's key, as hex.
+fn seal_of(key: &[u8; 32], name: &str, body: &[u8]) -> hmac::Hmac<sha2::Sha256> {
+    use hmac::Mac;
+    let mut mac = <hmac::Hmac<sha2::Sha256> as Mac>::new_from_slice(key)
+        .expect("HMAC takes a key of any length");
+    mac.update(&(name.len() as u64).to_le_bytes());
+    mac.update(name.as_bytes());
+    mac.update(body);
+    mac
+}
+
+/// Why a cache file gave nothing.
+#[derive(Debug)]
+pub enum CacheRead {
+    /// There is none (or no seal key can be had): compute anew, quietly.
+    Missing,
+    /// It could not be read, or did not match its seal (a warning was recorded).
+    Unusable,
+}
+
+/// Reads a sealed cache file and returns its content after the seal, when the seal matches.
+/// A file that does not match its seal records a warning ([`take_warnings`]).
+pub fn read_cache_file(path: &Path) -> Result<Vec<u8>, CacheRead> {
+    use hmac::Mac;
+    let bytes = match crate::limits::read_regular_file(path) {
+        Ok(b) => b,
+        Err(e) if e.kind() == std::io::ErrorKind::NotFound => return Err(CacheRead::Missing),
+        Err(_) => return Err(CacheRead::Unusable),
+    };
+    let dir = path.parent().ok_or(CacheRead::Missing)?;
+    let name = path.file_name().and_then(|n| n.to_str()).unwrap_or("");
+    let key = seal_key(dir).ok_or(CacheRead::Missing)?;
+    let body_start = bytes.iter().position(|&b| b == b'\n').map(|i| i + 1);
+    let checked = body_start.and_then(|start| {
+        let hex = bytes[..start - 1].strip_prefix(SEAL_PREFIX)?;
+        let tag = decode_hex(hex)?;
+        seal_of(&key, name, &bytes[start..])
+            .verify_slice(&tag)
+            .ok()
+            .map(|()| start)
+    });
+    match checked {
+        Some(start) => Ok(bytes[start..].to_vec()),
+        None => {
+            if let Ok(mut w) = WARNINGS.lock() {
+                w.push(format!(
+                    "cache file `{}` does not match its seal (edited, cut short or copied from elsewhere); not used, its results were computed again",
+                    path.display()
+                ));
+            }
+            Err(CacheRead::Unusable)
+        }
+    }
+}
+
+/// Bytes from hexadecimal digits, or `None`.
+fn decode_hex(hex: &[u8]) -> Option<Vec<u8>> {
+    if hex.len() % 2 != 0 {
+        return None;
+    }
+    hex.chunks(2)
+        .map(|pair| u8::from_str_radix(std::str::from_utf8(pair).ok()?, 16).ok())
+        .collect()
+}
+
+/// The sealed form of a cache file's content (`None` when no seal key can be had).
+fn sealed(path: &Path, body: &[u8]) -> Option<Vec<u8>> {
+    use hmac::Mac;
+    let dir = path.parent()?;
+    let name = path.file_name()?.to_str()?;
+    let key = seal_key(dir)?;
+    let tag = seal_of(&key, name, body).finalize().into_bytes();
+    let mut out = Vec::with_capacity(body.len() + 80);
+    out.extend_from_slice(SEAL_PREFIX);
+    out.extend_from_slice(crate::manifest::hex(&tag).as_bytes());
+    out.push(b'\n');
+    out.extend_from_slice(body);
+    Some(out)
+}
 
 /// Cache format version; a file with another version is discarded.
 pub const CACHE_VERSION: u32 = 1;
@@ -50,7 +187,10 @@ pub fn write_cache_file(path: &Path, bytes: &[u8]) {
     if std::fs::create_dir_all(dir).is_err() {
         return;
     }
-    let _ = write_atomic(path, bytes);
+    let Some(sealed) = sealed(path, bytes) else {
+        return;
+    };
+    let _ = write_atomic(path, &sealed);
     prune_unused(dir, std::time::SystemTime::now());
 }
 
@@ -194,7 +334,7 @@ impl DigestCache {
             cache.dirty = true;
             return cache;
         }
-        match crate::limits::read_regular_file(&path) {
+        match read_cache_file(&path) {
             Ok(bytes) => match serde_json::from_slice::<CacheFile>(&bytes) {
                 Ok(f) if f.kind == CACHE_KIND && f.version == CACHE_VERSION => {
                     cache.entries = f.entries;
@@ -215,11 +355,9 @@ impl DigestCache {
                     cache.dirty = true;
                 }
             },
-            Err(e) if e.kind() == std::io::ErrorKind::NotFound => {}
-            Err(e) => warnings.push(format!(
-                "digest cache `{}` cannot be read ({e}); not used",
-                path.display()
-            )),
+            Err(CacheRead::Missing) => {}
+            // A broken seal has recorded its own warning.
+            Err(CacheRead::Unusable) => cache.dirty = true,
         }
         cache
     }
@@ -261,6 +399,7 @@ impl DigestCache {
             entries: self.entries,
         };
         let bytes = serde_json::to_vec(&file).map_err(|e| e.to_string())?;
+        let bytes = sealed(&path, &bytes).ok_or("no seal key can be made in the cache folder")?;
         write_atomic(&path, &bytes).map_err(|e| e.to_string())
     }
 }
@@ -311,18 +450,56 @@ mod tests {
     #[test]
     fn corrupt_and_foreign_caches_are_discarded_with_a_warning() {
         let dir = tempfile::tempdir().unwrap();
-        std::fs::write(dir.path().join(CACHE_FILE), b"{not json").unwrap();
+        let file = dir.path().join(CACHE_FILE);
+        std::fs::write(&file, sealed(&file, b"{not json").unwrap()).unwrap();
         let mut w = Vec::new();
         let c = DigestCache::open(dir.path(), false, &mut w);
         assert!(c.entries.is_empty());
         assert!(w[0].contains("corrupt"), "{w:?}");
-        std::fs::write(
-            dir.path().join(CACHE_FILE),
-            br#"{"kind":"runprint-digest-cache","version":99,"entries":{}}"#,
-        )
-        .unwrap();
+        let foreign = br#"{"kind":"runprint-digest-cache","version":99,"entries":{}}"#;
+        std::fs::write(&file, sealed(&file, foreign).unwrap()).unwrap();
         let mut w = Vec::new();
         DigestCache::open(dir.path(), false, &mut w);
         assert!(w[0].contains("version 99"), "{w:?}");
+    }
+
+    #[test]
+    fn an_edited_cache_file_breaks_its_seal_and_is_recomputed() {
+        let dir = tempfile::tempdir().unwrap();
+        let data = dir.path().join("rows.csv");
+        std::fs::write(&data, b"a\n1\n").unwrap();
+        let meta = std::fs::metadata(&data).unwrap();
+        let stamp = FileStamp::of(&meta);
+        let real = "0".repeat(64);
+        let mut c = DigestCache::open(dir.path(), false, &mut Vec::new());
+        c.put(&data, stamp, real.clone(), i128::MAX / 2);
+        c.save().unwrap();
+        // The key file is the owner's only (common practice for key material).
+        let mode = std::os::unix::fs::PermissionsExt::mode(
+            &std::fs::metadata(dir.path().join(SEAL_KEY_FILE))
+                .unwrap()
+                .permissions(),
+        );
+        assert_eq!(mode & 0o077, 0, "{mode:o}");
+        let c = DigestCache::open(dir.path(), false, &mut Vec::new());
+        assert_eq!(c.get(&data, &stamp), Some(real.clone()));
+        // A file copied from another cache folder (another key) is not believed either.
+        let other = tempfile::tempdir().unwrap();
+        std::fs::copy(dir.path().join(CACHE_FILE), other.path().join(CACHE_FILE)).unwrap();
+        let c = DigestCache::open(other.path(), false, &mut Vec::new());
+        assert!(c.entries.is_empty());
+        // Edit the digest in the file, as a user or another program might.
+        let file = dir.path().join(CACHE_FILE);
+        let text = String::from_utf8(std::fs::read(&file).unwrap()).unwrap();
+        std::fs::write(&file, text.replace(&real, &"1".repeat(64))).unwrap();
+        let c = DigestCache::open(dir.path(), false, &mut Vec::new());
+        assert_eq!(
+            c.get(&data, &stamp),
+            None,
+            "the edited entry is not believed"
+        );
+        assert!(take_warnings()
+            .iter()
+            .any(|w| w.contains("does not match its seal") && w.contains(CACHE_FILE)));
     }
 }

@@ -66,9 +66,10 @@ fn a_warm_stamp_reuses_file_digests_only_while_their_metadata_is_unchanged() {
     assert_eq!(stamp(repo.path(), &cache, &[]).as_deref(), Some(&*want));
     assert_eq!(stamp(repo.path(), &cache, &[]).as_deref(), Some(&*want));
 
-    // Replace one stored digest: the warm stamp's result changes, so the digests are reused.
+    // Replace one stored digest and seal the file again as runprint would: the warm stamp's
+    // result changes, so the digests are reused.
     let file = cache_file(&cache, "worktree-");
-    let text = std::fs::read_to_string(&file).unwrap();
+    let text = common::unsealed(&file);
     let out = Command::new("sha256sum")
         .arg("train.py")
         .current_dir(repo.path())
@@ -77,8 +78,18 @@ fn a_warm_stamp_reuses_file_digests_only_while_their_metadata_is_unchanged() {
     let real = String::from_utf8(out.stdout).unwrap();
     let real = real.split_whitespace().next().unwrap().to_string();
     assert!(text.contains(&real));
-    std::fs::write(&file, text.replace(&real, &"0".repeat(64))).unwrap();
+    common::reseal(&file, text.replace(&real, &"0".repeat(64)).as_bytes());
     assert_ne!(stamp(repo.path(), &cache, &[]).as_deref(), Some(&*want));
+    // The same edit without a new seal is not believed.
+    let sealed = std::fs::read_to_string(&file).unwrap();
+    let (_, body) = sealed.split_once('\n').unwrap();
+    let seal = sealed.lines().next().unwrap();
+    std::fs::write(
+        &file,
+        format!("{seal}\n{}", body.replace(&"0".repeat(64), &"1".repeat(64))),
+    )
+    .unwrap();
+    assert_eq!(stamp(repo.path(), &cache, &[]).as_deref(), Some(&*want));
     // --rehash reads every file again.
     assert_eq!(
         stamp(repo.path(), &cache, &["--rehash"]).as_deref(),
@@ -86,7 +97,7 @@ fn a_warm_stamp_reuses_file_digests_only_while_their_metadata_is_unchanged() {
     );
 
     // An edit of the same size: the times and content change, and the digest follows.
-    std::fs::write(&file, text.replace(&real, &"0".repeat(64))).unwrap();
+    common::reseal(&file, text.replace(&real, &"0".repeat(64)).as_bytes());
     write_files(repo.path(), &[("train.py", "lr = 0.3\n")]);
     let want = expected(repo.path());
     assert_eq!(stamp(repo.path(), &cache, &[]).as_deref(), Some(&*want));

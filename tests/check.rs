@@ -72,7 +72,16 @@ fn current_environment_check_uses_diff_exit_codes_and_saves_atomically() {
         repo.path(),
         &[("OMP_NUM_THREADS", "4")],
     );
-    assert_eq!((code, report.verdict.as_str()), (0, "none"));
+    assert_eq!(
+        (code, report.verdict.as_str()),
+        (0, "none"),
+        "{:?}",
+        report
+            .changes
+            .iter()
+            .map(|c| format!("{} {}", c.subject, c.reason))
+            .collect::<Vec<_>>()
+    );
 
     let saved = dir.path().join("now.toml");
     let (code, report) = check_json(

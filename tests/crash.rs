@@ -192,10 +192,19 @@ fn concurrent_stamps_into_one_folder_lose_and_corrupt_nothing() {
             assert!(!m.is_modified());
             let digests: Vec<&str> = m.content.data.iter().map(|d| d.sha256.as_str()).collect();
             assert_eq!(digests, expected, "round {round}, stamp {i}");
+            // Concurrent first stamps agree on one seal key: no cache file is ever taken
+            // for an edited one.
+            assert!(
+                !m.run.warnings.iter().any(|w| w.contains("seal")),
+                "{:?}",
+                m.run.warnings
+            );
         }
-        // The shared cache is always one valid JSON document.
+        // The shared cache is always a seal line and one valid JSON document.
         let text = std::fs::read_to_string(cache.join("digests-v1.json")).unwrap();
-        serde_json::from_str::<serde_json::Value>(&text).unwrap();
+        let (seal, body) = text.split_once('\n').unwrap();
+        assert!(seal.starts_with("runprint-seal "));
+        serde_json::from_str::<serde_json::Value>(body).unwrap();
     };
 
     // Round 0 fills the cache; the files must be older than the racy window to be cached.

@@ -121,7 +121,10 @@ fn the_cache_is_used_and_rehash_ignores_it() {
         "version": 1,
         "entries": { key.to_str().unwrap(): { "stamp": stamp, "sha256": "feedface" } }
     });
-    std::fs::write(cache.path().join("digests-v1.json"), body.to_string()).unwrap();
+    common::reseal(
+        &cache.path().join("digests-v1.json"),
+        body.to_string().as_bytes(),
+    );
     let out = tempfile::tempdir().unwrap();
     let args = [
         "--data",
@@ -193,7 +196,10 @@ fn a_corrupt_cache_is_discarded_with_a_warning() {
         ],
     );
     assert!(
-        m.run.warnings.iter().any(|w| w.contains("corrupt")),
+        m.run
+            .warnings
+            .iter()
+            .any(|w| w.contains("does not match its seal")),
         "{:?}",
         m.run.warnings
     );

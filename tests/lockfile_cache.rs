@@ -126,7 +126,7 @@ fn the_stored_result_is_what_a_warm_stamp_records_until_the_lockfile_changes() {
     // byte range): a warm stamp must report the edit, which shows the result is taken from
     // the cache rather than only written to it.
     let file = cache_file(&cache, "lockfiles-");
-    let text = std::fs::read_to_string(&file).unwrap();
+    let text = common::unsealed(&file);
     let (header, blobs) = text.split_once('\n').unwrap();
     assert!(blobs.contains("\"1.26.4\""));
     let edited = blobs.replace("\"1.26.4\"", "\"9.99.9\"");
@@ -137,13 +137,13 @@ fn the_stored_result_is_what_a_warm_stamp_records_until_the_lockfile_changes() {
     assert!(versions(&read_over, "trainer/requirements.txt")
         .contains(&("numpy".to_string(), "1.26.4".to_string())));
     // Edited with its checksum (the file's own layout: a JSON header line naming the SHA-256
-    // of the stored lockfiles that follow it).
-    let text = std::fs::read_to_string(&file).unwrap();
+    // of the stored lockfiles that follow it) and sealed again as runprint seals.
+    let text = common::unsealed(&file);
     let (header, blobs) = text.split_once('\n').unwrap();
     let edited = blobs.replace("\"1.26.4\"", "\"9.99.9\"");
     let sha = |b: &str| runprint::manifest::hex(&Sha256::digest(b.as_bytes()));
     let header = header.replace(&sha(blobs), &sha(&edited));
-    std::fs::write(&file, format!("{header}\n{edited}")).unwrap();
+    common::reseal(&file, format!("{header}\n{edited}").as_bytes());
     let (warm, _) = stamp(repo.path(), &cache, &[]);
     assert!(versions(&warm, "trainer/requirements.txt")
         .contains(&("numpy".to_string(), "9.99.9".to_string())));
@@ -158,12 +158,21 @@ fn the_stored_result_is_what_a_warm_stamp_records_until_the_lockfile_changes() {
     let (changed, _) = stamp(repo.path(), &cache, &[]);
     assert!(versions(&changed, "trainer/requirements.txt")
         .contains(&("numpy".to_string(), "1.26.5".to_string())));
-    // A damaged cache file is read over, never trusted or reported.
+    // A damaged cache file is read over, never trusted, and reported (its seal breaks).
     std::fs::write(&file, "{\"kind\": ").unwrap();
     let (after, used) = stamp(repo.path(), &cache, &[]);
     assert_eq!(used.0, 0);
     assert_eq!(lockfiles(&after), lockfiles(&changed));
-    assert!(after.run.warnings.is_empty(), "{:?}", after.run.warnings);
+    assert!(
+        after
+            .run
+            .warnings
+            .iter()
+            .all(|w| w.contains("does not match its seal")),
+        "{:?}",
+        after.run.warnings
+    );
+    assert_eq!(after.run.warnings.len(), 1, "{:?}", after.run.warnings);
 }
 
 #[test]

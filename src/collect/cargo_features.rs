@@ -13,7 +13,6 @@ use std::process::Command;
 use serde::{Deserialize, Serialize};
 use sha2::{Digest, Sha256};
 
-use crate::atomic::write_atomic;
 use crate::lockfile::cargo::{feature_map, FeatureMap};
 use crate::manifest::hex;
 
@@ -41,6 +40,7 @@ pub fn features(
     lock_bytes: &[u8],
     manifests: &[PathBuf],
     cache_dir: Option<&Path>,
+    rehash: bool,
 ) -> Result<Option<FeatureMap>, String> {
     let dir = lock.parent().unwrap_or(Path::new("."));
     let manifest = dir.join("Cargo.toml");
@@ -57,7 +57,8 @@ pub fn features(
             version: 1,
             entries: BTreeMap::new(),
         });
-    if let Some((_, rows)) = cache.entries.get(&key) {
+    // `--rehash` computes anew (and keeps the new result).
+    if let Some((_, rows)) = cache.entries.get(&key).filter(|_| !rehash) {
         return Ok(Some(
             rows.iter()
                 .map(|(n, v, s, f)| ((n.clone(), v.clone(), s.clone()), f.clone()))
@@ -114,18 +115,15 @@ pub fn features(
             }
         }
         // A cache that cannot be written only costs time on the next stamp.
-        if let Some(parent) = path.parent() {
-            let _ = std::fs::create_dir_all(parent);
-        }
         if let Ok(bytes) = serde_json::to_vec(&cache) {
-            let _ = write_atomic(&path, &bytes);
+            crate::cache::write_cache_file(&path, &bytes);
         }
     }
     Ok(Some(map))
 }
 
 fn load(path: &Path) -> Option<CacheFile> {
-    let bytes = crate::limits::read_regular_file(path).ok()?;
+    let bytes = crate::cache::read_cache_file(path).ok()?;
     serde_json::from_slice::<CacheFile>(&bytes)
         .ok()
         .filter(|c| c.kind == CACHE_KIND && c.version == 1)

@@ -63,7 +63,7 @@ impl ChangeCache {
         let old = if rehash {
             HashMap::new()
         } else {
-            crate::limits::read_regular_file(&path)
+            crate::cache::read_cache_file(&path)
                 .ok()
                 .and_then(|b| serde_json::from_slice::<CacheFile>(&b).ok())
                 .filter(|f| f.kind == CACHE_KIND && f.version == CACHE_VERSION)

@@ -198,12 +198,20 @@ pub struct LockfileCache {
     reused: usize,
     read: usize,
     listing_reused: bool,
+    /// `--rehash`: stored results are not used (this stamp's are saved).
+    rehash: bool,
 }
 
 impl LockfileCache {
     /// No cache: everything is read and nothing saved.
     pub fn disabled() -> LockfileCache {
         LockfileCache::default()
+    }
+
+    /// True when opened for `--rehash`: every cache consulted while reading the lockfiles
+    /// (Cargo's enabled features too) must compute anew.
+    pub fn rehash(&self) -> bool {
+        self.rehash
     }
 
     /// The cache for the repository at `root` in `dir` (`None`: no caching). With `rehash`,
@@ -219,9 +227,10 @@ impl LockfileCache {
         };
         if rehash {
             cache.changed = true;
+            cache.rehash = true;
             return cache;
         }
-        let loaded = crate::limits::read_regular_file(&path)
+        let loaded = crate::cache::read_cache_file(&path)
             .ok()
             .and_then(|bytes| CacheFile::decode(&bytes))
             .filter(|(f, _)| {

@@ -106,6 +106,8 @@ struct Context<'a> {
     confine: crate::limits::Confinement,
     cargo_manifests: Vec<PathBuf>,
     cache_dir: Option<&'a Path>,
+    /// `--rehash`: no cached result is used.
+    rehash: bool,
 }
 
 impl Context<'_> {
@@ -205,6 +207,7 @@ pub fn collect_cached(
         confine: crate::limits::Confinement::new(root),
         cargo_manifests,
         cache_dir,
+        rehash: cache.rehash(),
     };
     // Results from the cache first, on this thread: handing a few metadata checks to the
     // thread pool costs more than doing them, and the pool may be busy. The files left are
@@ -319,7 +322,8 @@ fn read_one(
         let beside = abs.with_file_name("Cargo.toml");
         inputs.paths.push(beside.clone());
         inputs.manifests = ctx.manifests_for(abs);
-        match cargo_features::features(abs, &bytes, &ctx.cargo_manifests, ctx.cache_dir) {
+        match cargo_features::features(abs, &bytes, &ctx.cargo_manifests, ctx.cache_dir, ctx.rehash)
+        {
             Ok(Some(map)) => cargo::apply_features(&mut parsed.packages, &map),
             // No `Cargo.toml`: nothing to ask. With one, `cargo` was missing: it may be
             // installed by the next stamp.

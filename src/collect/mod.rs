@@ -544,7 +544,12 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
         } else {
             system::hostname()
         },
-        warnings: warnings.iter().map(|w| scrub_secrets(w)).collect(),
+        warnings: warnings
+            .iter()
+            .cloned()
+            .chain(crate::cache::take_warnings())
+            .map(|w| scrub_secrets(&w))
+            .collect(),
     };
     let manifest = Manifest::new_prepared(run, content, prepared.as_ref());
     (manifest, prepared)

@@ -125,7 +125,7 @@ struct CacheFile {
 /// still looks the same.
 pub fn load(dir: &Path, key: &Key) -> Option<Scanned> {
     let path = dir.join(key.file_name());
-    let bytes = crate::limits::read_regular_file(&path).ok()?;
+    let bytes = crate::cache::read_cache_file(&path).ok()?;
     let file: CacheFile = serde_json::from_slice(&bytes).ok()?;
     let current = file.kind == CACHE_KIND
         && file.version == CACHE_VERSION

@@ -60,6 +60,12 @@ pub fn runprint() -> Command {
             cmd.env(keep, v);
         }
     }
+    // The default cache folder is one per test binary run, never the user's: results cached
+    // by other runs (another build, another test's environment) cannot leak into a test.
+    cmd.env(
+        "XDG_CACHE_HOME",
+        std::env::temp_dir().join(format!("runprint-test-cache-{}", std::process::id())),
+    );
     cmd
 }
 
@@ -197,4 +203,44 @@ pub fn cache_file(cache: &Path, prefix: &str) -> PathBuf {
         .map(|e| e.unwrap().path())
         .find(|p| p.file_name().unwrap().to_string_lossy().starts_with(prefix))
         .unwrap_or_else(|| panic!("no {prefix}* file in {}", cache.display()))
+}
+
+/// Rewrites a cache file with `body` and a seal made by Python's `hmac` module (RFC 2104
+/// HMAC-SHA256, the reference for runprint's seal: the name's length as 8 little-endian
+/// bytes, the file name, then the body, under the folder's `seal-key`, made when missing as
+/// runprint makes it: 32 random bytes, owner-only). Lets a test plant a
+/// cache entry that runprint must believe, to show that it is reused.
+#[allow(dead_code)]
+pub fn reseal(file: &Path, body: &[u8]) {
+    let script = r#"
+import hmac, hashlib, os, struct, sys
+path = sys.argv[1]
+body = sys.stdin.buffer.read()
+key_path = os.path.join(os.path.dirname(path), "seal-key")
+if not os.path.exists(key_path):
+    fd = os.open(key_path, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o600)
+    os.write(fd, os.urandom(32))
+    os.close(fd)
+key = open(key_path, "rb").read()
+name = os.path.basename(path).encode()
+tag = hmac.new(key, struct.pack("<Q", len(name)) + name + body, hashlib.sha256).hexdigest()
+open(path, "wb").write(b"runprint-seal " + tag.encode() + b"\n" + body)
+"#;
+    let mut child = Command::new("python3")
+        .args(["-c", script])
+        .arg(file)
+        .stdin(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    std::io::Write::write_all(child.stdin.as_mut().unwrap(), body).unwrap();
+    assert!(child.wait().unwrap().success());
+}
+
+/// The content of a sealed cache file after its seal line.
+#[allow(dead_code)]
+pub fn unsealed(file: &Path) -> String {
+    let text = std::fs::read_to_string(file).unwrap();
+    let (seal, body) = text.split_once('\n').unwrap();
+    assert!(seal.starts_with("runprint-seal "), "{seal}");
+    body.to_string()
 }
