@@ -54,6 +54,24 @@ pub fn take_warnings() -> Vec<String> {
 /// link so that concurrent stamps agree on one key) when missing. `None` when it cannot be
 /// read or made: caching is then off.
 fn seal_key(dir: &Path) -> Option<[u8; 32]> {
+    // Read once per folder and process: a stamp opens several cache files in one folder.
+    static KEYS: std::sync::Mutex<Vec<(PathBuf, [u8; 32])>> = std::sync::Mutex::new(Vec::new());
+    if let Some(key) = KEYS
+        .lock()
+        .ok()
+        .and_then(|keys| keys.iter().find(|(d, _)| d == dir).map(|(_, k)| *k))
+    {
+        return Some(key);
+    }
+    let key = read_or_make_seal_key(dir)?;
+    if let Ok(mut keys) = KEYS.lock() {
+        keys.push((dir.to_path_buf(), key));
+    }
+    Some(key)
+}
+
+/// [`seal_key`] without the memory.
+fn read_or_make_seal_key(dir: &Path) -> Option<[u8; 32]> {
     let path = dir.join(SEAL_KEY_FILE);
     for _ in 0..2 {
         match crate::limits::read_regular_file_with_limit(&path, 64) {

@@ -100,7 +100,6 @@ pub fn is_secret_name(name: &str) -> bool {
             || SECRET_PARTS.contains(&p.as_str())
             || (p.len() > 5 && p.ends_with("TOKEN"))
             || (p.len() > 4 && (p.ends_with("PASS") || p.ends_with("APIPW")))
-            || (p.len() > 5 && p.ends_with("APIKEY"))
     }) || parts.last().is_some_and(|p| p == "KEY" || p == "PW")
 }
 
@@ -422,6 +421,20 @@ fn is_generated_run(run: &str, min: usize) -> bool {
         && entropy(run) >= 0.82 * (run.len() as f64).log2().min(5.0)
 }
 
+/// Every place a token can start in a word: its start and after each separator or quote.
+fn token_starts(word: &str) -> impl Iterator<Item = usize> + '_ {
+    std::iter::once(0).chain(
+        word.char_indices()
+            .filter(|(_, c)| {
+                matches!(
+                    c,
+                    ':' | '/' | '@' | '=' | ',' | ';' | '#' | '?' | '&' | '"' | '\''
+                )
+            })
+            .map(|(i, c)| i + c.len_utf8()),
+    )
+}
+
 /// True when a word (one whitespace-free piece of text) is, or holds, a token or a key by its
 /// shape: a known prefix, a Mailchimp key, an AWS secret key, or a generated-looking run
 /// (digests excepted, see [`is_digest`]).
@@ -444,12 +457,7 @@ fn token_shape(word: &str, generic_min: usize) -> bool {
         return true;
     }
     // Every place a token can start: the word itself and after each separator.
-    let starts = std::iter::once(0).chain(
-        word.char_indices()
-            .filter(|(_, c)| matches!(c, ':' | '/' | '@' | '=' | ',' | ';' | '#' | '?' | '&'))
-            .map(|(i, c)| i + c.len_utf8()),
-    );
-    for start in starts {
+    for start in token_starts(word) {
         let piece = &word[start..];
         if has_token_prefix(piece)
             || is_aws_secret(piece.split(['&', ';', ',']).next().unwrap_or(""))
@@ -1249,18 +1257,7 @@ pub fn bytes_hold_secret(bytes: &[u8]) -> bool {
 
 /// A known token prefix at the start of a word or after a separator.
 fn has_token_prefix_anywhere(word: &str) -> bool {
-    std::iter::once(0)
-        .chain(
-            word.char_indices()
-                .filter(|(_, c)| {
-                    matches!(
-                        c,
-                        ':' | '/' | '@' | '=' | ',' | ';' | '#' | '?' | '&' | '"' | '\''
-                    )
-                })
-                .map(|(i, c)| i + c.len_utf8()),
-        )
-        .any(|i| has_token_prefix(&word[i..]))
+    token_starts(word).any(|i| has_token_prefix(&word[i..]))
 }
 
 // ------------------------------------------------------------------------------------------

@@ -11,6 +11,18 @@ use runprint::manifest::Manifest;
 
 use common::stamp_quiet as stamp_env;
 
+/// True when `cargo` runs; else the test says it is skipped.
+fn cargo_on_path() -> bool {
+    let ok = std::process::Command::new("cargo")
+        .arg("-V")
+        .output()
+        .is_ok();
+    if !ok {
+        eprintln!("skipped: cargo is not on PATH");
+    }
+    ok
+}
+
 #[test]
 fn a_committed_link_out_of_the_repository_is_never_read() {
     // A `.netrc` line (netrc format, GNU inetutils manual) beside the repository.
@@ -64,12 +76,7 @@ fn a_fifo_lockfile_is_refused_without_waiting() {
 
 #[test]
 fn cargo_metadata_never_runs_the_repositorys_wrapper_or_compiler() {
-    if std::process::Command::new("cargo")
-        .arg("-V")
-        .output()
-        .is_err()
-    {
-        eprintln!("skipped: cargo is not on PATH");
+    if !cargo_on_path() {
         return;
     }
     let marker_dir = tempfile::tempdir().unwrap();
@@ -200,12 +207,7 @@ fn terminal_escapes_in_a_lockfile_never_reach_the_report() {
 /// cache, Cargo's enabled features included.
 #[test]
 fn caches_cannot_lie_and_rehash_bypasses_them_all() {
-    if std::process::Command::new("cargo")
-        .arg("-V")
-        .output()
-        .is_err()
-    {
-        eprintln!("skipped: cargo is not on PATH");
+    if !cargo_on_path() {
         return;
     }
     let repo = repo_with(&[
