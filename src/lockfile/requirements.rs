@@ -99,7 +99,16 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
         if line.starts_with('-') {
             continue;
         }
-        packages.push(requirement(line, path, line_no)?);
+        match requirement(line, path, line_no) {
+            Ok(p) => packages.push(p),
+            // A specifier pip would refuse (two requirements on one line, a stray word) is
+            // that line's problem alone: the file's other pins are kept.
+            Err(e) if e.message.starts_with(BAD_SPECIFIER) => warnings.push(format!(
+                "`{path}`, line {line_no}: {}; not recorded",
+                e.message
+            )),
+            Err(e) => return Err(e),
+        }
     }
     crate::lockfile::python::sort_packages(&mut packages);
     Ok(Parsed {
@@ -293,7 +302,34 @@ fn requirement(line: &str, path: &str, line_no: usize) -> Result<Package, Lockfi
             .ok_or_else(|| err("unclosed `[` in extras".into()))?;
         rest = rest[close + 1..].trim_start();
     }
-    let spec: String = rest.split_whitespace().collect();
+    // Whitespace may stand around operators and commas, never inside a version: two words
+    // that meet letter to letter (`==1.26.4 scipy==1.11.0`, `==1 0`) are refused below.
+    let version_char = |c: char| c.is_ascii_alphanumeric() || matches!(c, '.' | '*' | '+' | '!');
+    let mut spec = String::with_capacity(rest.len());
+    let mut split_word = false;
+    for word in rest.split_whitespace() {
+        if spec.ends_with(version_char) && word.starts_with(version_char) {
+            split_word = true;
+        }
+        spec.push_str(word);
+    }
+    // PEP 508 also allows the specifier list in parentheses: `name (>=1.0,<2)`.
+    if let Some(inner) = spec.strip_prefix('(').and_then(|s| s.strip_suffix(')')) {
+        spec = inner.to_string();
+    }
+    if spec == "==" {
+        return Err(err(format!("`{name}==` has no version")));
+    }
+    if split_word || !is_specifier_list(&spec) {
+        let words = rest.split_whitespace().count();
+        return Err(err(
+            if words > 1 && rest.split_whitespace().nth(1).is_some_and(starts_with_name) {
+                format!("{BAD_SPECIFIER}: more than one requirement on the line (pip reads one per line)")
+            } else {
+                format!("{BAD_SPECIFIER}: the version specifier of `{name}` is not PEP 440")
+            },
+        ));
+    }
     let version = if let Some(v) = spec.strip_prefix("===") {
         v.to_string()
     } else if let Some(v) = spec.strip_prefix("==") {
@@ -311,6 +347,42 @@ fn requirement(line: &str, path: &str, line_no: usize) -> Result<Package, Lockfi
         hashes,
         platform,
         ..Package::default()
+    })
+}
+
+/// How a line-level specifier error starts (the parser keeps the rest of the file).
+const BAD_SPECIFIER: &str = "not a requirement pip reads";
+
+/// Does a word start like a distribution name (a letter or digit)?
+fn starts_with_name(word: &str) -> bool {
+    word.chars()
+        .next()
+        .is_some_and(|c| c.is_ascii_alphanumeric())
+}
+
+/// Is `spec` (whitespace removed) empty or a PEP 440 specifier list: clauses
+/// `OPERATOR VERSION` joined by commas, with the operators `~=`, `==`, `!=`, `<=`, `>=`, `<`,
+/// `>` and `===` (PEP 440, "Version specifiers"). A version is checked for its characters
+/// only (letters, digits, `.`, `*`, `+`, `!`, `-`, `_`); `===` takes any string without a comma.
+fn is_specifier_list(spec: &str) -> bool {
+    if spec.is_empty() {
+        return true;
+    }
+    spec.split(',').all(|clause| {
+        let version = ["===", "~=", "==", "!=", "<=", ">=", "<", ">"]
+            .iter()
+            .find_map(|op| clause.strip_prefix(op).map(|v| (*op, v)));
+        match version {
+            Some(("===", v)) => !v.is_empty(),
+            Some((_, v)) => {
+                !v.is_empty()
+                    && v.chars().all(|c| {
+                        c.is_ascii_alphanumeric() || matches!(c, '.' | '*' | '+' | '!' | '-' | '_')
+                    })
+                    && !v.contains("==")
+            }
+            None => false,
+        }
     })
 }
 
@@ -545,6 +617,48 @@ mod tests {
         ] {
             let err = parse(text, "requirements.txt").unwrap_err();
             assert_eq!(err.line, Some(line), "{text:?}: {err}");
+        }
+    }
+
+    #[test]
+    fn two_requirements_on_one_line_are_a_warning_for_that_line() {
+        // pip's requirements-file format reads one requirement per line ("Requirements File
+        // Format", pip documentation); PEP 440 specifiers are `OPERATOR VERSION` clauses
+        // joined by commas, so `==1.26.4 scipy==1.11.0` is no specifier.
+        let text =
+            "numpy==1.26.4 scipy==1.11.0\ntorch==2.5.1\nrequests (>=2.31, <3)\nfoo ==1.0 bar\n";
+        let parsed = parse(text, "requirements.txt").unwrap();
+        let got: Vec<_> = parsed
+            .packages
+            .iter()
+            .map(|p| (p.name.as_str(), p.version.as_str()))
+            .collect();
+        assert_eq!(got, [("requests", ">=2.31,<3"), ("torch", "2.5.1")]);
+        assert_eq!(parsed.warnings.len(), 2, "{:?}", parsed.warnings);
+        assert!(
+            parsed.warnings[0].contains("line 1")
+                && parsed.warnings[0].contains("more than one requirement"),
+            "{:?}",
+            parsed.warnings
+        );
+        assert!(
+            parsed.warnings[1].contains("line 4"),
+            "{:?}",
+            parsed.warnings
+        );
+        for spec in [
+            "",
+            "==1.0",
+            ">=1,<2",
+            "~=2.2.post3",
+            "===foobar",
+            "==1.*",
+            "!=1.0+local",
+        ] {
+            assert!(is_specifier_list(spec), "{spec}");
+        }
+        for spec in ["1.0", "==", "==1.0scipy==2", ">=1,", "=1.0", "==1 0"] {
+            assert!(!is_specifier_list(spec), "{spec}");
         }
     }
 }
