@@ -89,6 +89,32 @@ pub fn read_regular_file_with_limit(path: &Path, limit: u64) -> io::Result<Vec<u
     read_to_limit(file, len, limit)
 }
 
+/// Reads a regular file of at most [`max_file_bytes`] bytes without following a symbolic
+/// link at its last component (a link is refused as such).
+pub fn read_regular_file_nofollow(path: &Path) -> io::Result<Vec<u8>> {
+    let limit = max_file_bytes();
+    let file = open_regular(path, false)?;
+    let len = file.metadata()?.len();
+    if len > limit {
+        return Err(too_large(Some(len), limit));
+    }
+    read_to_limit(file, len, limit)
+}
+
+/// Why a file was not read, as the rest of a sentence that starts with its name: the
+/// policy's own words ("is a FIFO, not a regular file (never read)") or "cannot be read
+/// (…)" with the system's reason.
+pub fn refusal(e: &io::Error) -> String {
+    let text = e.to_string();
+    if text.starts_with("is ") {
+        text
+    } else if e.raw_os_error() == Some(libc::ELOOP) {
+        "is a symbolic link that loops (never read)".to_string()
+    } else {
+        format!("cannot be read ({text})")
+    }
+}
+
 /// Opens a regular file for reading without blocking on a FIFO and without following a
 /// symbolic link at the last component when `follow` is false. The descriptor is back in
 /// blocking mode when returned. Anything but a regular file is refused.

@@ -493,7 +493,7 @@ impl Policy {
         if let Some(p) = explicit {
             return Policy::load(p);
         }
-        let root = git2::Repository::discover(dir)
+        let root = crate::collect::git::discover(dir)
             .ok()
             .and_then(|r| r.workdir().map(Path::to_path_buf))
             .unwrap_or_else(|| dir.to_path_buf());

@@ -291,3 +291,397 @@ fn caches_cannot_lie_and_rehash_bypasses_them_all() {
     assert!(!text.contains("planted"), "{text}");
     assert_eq!(fresh.fingerprint, first.fingerprint);
 }
+
+// ---- The file battery: what cannot be read is named, nothing waits -------------------------
+
+/// Runs `cmd`, killing it after `secs` seconds (a hang fails the test instead of stalling the
+/// suite); returns its output.
+fn run_bounded(mut cmd: std::process::Command, secs: u64) -> std::process::Output {
+    use std::process::Stdio;
+    let mut child = cmd
+        .stdin(Stdio::null())
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap();
+    let deadline = std::time::Instant::now() + std::time::Duration::from_secs(secs);
+    while child.try_wait().unwrap().is_none() {
+        if std::time::Instant::now() > deadline {
+            let _ = child.kill();
+            panic!("still running after {secs} s: {cmd:?}");
+        }
+        std::thread::sleep(std::time::Duration::from_millis(20));
+    }
+    child.wait_with_output().unwrap()
+}
+
+/// Who runs the battery: root as this process is, or an unprivileged user (uid and gid
+/// 65534, `nobody` on Debian) through util-linux's `setpriv`, for whom permissions hold.
+#[derive(Clone, Copy, PartialEq)]
+enum Who {
+    Me,
+    Nobody,
+}
+
+/// A world-readable scratch folder with its own copy of the binary, so that an unprivileged
+/// user can reach both.
+struct Scratch {
+    dir: tempfile::TempDir,
+    bin: std::path::PathBuf,
+}
+
+impl Scratch {
+    fn new() -> Scratch {
+        use std::os::unix::fs::PermissionsExt;
+        let dir = tempfile::tempdir().unwrap();
+        std::fs::set_permissions(dir.path(), std::fs::Permissions::from_mode(0o755)).unwrap();
+        let bin = dir.path().join("runprint");
+        std::fs::copy(assert_cmd::cargo::cargo_bin("runprint"), &bin).unwrap();
+        Scratch { dir, bin }
+    }
+
+    fn path(&self) -> &std::path::Path {
+        self.dir.path()
+    }
+
+    /// Stamps `repo` as `who` with a git timeout of 5 s; returns the manifest and stderr.
+    fn stamp(&self, who: Who, repo: &std::path::Path, name: &str) -> (Manifest, String) {
+        let out = self.path().join(format!("{name}.toml"));
+        let mut cmd = match who {
+            Who::Me => std::process::Command::new(&self.bin),
+            Who::Nobody => {
+                let mut c = std::process::Command::new("setpriv");
+                c.args(["--reuid=65534", "--regid=65534", "--clear-groups"])
+                    .arg(&self.bin);
+                c
+            }
+        };
+        cmd.env_clear()
+            .env("PATH", std::env::var_os("PATH").unwrap_or_default())
+            .env("HOME", self.path())
+            .env("XDG_CACHE_HOME", self.path().join("cache"))
+            .env("RUNPRINT_GIT_TIMEOUT_SECS", "5")
+            .env("RUNPRINT_CHILD_TIMEOUT_SECS", "5")
+            .args(["stamp", "--quiet", "--repo"])
+            .arg(repo)
+            .arg("--out")
+            .arg(&out);
+        let output = run_bounded(cmd, 60);
+        let stderr = String::from_utf8_lossy(&output.stderr).into_owned();
+        assert_eq!(output.status.code(), Some(0), "{name}: {stderr}");
+        (Manifest::load(&out).unwrap(), stderr)
+    }
+
+    /// Hands everything to uid/gid 65534 (for [`Who::Nobody`]).
+    fn give_away(&self) {
+        let status = std::process::Command::new("chown")
+            .args(["-R", "65534:65534"])
+            .arg(self.path())
+            .status()
+            .unwrap();
+        assert!(status.success());
+    }
+}
+
+/// True when this process is root and `setpriv` can drop to an unprivileged user.
+fn can_drop_privileges() -> bool {
+    // SAFETY: geteuid has no preconditions.
+    let root = unsafe { libc::geteuid() } == 0;
+    let setpriv = std::process::Command::new("setpriv")
+        .args(["--reuid=65534", "--regid=65534", "--clear-groups", "true"])
+        .status()
+        .is_ok_and(|s| s.success());
+    if !(root && setpriv) {
+        eprintln!("skipped: needs root and setpriv to run the battery as an unprivileged user");
+    }
+    root && setpriv
+}
+
+/// Asserts that a warning names `what` and says `why`.
+fn warned(m: &Manifest, what: &str, why: &str) {
+    assert!(
+        m.run
+            .warnings
+            .iter()
+            .any(|w| w.contains(what) && w.contains(why)),
+        "no warning about `{what}` ({why}): {:#?}",
+        m.run.warnings
+    );
+}
+
+fn lockfile_paths(m: &Manifest) -> Vec<&str> {
+    m.content
+        .lockfiles
+        .iter()
+        .map(|l| l.path.as_str())
+        .collect()
+}
+
+/// Builds the hostile trees under `s` and stamps each as `who`.
+fn battery(s: &Scratch, who: Who) {
+    use std::os::unix::fs::{symlink, PermissionsExt};
+    let root = s.path();
+    let good = "numpy==1.26.4\n";
+    // A folder outside git: the walk.
+    let walk = root.join("walk");
+    write_files(
+        &walk,
+        &[
+            ("requirements.txt", good),
+            (".gitignore", "ignored/\n"),
+            ("ignored/requirements.txt", good),
+            ("locked/requirements.txt", good),
+            ("sub/x.txt", ""),
+        ],
+    );
+    std::fs::create_dir_all(walk.join("fifo")).unwrap();
+    common::mkfifo(&walk.join("fifo/requirements.txt"));
+    common::mkfifo(&walk.join("sub/.gitignore"));
+    symlink("/dev/zero", walk.join("Cargo.lock")).unwrap();
+    symlink("nowhere", walk.join("uv.lock")).unwrap();
+    symlink("pdm.lock", walk.join("pdm.lock")).unwrap();
+    symlink("sub", walk.join("poetry.lock")).unwrap();
+    let odd = std::path::PathBuf::from(std::ffi::OsString::from(
+        <std::ffi::OsStr as std::os::unix::ffi::OsStrExt>::from_bytes(b"caf\xe9"),
+    ));
+    write_files(&walk.join(&odd), &[("requirements.txt", good)]);
+
+    // Repositories whose git folder holds something git would wait on.
+    let git_case = |name: &str, plant: &dyn Fn(&std::path::Path)| {
+        let repo = root.join(name);
+        std::fs::create_dir_all(&repo).unwrap();
+        git(&repo, &["init", "-q", "-b", "main"]);
+        write_files(&repo, &[("requirements.txt", good)]);
+        git(&repo, &["add", "-A"]);
+        git(&repo, &["commit", "-q", "-m", "initial"]);
+        plant(&repo);
+        repo
+    };
+    let replace_with_fifo = |p: std::path::PathBuf| {
+        let _ = std::fs::remove_file(&p);
+        common::mkfifo(&p);
+    };
+    let git_cases = [
+        (
+            git_case("index-fifo", &|r| replace_with_fifo(r.join(".git/index"))),
+            ".git/index",
+        ),
+        (
+            git_case("exclude-fifo", &|r| {
+                replace_with_fifo(r.join(".git/info/exclude"))
+            }),
+            ".git/info/exclude",
+        ),
+        (
+            git_case("include-fifo", &|r| {
+                common::mkfifo(&r.join(".git/extra.inc"));
+                git(
+                    r,
+                    &["config", "includeIf.gitdir:/nowhere/.path", "extra.inc"],
+                );
+            }),
+            ".git/extra.inc",
+        ),
+        (
+            git_case("branch-fifo", &|r| {
+                replace_with_fifo(r.join(".git/refs/heads/main"))
+            }),
+            ".git/refs/heads/main",
+        ),
+        (
+            git_case("gitignore-fifo", &|r| common::mkfifo(&r.join(".gitignore"))),
+            ".gitignore",
+        ),
+        (
+            git_case("gitfile-nowhere", &|r| {
+                std::fs::remove_dir_all(r.join(".git")).unwrap();
+                std::fs::write(r.join(".git"), "gitdir: ../no/such/folder\n").unwrap();
+            }),
+            ".git",
+        ),
+    ];
+    // Tracked entries with lockfile names that are not files: the git listing.
+    let listed = git_case("listed", &|r| {
+        symlink("/dev/zero", r.join("Cargo.lock")).unwrap();
+        symlink("nowhere", r.join("uv.lock")).unwrap();
+        write_files(r, &[("locked/requirements.txt", good)]);
+        write_files(&r.join(&odd), &[("requirements.txt", good)]);
+        git(r, &["add", "-A"]);
+        git(r, &["commit", "-q", "-m", "odd entries"]);
+        write_files(r, &[("locked/new.txt", "")]);
+    });
+    for dir in [walk.join("locked"), listed.join("locked")] {
+        std::fs::set_permissions(dir, std::fs::Permissions::from_mode(0o000)).unwrap();
+    }
+    if who == Who::Nobody {
+        s.give_away();
+    }
+
+    let (m, stderr) = s.stamp(who, &walk, "walk");
+    warned(&m, "fifo/requirements.txt", "a FIFO, not a regular file");
+    warned(&m, "sub/.gitignore", "a FIFO, not a regular file");
+    warned(&m, "Cargo.lock", "a character device");
+    warned(&m, "uv.lock", "a symbolic link to nothing");
+    warned(&m, "pdm.lock", "loops");
+    warned(&m, "poetry.lock", "a folder");
+    warned(&m, "caf", "not UTF-8");
+    let mut expect = vec!["requirements.txt"];
+    if who == Who::Nobody {
+        warned(&m, "`locked`", "could not be listed");
+    } else {
+        expect.insert(0, "locked/requirements.txt");
+    }
+    assert_eq!(lockfile_paths(&m), expect, "{stderr}");
+    assert!(!m.run.warnings.iter().any(|w| w.contains("ignored")));
+    // Each problem is said once.
+    let mut unique = m.run.warnings.clone();
+    unique.dedup();
+    assert_eq!(unique, m.run.warnings);
+
+    for (repo, file) in &git_cases {
+        let name = repo.file_name().unwrap().to_str().unwrap().to_string();
+        let (m, stderr) = s.stamp(who, repo, &name);
+        warned(
+            &m,
+            file,
+            if *file == ".git" {
+                "does not exist"
+            } else {
+                "wait on"
+            },
+        );
+        // The lockfiles are still read, by the walk.
+        assert_eq!(lockfile_paths(&m), ["requirements.txt"], "{name}: {stderr}");
+    }
+
+    let (m, stderr) = s.stamp(who, &listed, "listed");
+    assert!(m.content.git.present, "{stderr}");
+    warned(&m, "Cargo.lock", "a character device");
+    warned(&m, "uv.lock", "a symbolic link to nothing");
+    warned(&m, "caf", "not UTF-8");
+    if who == Who::Nobody {
+        warned(&m, "locked/requirements.txt", "cannot be read");
+        warned(&m, "git: could not open directory", "locked");
+        assert_eq!(lockfile_paths(&m), ["requirements.txt"]);
+    } else {
+        assert_eq!(
+            lockfile_paths(&m),
+            ["locked/requirements.txt", "requirements.txt"]
+        );
+    }
+}
+
+#[test]
+fn the_battery_as_root_names_every_file_it_leaves_out() {
+    let s = Scratch::new();
+    battery(&s, Who::Me);
+}
+
+#[test]
+fn the_battery_as_an_unprivileged_user_names_every_file_it_leaves_out() {
+    if !can_drop_privileges() {
+        return;
+    }
+    let s = Scratch::new();
+    battery(&s, Who::Nobody);
+}
+
+/// Device nodes made for the test inside a private mount namespace (util-linux `unshare`),
+/// on a tmpfs that vanishes with it: a character and a block device named like lockfiles
+/// are refused for their type, and nothing is opened.
+#[test]
+fn device_nodes_in_a_private_mount_namespace_are_refused() {
+    let s = Scratch::new();
+    let probe = std::process::Command::new("unshare")
+        .args(["--mount", "--propagation", "private", "true"])
+        .status()
+        .is_ok_and(|st| st.success());
+    if !probe {
+        eprintln!("skipped: no private mount namespace here (needs root and unshare)");
+        return;
+    }
+    let repo = s.path().join("dev");
+    std::fs::create_dir_all(&repo).unwrap();
+    let out = s.path().join("dev.toml");
+    let script = format!(
+        "set -e; mount -t tmpfs none '{r}'; cd '{r}'; echo 'numpy==1.26.4' > requirements.txt; \
+         mknod Cargo.lock c 1 5; mknod uv.lock b 7 0; mknod poetry.lock c 1 3; \
+         '{bin}' stamp --quiet --repo . --out '{out}'",
+        r = repo.display(),
+        bin = s.bin.display(),
+        out = out.display()
+    );
+    let mut cmd = std::process::Command::new("unshare");
+    cmd.args(["--mount", "--propagation", "private", "sh", "-c", &script])
+        .env("XDG_CACHE_HOME", s.path().join("cache"));
+    let output = run_bounded(cmd, 60);
+    assert!(
+        output.status.success(),
+        "{}",
+        String::from_utf8_lossy(&output.stderr)
+    );
+    let m = Manifest::load(&out).unwrap();
+    warned(&m, "Cargo.lock", "a character device");
+    warned(&m, "uv.lock", "a block device");
+    warned(&m, "poetry.lock", "a character device");
+    assert_eq!(lockfile_paths(&m), ["requirements.txt"]);
+}
+
+/// The walk used outside git applies `.gitignore` files as git does: its lockfiles are the
+/// ones `git ls-files --others --exclude-standard` lists in a repository made of the same
+/// tree (git is the reference).
+#[test]
+fn the_walk_outside_git_ignores_what_git_ignores() {
+    let tree = tempfile::tempdir().unwrap();
+    let r = "numpy==1.26.4\n";
+    write_files(
+        tree.path(),
+        &[
+            (
+                ".gitignore",
+                "build/\n/top-only.txt\n*.lock\n!keep/*.lock\nvendor/**/requirements*.txt\n",
+            ),
+            ("requirements.txt", r),
+            ("build/requirements.txt", r),
+            ("app/build/requirements.txt", r),
+            ("poetry.lock", ""),
+            ("keep/poetry.lock", ""),
+            ("keep/deeper/poetry.lock", ""),
+            ("vendor/a/b/requirements-dev.txt", r),
+            ("vendor/requirements.txt", r),
+            (
+                "svc/.gitignore",
+                "!requirements-local.txt\nrequirements-*.txt\n",
+            ),
+            ("svc/requirements-local.txt", r),
+            ("svc/requirements.txt", r),
+            ("svc/inner/.gitignore", "!requirements-x.txt\n"),
+            ("svc/inner/requirements-x.txt", r),
+            ("docs/environment.yml", "dependencies: [numpy=1.26.4]\n"),
+        ],
+    );
+    let ours: Vec<String> = runprint::collect::lockfiles::discover(tree.path())
+        .iter()
+        .map(|p| p.to_string_lossy().into_owned())
+        .collect();
+    let copy = tempfile::tempdir().unwrap();
+    let status = std::process::Command::new("cp")
+        .arg("-a")
+        .arg(format!("{}/.", tree.path().display()))
+        .arg(copy.path())
+        .status()
+        .unwrap();
+    assert!(status.success());
+    git(copy.path(), &["init", "-q"]);
+    let listed = git(copy.path(), &["ls-files", "--others", "--exclude-standard"]);
+    let mut theirs: Vec<String> = listed
+        .lines()
+        .filter(|p| runprint::lockfile::Format::detect(p.rsplit('/').next().unwrap()).is_some())
+        .map(str::to_string)
+        .collect();
+    theirs.sort();
+    assert_eq!(ours, theirs);
+    // The case is not trivial: some are kept and some are not.
+    assert!(ours.contains(&"keep/poetry.lock".to_string()));
+    assert!(!ours.contains(&"build/requirements.txt".to_string()));
+}

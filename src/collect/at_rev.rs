@@ -76,7 +76,7 @@ pub enum CommitPresence {
 
 /// Opens the repository that contains `dir`.
 pub fn open(dir: &std::path::Path) -> Result<Repository, RevError> {
-    Repository::discover(dir).map_err(|e| RevError::NoRepository {
+    crate::collect::git::discover(dir).map_err(|e| RevError::NoRepository {
         dir: dir.display().to_string(),
         message: e.message().to_string(),
     })

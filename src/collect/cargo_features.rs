@@ -66,6 +66,7 @@ pub fn features(
         ));
     }
     refuse_toolchain_by_path(dir)?;
+    refuse_special_inputs(dir, manifests)?;
     let Some(host) = cargo_host_triple(dir) else {
         return Ok(None);
     };
@@ -214,6 +215,37 @@ fn refuse_toolchain_by_path(dir: &Path) -> Result<(), String> {
             }
             // The first toolchain file found decides, as for rustup.
             return Ok(());
+        }
+    }
+    Ok(())
+}
+
+/// `cargo metadata` reads every member's `Cargo.toml` and the `.cargo/config.toml` (or
+/// `.cargo/config`) files of the folder it starts in and of its parents ("Configuration:
+/// Hierarchical structure", The Cargo Book), as well as `rust-toolchain(.toml)` through
+/// rustup; a FIFO or device among them would hold cargo until its time limit. Such a file is
+/// refused before cargo starts, naming it.
+fn refuse_special_inputs(dir: &Path, manifests: &[PathBuf]) -> Result<(), String> {
+    let start = std::path::absolute(dir).unwrap_or_else(|_| dir.to_path_buf());
+    let configs = start.ancestors().flat_map(|folder| {
+        [
+            folder.join(".cargo/config.toml"),
+            folder.join(".cargo/config"),
+            folder.join("rust-toolchain.toml"),
+            folder.join("rust-toolchain"),
+        ]
+    });
+    let members = manifests.iter().filter(|m| m.starts_with(dir)).cloned();
+    for path in members.chain(configs) {
+        let Ok(meta) = std::fs::metadata(&path) else {
+            continue;
+        };
+        if !meta.is_file() && !meta.is_dir() {
+            return Err(format!(
+                "`{}` is {}, which cargo would wait on; `cargo metadata` was not run",
+                path.display(),
+                crate::limits::kind_of(&meta)
+            ));
         }
     }
     Ok(())

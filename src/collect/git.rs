@@ -30,6 +30,9 @@ pub struct GitFacts {
     /// files of [`tracked_files`], what a walk respecting `.gitignore` would find), when the
     /// status could be read.
     pub untracked: Option<Vec<String>>,
+    /// What git warned about while listing (a folder it could not open, say): those files
+    /// are missing from the changed paths.
+    pub warnings: Vec<String>,
 }
 
 /// How the collector runs the `git` executable, shared with the watchdog that may stop it.
@@ -84,7 +87,7 @@ pub fn collect(
 ) -> Result<GitFacts, String> {
     let found = match opened {
         Some(repo) => Ok(repo),
-        None => Repository::discover(dir),
+        None => discover(dir),
     };
     let repo = match found {
         Ok(r) => r,
@@ -94,6 +97,7 @@ pub fn collect(
                 info: GitInfo::default(),
                 workdir: None,
                 untracked: None,
+                warnings: Vec::new(),
             });
         }
         Err(e) => {
@@ -143,12 +147,17 @@ pub fn collect(
     info.detached = repo.head_detached().unwrap_or(false);
 
     let mut untracked = None;
+    let mut warnings = Vec::new();
     if let Some(root) = &workdir {
         let failed = |e: String| format!("git: cannot read the work tree status: {e}");
         // Loaded while git's status runs.
         let digests = ChangeCache::open(cache.dir.as_deref(), root, cache.rehash);
         let entries = match started {
-            Ok(Some(running)) => finish_git_status(root, control, running).map_err(failed)?,
+            Ok(Some(running)) => {
+                let (entries, said) = finish_git_status(root, control, running).map_err(failed)?;
+                warnings = said;
+                entries
+            }
             Err(e) => return Err(failed(e)),
             Ok(None) => status_with_libgit2(&repo, root)
                 .map_err(|e| format!("git: cannot read the work tree status: {}", e.message()))?,
@@ -182,6 +191,7 @@ pub fn collect(
         info,
         workdir,
         untracked,
+        warnings,
     })
 }
 
@@ -220,6 +230,10 @@ pub fn start_status(dir: &Path, control: &GitControl) -> Started {
     };
     let mut cmd = Command::new(program);
     cmd.args([
+        // A repository's configuration may name a file-system monitor program, which
+        // `status` would run (git-config(1), `core.fsmonitor`): none is run.
+        "-c",
+        "core.fsmonitor=false",
         "--no-optional-locks",
         "status",
         "--porcelain=v1",
@@ -315,7 +329,7 @@ fn finish_git_status(
     root: &Path,
     control: &GitControl,
     running: RunningStatus,
-) -> Result<Vec<StatusEntry>, String> {
+) -> Result<(Vec<StatusEntry>, Vec<String>), String> {
     let RunningStatus {
         mut stdout,
         mut stderr,
@@ -353,6 +367,18 @@ fn finish_git_status(
             return Err(crate::redact::scrub_secrets(message.trim()));
         }
     }
+    // git goes on past a folder it cannot open, saying so on stderr ("warning: could not
+    // open directory 'x/': Permission denied"): the files in it are missing from the list.
+    let said: Vec<String> = String::from_utf8_lossy(&err)
+        .lines()
+        .filter_map(|l| l.trim().strip_prefix("warning:"))
+        .map(|l| {
+            format!(
+                "git: {}; files there are not in the changed paths",
+                crate::escape::printable(crate::redact::scrub_secrets(l.trim()).as_str())
+            )
+        })
+        .collect();
     // Each record: two status letters, a space, the path, NUL (git-status(1), "Porcelain
     // Format Version 1" with -z).
     let mut entries = Vec::new();
@@ -369,7 +395,7 @@ fn finish_git_status(
             abs,
         });
     }
-    Ok(entries)
+    Ok((entries, said))
 }
 
 /// The same list through libgit2, for machines without the `git` executable.
@@ -597,11 +623,276 @@ fn submodules(repo: &Repository) -> Vec<Submodule> {
     subs
 }
 
+/// Opens the repository that contains `dir`, as [`Repository::discover`] does, once
+/// [`preflight`] has found nothing that would make git or libgit2 wait forever; what it found
+/// is the error's message.
+pub fn discover(dir: &Path) -> Result<Repository, git2::Error> {
+    if let Some(problem) = preflight(dir) {
+        return Err(git2::Error::new(
+            git2::ErrorCode::GenericError,
+            git2::ErrorClass::Repository,
+            problem,
+        ));
+    }
+    Repository::discover(dir)
+}
+
+/// The files of a git folder that opening the repository and listing its status read
+/// (gitrepository-layout(5)), relative to the git folder.
+const GIT_FILES: &[&str] = &[
+    "HEAD",
+    "config",
+    "config.worktree",
+    "index",
+    "commondir",
+    "packed-refs",
+    "shallow",
+    "info/exclude",
+    "info/attributes",
+    "info/sparse-checkout",
+    "info/grafts",
+    "objects/info/alternates",
+];
+
+/// Files of the common folder (the main repository's, for a linked work tree).
+const COMMON_FILES: &[&str] = &[
+    "config",
+    "packed-refs",
+    "info/exclude",
+    "info/attributes",
+    "objects/info/alternates",
+];
+
+/// How deep git follows `include.path` (git's `MAX_INCLUDE_DEPTH`, config.c, from memory).
+const MAX_INCLUDE_DEPTH: usize = 10;
+
+/// Looks, without opening anything that could block, at the files git and libgit2 read when
+/// they open the repository that contains `dir` and list its status: the `.git` entry (a
+/// folder, or a file `gitdir: PATH` that must lead to one), the git folder's own files
+/// ([`GIT_FILES`]), the branch file HEAD names, the common folder of a linked work tree, every
+/// file a configuration includes (`include.path`, `includeIf.*.path`, followed as git does up
+/// to [`MAX_INCLUDE_DEPTH`]) and the work tree's top `.gitignore`. A FIFO, socket or device
+/// among them would make libgit2 (in this process, where no timeout can stop it) or `git`
+/// wait forever; such a file, and a `.git` file that leads nowhere, is returned as a message
+/// naming it. `None`: nothing found (or no `.git` above `dir`: libgit2 decides).
+pub fn preflight(dir: &Path) -> Option<String> {
+    let start = std::path::absolute(dir).unwrap_or_else(|_| dir.to_path_buf());
+    for folder in start.ancestors() {
+        let dotgit = folder.join(".git");
+        let Ok(meta) = std::fs::symlink_metadata(&dotgit) else {
+            continue;
+        };
+        let gitdir = if meta.is_file() {
+            match gitdir_from_file(folder, &dotgit) {
+                Ok(d) => d,
+                Err(problem) => return Some(problem),
+            }
+        } else {
+            match std::fs::metadata(&dotgit) {
+                Ok(m) if m.is_dir() => dotgit.clone(),
+                Ok(m) => {
+                    return Some(format!(
+                        "`{}` is {}, not a git folder",
+                        dotgit.display(),
+                        crate::limits::kind_of(&m)
+                    ))
+                }
+                Err(_) => {
+                    return Some(format!(
+                        "`{}` is a symbolic link that leads nowhere",
+                        dotgit.display()
+                    ))
+                }
+            }
+        };
+        // git reads `.gitignore` without following a link (git 2.32 release notes), so only
+        // the entry itself can block it.
+        let top_ignore = folder.join(".gitignore");
+        return check_git_folder(&gitdir).or_else(|| {
+            std::fs::symlink_metadata(&top_ignore)
+                .is_ok_and(|m| !m.is_symlink())
+                .then(|| special(&top_ignore))
+                .flatten()
+        });
+    }
+    None
+}
+
+/// The git folder a `.git` file names (`gitdir: PATH`, relative to the file's folder), or why
+/// there is none.
+fn gitdir_from_file(folder: &Path, dotgit: &Path) -> Result<PathBuf, String> {
+    let bytes = crate::limits::read_regular_file_with_limit(dotgit, 64 << 10)
+        .map_err(|e| format!("`{}` {}", dotgit.display(), crate::limits::refusal(&e)))?;
+    let text = String::from_utf8_lossy(&bytes);
+    let target = text
+        .lines()
+        .next()
+        .and_then(|l| l.strip_prefix("gitdir:"))
+        .map(str::trim)
+        .filter(|t| !t.is_empty())
+        .ok_or_else(|| {
+            format!(
+                "`{}` is a file that does not name a git folder (`gitdir: PATH`)",
+                dotgit.display()
+            )
+        })?;
+    let gitdir = folder.join(target);
+    if !std::fs::metadata(&gitdir).is_ok_and(|m| m.is_dir()) {
+        return Err(format!(
+            "`{}` points to a git folder that does not exist; the work tree is not a usable \
+             repository",
+            dotgit.display()
+        ));
+    }
+    Ok(gitdir)
+}
+
+/// The message for a FIFO, socket or device at `path` (links followed); `None` for a regular
+/// file, a folder, or nothing there.
+fn special(path: &Path) -> Option<String> {
+    let meta = std::fs::metadata(path).ok()?;
+    (!meta.is_file() && !meta.is_dir()).then(|| {
+        format!(
+            "`{}` is {}, which git would wait on forever; the repository was not read",
+            path.display(),
+            crate::limits::kind_of(&meta)
+        )
+    })
+}
+
+/// [`preflight`] for one git folder.
+fn check_git_folder(gitdir: &Path) -> Option<String> {
+    for f in GIT_FILES {
+        if let Some(problem) = special(&gitdir.join(f)) {
+            return Some(problem);
+        }
+    }
+    let small = |p: &Path| crate::limits::read_regular_file_with_limit(p, 1 << 20).ok();
+    let common = small(&gitdir.join("commondir"))
+        .map(|b| gitdir.join(String::from_utf8_lossy(&b).trim()))
+        .unwrap_or_else(|| gitdir.to_path_buf());
+    if common != gitdir {
+        for f in COMMON_FILES {
+            if let Some(problem) = special(&common.join(f)) {
+                return Some(problem);
+            }
+        }
+    }
+    // HEAD names its branch as `ref: refs/heads/NAME`; the branch file may live in either.
+    if let Some(head) = small(&gitdir.join("HEAD")) {
+        let head = String::from_utf8_lossy(&head);
+        if let Some(r) = head.trim().strip_prefix("ref:").map(str::trim) {
+            if !r.split('/').any(|part| part == "..") {
+                for base in [gitdir, common.as_path()] {
+                    if let Some(problem) = special(&base.join(r)) {
+                        return Some(problem);
+                    }
+                }
+            }
+        }
+    }
+    let mut queue: Vec<(PathBuf, usize)> = [common.join("config"), gitdir.join("config.worktree")]
+        .into_iter()
+        .chain((common != gitdir).then(|| gitdir.join("config")))
+        .map(|p| (p, 0))
+        .collect();
+    let mut seen = std::collections::HashSet::new();
+    while let Some((config, depth)) = queue.pop() {
+        if depth > MAX_INCLUDE_DEPTH || !seen.insert(config.clone()) {
+            continue;
+        }
+        if let Some(problem) = special(&config) {
+            return Some(problem);
+        }
+        let Some(bytes) = small(&config) else {
+            continue;
+        };
+        let base = config.parent().unwrap_or(Path::new("/")).to_path_buf();
+        for target in config_includes(&String::from_utf8_lossy(&bytes)) {
+            let path = match target.strip_prefix("~/") {
+                Some(rest) => match std::env::var_os("HOME") {
+                    Some(home) => PathBuf::from(home).join(rest),
+                    None => continue,
+                },
+                None => base.join(&target),
+            };
+            queue.push((path, depth + 1));
+        }
+    }
+    None
+}
+
+/// The paths a git configuration file includes: the `path` values of its `[include]` and
+/// `[includeIf "…"]` sections (git-config(1), "Includes"), whatever their conditions (a
+/// condition only decides whether git reads the file, and any file it might read is looked
+/// at). Values may be quoted; `#` and `;` start a comment outside quotes.
+pub(crate) fn config_includes(text: &str) -> Vec<String> {
+    let mut out = Vec::new();
+    let mut in_include = false;
+    for line in text.lines() {
+        let line = line.trim();
+        if let Some(rest) = line.strip_prefix('[') {
+            let name = rest
+                .split(|c: char| c == ']' || c == '"' || c.is_whitespace())
+                .next()
+                .unwrap_or("")
+                .to_ascii_lowercase();
+            in_include = name == "include" || name == "includeif";
+            // `[include] path = x` on one line.
+            let Some((_, after)) = rest.split_once(']') else {
+                continue;
+            };
+            if !in_include || after.trim().is_empty() {
+                continue;
+            }
+            if let Some(v) = include_path(after.trim()) {
+                out.push(v);
+            }
+            continue;
+        }
+        if in_include {
+            if let Some(v) = include_path(line) {
+                out.push(v);
+            }
+        }
+    }
+    out
+}
+
+/// The value of a `path = VALUE` line, unquoted, without its comment.
+fn include_path(line: &str) -> Option<String> {
+    let (key, value) = line.split_once('=')?;
+    if !key.trim().eq_ignore_ascii_case("path") {
+        return None;
+    }
+    let mut out = String::new();
+    let mut quoted = false;
+    let mut chars = value.trim().chars();
+    while let Some(c) = chars.next() {
+        match c {
+            '"' => quoted = !quoted,
+            '\\' => {
+                if let Some(n) = chars.next() {
+                    out.push(match n {
+                        'n' => '\n',
+                        't' => '\t',
+                        other => other,
+                    });
+                }
+            }
+            '#' | ';' if !quoted => break,
+            c => out.push(c),
+        }
+    }
+    let out = out.trim().to_string();
+    (!out.is_empty()).then_some(out)
+}
+
 /// The work tree that contains `dir`: its root, and the repository opened once (its index is
 /// the `index` file of [`Repository::path`]; [`collect`] takes it). `None` outside a
 /// repository or in a bare one.
 pub fn work_tree(dir: &Path) -> Option<(PathBuf, Repository)> {
-    let repo = Repository::discover(dir).ok()?;
+    let repo = discover(dir).ok()?;
     let root = repo.workdir()?.to_path_buf();
     Some((root, repo))
 }
@@ -631,7 +922,7 @@ pub struct FileStat {
 /// added and removed (git2's patch statistics, as `git diff --numstat` counts them), or `None`
 /// when either commit is not in that repository.
 pub fn diff_stats_between(dir: &Path, old: &str, new: &str) -> Option<Vec<FileStat>> {
-    let repo = Repository::discover(dir).ok()?;
+    let repo = discover(dir).ok()?;
     let diff = tree_diff(&repo, old, new)?;
     let mut out = Vec::new();
     for (i, delta) in diff.deltas().enumerate() {

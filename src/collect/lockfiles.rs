@@ -32,28 +32,96 @@ pub(crate) const SKIPPED_DIRS: &[&str] = &[
 
 /// Lockfiles found under `root`, as paths relative to it, sorted.
 pub fn discover(root: &Path) -> Vec<PathBuf> {
-    discover_all(root).0
+    discover_all(root, &mut Vec::new()).0
 }
 
 /// One walk of the repository: the lockfiles (relative to `root`, sorted) and the absolute
 /// paths of every `Cargo.toml` (they decide Cargo's enabled features).
-pub fn discover_all(root: &Path) -> (Vec<PathBuf>, Vec<PathBuf>) {
+///
+/// The walk honours `.gitignore` files and the repository's `.git/info/exclude` as git does
+/// (gitignore(5): a deeper file's patterns take precedence over a shallower one's, and every
+/// `.gitignore` over `info/exclude`; the last matching pattern of a file decides; an ignored
+/// folder is not entered), matched by the `ignore` crate's gitignore matcher. The pattern
+/// files themselves are read through the file-opening policy and never through a symbolic
+/// link (git 2.32 and later do not follow one either), so a FIFO or device named `.gitignore`
+/// cannot block the walk: it becomes a warning, as do folders that cannot be listed and
+/// lockfile-named entries whose path is not UTF-8. Entries that have a lockfile's name but are
+/// not regular files (FIFOs, devices, links to nothing) are returned, so that reading them
+/// gives a warning rather than silence. Global excludes (`core.excludesFile`) and `.ignore`
+/// files are not read: this walk is the fallback when git cannot list the files.
+pub fn discover_all(root: &Path, warnings: &mut Vec<String>) -> (Vec<PathBuf>, Vec<PathBuf>) {
+    use ignore::gitignore::Gitignore;
+    use ignore::Match;
     let mut found = Vec::new();
     let mut cargo_manifests = Vec::new();
-    let walk = ignore::WalkBuilder::new(root)
-        .hidden(false)
-        .git_ignore(true)
-        .git_exclude(true)
-        .require_git(false)
-        .filter_entry(|e| {
-            !(e.file_type().is_some_and(|t| t.is_dir())
-                && e.file_name()
+    // The pattern files of the folders above the current entry, deepest last, with the depth
+    // of the folder that holds each.
+    let mut stack: Vec<(usize, Gitignore)> = Vec::new();
+    let exclude = patterns(
+        root,
+        &root.join(".git/info/exclude"),
+        ".git/info/exclude",
+        warnings,
+    );
+    let mut walk = walkdir::WalkDir::new(root)
+        .follow_links(false)
+        .sort_by_file_name()
+        .into_iter();
+    while let Some(next) = walk.next() {
+        let entry = match next {
+            Ok(e) => e,
+            Err(e) => {
+                let shown = e
+                    .path()
+                    .and_then(|p| p.strip_prefix(root).ok())
+                    .map_or_else(|| ".".to_string(), |p| p.to_string_lossy().into_owned());
+                let why = e.io_error().map_or_else(
+                    || "a loop of folders".to_string(),
+                    |io| io.kind().to_string(),
+                );
+                warnings.push(format!(
+                    "lockfiles: folder `{shown}` could not be listed ({why}); lockfiles in it \
+                     were not read"
+                ));
+                continue;
+            }
+        };
+        let depth = entry.depth();
+        while stack.last().is_some_and(|(d, _)| *d >= depth) {
+            stack.pop();
+        }
+        let is_dir = entry.file_type().is_dir();
+        if depth > 0 {
+            if is_dir
+                && entry
+                    .file_name()
                     .to_str()
-                    .is_some_and(|n| SKIPPED_DIRS.contains(&n)))
-        })
-        .build();
-    for entry in walk.filter_map(Result::ok) {
-        if !entry.file_type().is_some_and(|t| t.is_file()) {
+                    .is_some_and(|n| SKIPPED_DIRS.contains(&n))
+            {
+                walk.skip_current_dir();
+                continue;
+            }
+            let verdict = stack
+                .iter()
+                .rev()
+                .map(|(_, gi)| gi)
+                .chain(exclude.as_ref())
+                .map(|gi| gi.matched(entry.path(), is_dir))
+                .find(|m| !m.is_none());
+            if matches!(verdict, Some(Match::Ignore(_))) {
+                if is_dir {
+                    walk.skip_current_dir();
+                }
+                continue;
+            }
+        }
+        let rel = entry.path().strip_prefix(root).unwrap_or(entry.path());
+        if is_dir {
+            let file = entry.path().join(".gitignore");
+            let shown = rel.join(".gitignore").to_string_lossy().into_owned();
+            if let Some(gi) = patterns(entry.path(), &file, &shown, warnings) {
+                stack.push((depth, gi));
+            }
             continue;
         }
         let Some(name) = entry.file_name().to_str() else {
@@ -64,18 +132,72 @@ pub fn discover_all(root: &Path) -> (Vec<PathBuf>, Vec<PathBuf>) {
             cargo_manifests.push(abs);
         }
         if Format::detect(name).is_some() {
-            if let Ok(rel) = entry.path().strip_prefix(root) {
-                found.push(rel.to_path_buf());
+            if rel.to_str().is_none() {
+                warnings.push(format!(
+                    "lockfile `{}`: its path is not UTF-8 and cannot be written to a manifest; \
+                     not read",
+                    crate::escape::printable(&rel.to_string_lossy())
+                ));
+                continue;
             }
+            found.push(rel.to_path_buf());
         }
     }
     found.sort();
     (found, cargo_manifests)
 }
 
+/// The gitignore patterns of `file` (matched relative to `dir`), read without following a
+/// link and through the file-opening policy; `None` when there is no such file. A file that
+/// cannot be read is a warning naming it (`shown`), never its content.
+fn patterns(
+    dir: &Path,
+    file: &Path,
+    shown: &str,
+    warnings: &mut Vec<String>,
+) -> Option<ignore::gitignore::Gitignore> {
+    let bytes = match crate::limits::read_regular_file_nofollow(file) {
+        Ok(b) => b,
+        // Absent, or a parent that is no folder (`.git` as a file of a linked work tree).
+        Err(e)
+            if e.kind() == std::io::ErrorKind::NotFound
+                || e.raw_os_error() == Some(libc::ENOTDIR) =>
+        {
+            return None
+        }
+        // A folder that cannot be listed is reported by the walk, once.
+        Err(e)
+            if e.kind() == std::io::ErrorKind::PermissionDenied
+                && std::fs::read_dir(dir).is_err() =>
+        {
+            return None
+        }
+        Err(e) => {
+            warnings.push(format!(
+                "`{shown}` {}; its patterns were not applied",
+                crate::limits::refusal(&e)
+            ));
+            return None;
+        }
+    };
+    let mut builder = ignore::gitignore::GitignoreBuilder::new(dir);
+    for line in String::from_utf8_lossy(&bytes).lines() {
+        // A pattern the matcher cannot compile is skipped, as git skips what it cannot use.
+        let _ = builder.add_line(None, line);
+    }
+    builder.build().ok()
+}
+
 /// The lockfiles and `Cargo.toml` files among a list of repository files, skipping the same
-/// folders as the walk.
-fn from_listing(root: &Path, files: &[String]) -> (Vec<PathBuf>, Vec<PathBuf>) {
+/// folders as the walk. A listed lockfile that is not a regular file is kept (reading it gives
+/// the warning); one that is gone from the work tree (deleted, not yet committed) is not. A
+/// path git gave with bytes that are not UTF-8 (shown with U+FFFD) cannot be opened by its
+/// listed name: it is a warning.
+fn from_listing(
+    root: &Path,
+    files: &[String],
+    warnings: &mut Vec<String>,
+) -> (Vec<PathBuf>, Vec<PathBuf>) {
     let mut found = Vec::new();
     let mut cargo_manifests = Vec::new();
     for f in files {
@@ -88,8 +210,18 @@ fn from_listing(root: &Path, files: &[String]) -> (Vec<PathBuf>, Vec<PathBuf>) {
             let p = root.join(f);
             cargo_manifests.push(std::path::absolute(&p).unwrap_or(p));
         }
-        if Format::detect(name).is_some() && root.join(f).is_file() {
-            found.push(PathBuf::from(f));
+        if Format::detect(name).is_some() {
+            let gone = std::fs::symlink_metadata(root.join(f))
+                .is_err_and(|e| e.kind() == std::io::ErrorKind::NotFound);
+            if !gone {
+                found.push(PathBuf::from(f));
+            } else if f.contains('\u{FFFD}') {
+                warnings.push(format!(
+                    "lockfile `{}`: its path is not UTF-8 and cannot be written to a manifest; \
+                     not read",
+                    crate::escape::printable(f)
+                ));
+            }
         }
     }
     found.sort();
@@ -183,8 +315,8 @@ pub fn collect_cached(
     warnings: &mut Vec<String>,
 ) -> Vec<Lockfile> {
     let (found, cargo_manifests) = match listed {
-        Some(files) => from_listing(root, files),
-        None => discover_all(root),
+        Some(files) => from_listing(root, files, warnings),
+        None => discover_all(root, warnings),
     };
     let mut files: Vec<(PathBuf, String)> = found
         .into_iter()
@@ -271,7 +403,7 @@ fn read_one(
         Err(e) => {
             // Perhaps passing (permissions, a full disk): read again next time.
             inputs.reusable = false;
-            warnings.push(format!("lockfile `{shown}`: cannot read: {e}"));
+            warnings.push(format!("lockfile `{shown}` {}", why_not_read(abs, &e)));
             return None;
         }
     };
@@ -296,7 +428,7 @@ fn read_one(
         let bytes = match ctx.read(&path) {
             Ok(b) => b,
             Err(e) => {
-                warnings.push(format!("lockfile `{shown}`: cannot read: {e}"));
+                warnings.push(format!("lockfile `{shown}` {}", why_not_read(&path, &e)));
                 return None;
             }
         };
@@ -343,6 +475,17 @@ fn read_one(
         sha256: hex(&Sha256::digest(&bytes)),
         packages: parsed.packages,
     })
+}
+
+/// Why a lockfile was not read, as the rest of a sentence that starts with its name.
+fn why_not_read(path: &Path, e: &std::io::Error) -> String {
+    let dangling = e.kind() == std::io::ErrorKind::NotFound
+        && std::fs::symlink_metadata(path).is_ok_and(|m| m.is_symlink());
+    if dangling {
+        "is a symbolic link to nothing (never read)".to_string()
+    } else {
+        crate::limits::refusal(e)
+    }
 }
 
 /// Reads the files a requirements file includes, relative to the file that names them, each

@@ -376,7 +376,12 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
     let t = opts.env.contains_key("RUNPRINT_TIMINGS");
     // git's status takes longest: it starts before anything else.
     let control = std::sync::Arc::new(git::GitControl::new(opts.env.get("PATH").cloned()));
-    let started = git::start_status(&opts.repo, &control);
+    // A FIFO or device where git reads (its index, a configuration include) would hold git
+    // and libgit2 forever: then neither starts, and the git collector reports the file.
+    let started = match git::preflight(&opts.repo) {
+        Some(_) => Ok(None),
+        None => git::start_status(&opts.repo, &control),
+    };
     let (work_tree, opened) = match git::work_tree(&opts.repo) {
         Some((root, repo)) => (Some((root, repo.path().join("index"))), Some(repo)),
         None => (None, None),
@@ -518,7 +523,10 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
 
     let mut warnings = Vec::new();
     match git_result {
-        Ok(facts) => content.git = facts.info,
+        Ok(facts) => {
+            content.git = facts.info;
+            warnings.extend(facts.warnings);
+        }
         Err(e) => warnings.push(e),
     }
     if let Some(cap) = opts.keep_patch.filter(|_| content.git.dirty) {
@@ -544,13 +552,21 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
         } else {
             system::hostname()
         },
-        warnings: warnings
-            .iter()
-            .cloned()
-            .chain(crate::cache::take_warnings())
-            .map(|w| scrub_secrets(&w))
-            .collect(),
+        warnings: dedup_warnings(
+            warnings
+                .iter()
+                .cloned()
+                .chain(crate::cache::take_warnings())
+                .map(|w| scrub_secrets(&w)),
+        ),
     };
     let manifest = Manifest::new_prepared(run, content, prepared.as_ref());
     (manifest, prepared)
+}
+
+/// Each warning once, in the order first given: the same problem met by two collectors (or
+/// by one file read for two lockfiles) is one line.
+fn dedup_warnings(all: impl Iterator<Item = String>) -> Vec<String> {
+    let mut seen = std::collections::HashSet::new();
+    all.filter(|w| seen.insert(w.clone())).collect()
 }

@@ -82,7 +82,7 @@ struct Built {
 
 /// The patch and what was left out of it.
 fn build(root: &Path, cap: u64) -> Result<Built, String> {
-    let repo = Repository::discover(root).map_err(|e| e.message().to_string())?;
+    let repo = crate::collect::git::discover(root).map_err(|e| e.message().to_string())?;
     let workdir = repo
         .workdir()
         .ok_or("the repository has no work tree")?
