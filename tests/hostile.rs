@@ -685,3 +685,27 @@ fn the_walk_outside_git_ignores_what_git_ignores() {
     assert!(ours.contains(&"keep/poetry.lock".to_string()));
     assert!(!ours.contains(&"build/requirements.txt".to_string()));
 }
+
+/// `cargo metadata` reads every member's `Cargo.toml` ("Workspaces", The Cargo Book): a FIFO
+/// member would hold it until its time limit. It is not started; the warning names the file.
+#[test]
+fn a_fifo_member_manifest_keeps_cargo_from_starting() {
+    if !cargo_on_path() {
+        return;
+    }
+    let repo = repo_with(&[
+        (
+            "Cargo.toml",
+            "[workspace]\nmembers = [\"member\"]\nresolver = \"2\"\n",
+        ),
+        ("Cargo.lock", "version = 4\n"),
+        ("member/src/lib.rs", ""),
+    ]);
+    common::mkfifo(&repo.path().join("member/Cargo.toml"));
+    let (m, _, _) = stamp_env(
+        repo.path(),
+        &["--rehash"],
+        &[("RUNPRINT_CHILD_TIMEOUT_SECS", "30")],
+    );
+    warned(&m, "member/Cargo.toml", "cargo would wait on");
+}

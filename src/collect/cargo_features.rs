@@ -235,7 +235,11 @@ fn refuse_special_inputs(dir: &Path, manifests: &[PathBuf]) -> Result<(), String
             folder.join("rust-toolchain"),
         ]
     });
-    let members = manifests.iter().filter(|m| m.starts_with(dir)).cloned();
+    let members = manifests
+        .iter()
+        .filter(|m| m.starts_with(dir))
+        .cloned()
+        .chain(declared_manifests(&start));
     for path in members.chain(configs) {
         let Ok(meta) = std::fs::metadata(&path) else {
             continue;
@@ -249,6 +253,68 @@ fn refuse_special_inputs(dir: &Path, manifests: &[PathBuf]) -> Result<(), String
         }
     }
     Ok(())
+}
+
+/// The `Cargo.toml` files the workspace at `dir` declares, whether or not git lists them (git
+/// never lists a FIFO): its `workspace.members` (globs expanded over folders, as cargo does)
+/// and the `path` of its dependencies ("Specifying dependencies", The Cargo Book). One level:
+/// a member's own path dependencies are not followed.
+fn declared_manifests(dir: &Path) -> Vec<PathBuf> {
+    let Ok(bytes) = crate::limits::read_regular_file(&dir.join("Cargo.toml")) else {
+        return Vec::new();
+    };
+    let Ok(doc) = toml::from_str::<toml::Table>(&String::from_utf8_lossy(&bytes)) else {
+        return Vec::new();
+    };
+    let mut folders: Vec<String> = Vec::new();
+    let members = doc
+        .get("workspace")
+        .and_then(|w| w.get("members"))
+        .and_then(|m| m.as_array());
+    for pattern in members.into_iter().flatten().filter_map(|m| m.as_str()) {
+        if !pattern.contains(['*', '?', '[']) {
+            folders.push(pattern.to_string());
+            continue;
+        }
+        let Ok(glob) = globset::GlobBuilder::new(pattern)
+            .literal_separator(true)
+            .build()
+        else {
+            continue;
+        };
+        let matcher = glob.compile_matcher();
+        let depth = pattern.split('/').count();
+        for entry in walkdir::WalkDir::new(dir)
+            .min_depth(1)
+            .max_depth(depth)
+            .into_iter()
+            .filter_map(Result::ok)
+            .filter(|e| e.file_type().is_dir())
+        {
+            if let Ok(rel) = entry.path().strip_prefix(dir) {
+                if matcher.is_match(rel) {
+                    folders.push(rel.to_string_lossy().into_owned());
+                }
+            }
+        }
+    }
+    let tables = ["dependencies", "dev-dependencies", "build-dependencies"];
+    let workspace_deps = doc.get("workspace").and_then(|w| w.get("dependencies"));
+    let deps = tables
+        .iter()
+        .filter_map(|t| doc.get(*t))
+        .chain(workspace_deps)
+        .filter_map(|t| t.as_table())
+        .flat_map(|t| t.values());
+    for dep in deps {
+        if let Some(path) = dep.get("path").and_then(|p| p.as_str()) {
+            folders.push(path.to_string());
+        }
+    }
+    folders
+        .into_iter()
+        .map(|f| dir.join(f).join("Cargo.toml"))
+        .collect()
 }
 
 /// The host triple from `cargo -vV`, or `None` when cargo is not on PATH.

@@ -955,6 +955,16 @@ mod tests {
         std::fs::set_permissions(path, std::fs::Permissions::from_mode(mode)).unwrap();
     }
 
+    /// Includes as git-config(1) ("Includes", "Conditional includes") writes them: a `path`
+    /// key in `[include]` or `[includeIf "…"]`, quoted or not, with a trailing comment.
+    #[test]
+    fn config_includes_are_found_in_every_form() {
+        let text = "[core]\n\tpath = not-an-include\n[include]\n\tpath = a.inc\n\
+                    [includeIf \"gitdir:~/work/\"]\n\tPath = \"~/b inc\" ; comment\n\
+                    [Include] path = c.inc # comment\n[user]\n\tname = x\n";
+        assert_eq!(config_includes(text), ["a.inc", "~/b inc", "c.inc"]);
+    }
+
     /// The lookup follows execvp(3) (POSIX `exec`: "the path prefix … is obtained by a search of
     /// the directories passed as the environment variable PATH"; a zero-length prefix is the
     /// current working directory): the first folder holding an executable file of that name.
