@@ -64,6 +64,7 @@ fn base() -> Content {
             redacted: vec!["BUOY_API_TOKEN".into()],
         },
         lockfiles: vec![Lockfile {
+            packages_omitted: None,
             path: "trainer/requirements.txt".into(),
             ecosystem: "pypi".into(),
             format_version: None,

@@ -102,6 +102,7 @@ fn node(i: usize) -> Manifest {
     py.sort_by(|a, b| a.name.cmp(&b.name));
     c.lockfiles = vec![
         Lockfile {
+            packages_omitted: None,
             path: "Cargo.lock".into(),
             ecosystem: "cargo".into(),
             format_version: Some("4".into()),
@@ -109,6 +110,7 @@ fn node(i: usize) -> Manifest {
             packages: packages("crate", 200, 1),
         },
         Lockfile {
+            packages_omitted: None,
             path: "trainer/requirements.txt".into(),
             ecosystem: "pypi".into(),
             format_version: None,

@@ -10,6 +10,7 @@ fn manifest(n: usize, bumped: bool) -> Manifest {
         .iter()
         .enumerate()
         .map(|(f, eco)| Lockfile {
+            packages_omitted: None,
             path: format!("svc{f}/lock"),
             ecosystem: eco.to_string(),
             format_version: None,

@@ -155,6 +155,7 @@ mod tests {
 
     fn lock(path: &str, features: &[&str]) -> Lockfile {
         Lockfile {
+            packages_omitted: None,
             path: path.into(),
             ecosystem: "cargo".into(),
             sha256: "x".into(),

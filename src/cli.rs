@@ -337,11 +337,21 @@ fn run_stamp(args: StampArgs) -> ExitStatus {
         StampFormat::Toml => ManifestFormat::Toml,
         StampFormat::Json => ManifestFormat::Json,
     };
+    let strict = args.collect.strict;
     let (manifest, prepared) = match args.collect.stamp_prepared(format == ManifestFormat::Toml) {
         Ok(m) => m,
         Err(code) => return code,
     };
-    let text = manifest.render_prepared(format, prepared.as_ref());
+    let (manifest, text, added) =
+        manifest.fit_within(format, prepared.as_ref(), crate::limits::max_file_bytes());
+    for w in &added {
+        eprintln!("warning: {}", crate::escape::printable(w));
+    }
+    if strict && !added.is_empty() {
+        return fail(
+            "packages were left out of the manifest and --strict was given; no manifest written",
+        );
+    }
     match args.out {
         Some(path) => {
             if let Err(e) = write_output(&path, text.as_bytes()) {
@@ -488,13 +498,19 @@ fn run_check(args: CheckArgs) -> ExitStatus {
         }
     } else {
         let repo = args.collect.repo.clone();
-        let current = match args.collect.stamp() {
+        let mut current = match args.collect.stamp() {
             Ok(m) => m,
             Err(code) => return code,
         };
         let current_name = match &args.save {
             Some(path) => {
-                let text = current.render(ManifestFormat::Toml);
+                // What is saved is what is compared.
+                let (fitted, text, added) =
+                    current.fit_within(ManifestFormat::Toml, None, crate::limits::max_file_bytes());
+                for w in &added {
+                    eprintln!("warning: {}", crate::escape::printable(w));
+                }
+                current = fitted;
                 if let Err(e) = write_output(path, text.as_bytes()) {
                     return fail(e);
                 }

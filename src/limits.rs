@@ -48,6 +48,25 @@ pub fn max_file_bytes() -> u64 {
         .unwrap_or(DEFAULT_MAX_FILE_BYTES)
 }
 
+/// The default largest number of packages recorded for one lockfile: 100,000, several times
+/// the largest real lockfiles (a big JavaScript monorepo resolves a few tens of thousands).
+/// Above it, the lockfile is recorded by its digest alone, so that a manifest and the memory
+/// needed to write and compare it stay bounded.
+pub const DEFAULT_MAX_PACKAGES: usize = 100_000;
+
+/// The environment variable that sets the package limit (a plain decimal integer).
+pub const MAX_PACKAGES_VAR: &str = "RUNPRINT_MAX_PACKAGES";
+
+/// The largest number of packages recorded for one lockfile, from [`MAX_PACKAGES_VAR`] when
+/// it holds a positive integer, else [`DEFAULT_MAX_PACKAGES`].
+pub fn max_packages() -> usize {
+    std::env::var(MAX_PACKAGES_VAR)
+        .ok()
+        .and_then(|v| v.trim().parse::<usize>().ok())
+        .filter(|&n| n > 0)
+        .unwrap_or(DEFAULT_MAX_PACKAGES)
+}
+
 /// The error for a file over the limit (`size` when known).
 pub(crate) fn too_large(size: Option<u64>, limit: u64) -> io::Error {
     let what = match size {

@@ -325,6 +325,36 @@ pub struct Lockfile {
     /// Packages, sorted by name then version.
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub packages: Vec<Package>,
+    /// How many packages the file holds when they were left out of the manifest (over the
+    /// package limit, [`crate::limits::max_packages`], or to keep the manifest under the size
+    /// that runprint reads); the file is then known by its digest alone.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub packages_omitted: Option<u64>,
+}
+
+impl Lockfile {
+    /// Leaves the packages out (keeping their count) when there are more than `limit`, with a
+    /// warning naming the file and the limit.
+    pub fn limit_packages(mut self, limit: usize, warnings: &mut Vec<String>) -> Lockfile {
+        if self.packages.len() > limit {
+            warnings.push(format!(
+                "lockfile `{}`: {} packages, over the {limit}-package limit; recorded by its \
+                 digest alone (set {} to raise the limit)",
+                self.path,
+                self.packages.len(),
+                crate::limits::MAX_PACKAGES_VAR
+            ));
+            self.omit_packages();
+        }
+        self
+    }
+
+    /// Leaves the packages out, keeping their count in `packages_omitted`.
+    pub fn omit_packages(&mut self) {
+        let n = self.packages.len() as u64 + self.packages_omitted.unwrap_or(0);
+        self.packages = Vec::new();
+        self.packages_omitted = Some(n);
+    }
 }
 
 /// One resolved package.
@@ -775,6 +805,7 @@ impl Content {
             }
         }
         let placeholder = Lockfile {
+            packages_omitted: None,
             path: unique.to_string(),
             ..Lockfile::default()
         };
@@ -867,6 +898,40 @@ impl Manifest {
             }
             _ => self.render(format),
         }
+    }
+
+    /// Renders the manifest (as [`Manifest::render_prepared`]) so that runprint can read it
+    /// back: while the text is larger than `limit` bytes (the size runprint reads,
+    /// [`crate::limits::max_file_bytes`]) and a lockfile still lists packages, the one with the
+    /// most packages is recorded by its digest alone, with a warning, and the fingerprint is
+    /// computed again. Returns the manifest as written, its text, and the warnings added.
+    pub fn fit_within(
+        mut self,
+        format: ManifestFormat,
+        prepared: Option<&Prepared>,
+        limit: u64,
+    ) -> (Manifest, String, Vec<String>) {
+        let mut text = self.render_prepared(format, prepared);
+        let mut added = Vec::new();
+        while text.len() as u64 > limit {
+            let biggest = (0..self.content.lockfiles.len())
+                .filter(|&i| !self.content.lockfiles[i].packages.is_empty())
+                .max_by_key(|&i| self.content.lockfiles[i].packages.len());
+            let Some(i) = biggest else { break };
+            let l = &mut self.content.lockfiles[i];
+            let warning = format!(
+                "lockfile `{}`: its {} packages were left out to keep the manifest under the \
+                 {limit}-byte limit for files runprint reads; recorded by its digest alone",
+                l.path,
+                l.packages.len()
+            );
+            l.omit_packages();
+            self.run.warnings.push(warning.clone());
+            added.push(warning);
+            self.fingerprint = self.content.fingerprint();
+            text = self.render(format);
+        }
+        (self, text, added)
     }
 
     /// The first 12 hex digits of the fingerprint, for people.
@@ -1092,6 +1157,7 @@ mod tests {
             .vars
             .insert("OMP_NUM_THREADS".into(), "4".into());
         content.lockfiles.push(Lockfile {
+            packages_omitted: None,
             path: "Cargo.lock".into(),
             ecosystem: "cargo".into(),
             format_version: Some("4".into()),

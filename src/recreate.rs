@@ -462,6 +462,7 @@ mod tests {
         assert_eq!(not_an_option("-P"), "./-P");
         assert_eq!(not_an_option("sub/dir"), "sub/dir");
         let l = Lockfile {
+            packages_omitted: None,
             path: "-P/Cargo.lock".into(),
             ..Lockfile::default()
         };

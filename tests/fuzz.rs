@@ -386,6 +386,7 @@ fn content() -> impl Strategy<Value = Content> {
     )
         .prop_map(
             |(path, ecosystem, format_version, sha256, packages)| Lockfile {
+                packages_omitted: None,
                 path,
                 ecosystem,
                 format_version,

@@ -709,3 +709,105 @@ fn a_fifo_member_manifest_keeps_cargo_from_starting() {
     );
     warned(&m, "member/Cargo.toml", "cargo would wait on");
 }
+
+// ---- Bounded size: package limit and manifests runprint can read back ----------------------
+
+/// `count` pinned requirements, one per line (pip's requirements-file format).
+fn pins(count: usize, patch: usize) -> String {
+    (0..count)
+        .map(|i| format!("pkg-{i}==1.0.{patch}\n"))
+        .collect()
+}
+
+/// Stamps `repo` into `out` with the given variables; returns the manifest and stderr.
+fn stamp_into(
+    repo: &std::path::Path,
+    out: &std::path::Path,
+    vars: &[(&str, &str)],
+) -> (Manifest, String) {
+    let o = runprint()
+        .args(["stamp", "--quiet", "--repo"])
+        .arg(repo)
+        .arg("--out")
+        .arg(out)
+        .envs(vars.iter().copied())
+        .output()
+        .unwrap();
+    let stderr = String::from_utf8_lossy(&o.stderr).into_owned();
+    assert_eq!(o.status.code(), Some(0), "{stderr}");
+    (Manifest::load(out).unwrap(), stderr)
+}
+
+#[test]
+fn a_lockfile_over_the_package_limit_is_known_by_digest_and_a_change_is_a_retrain() {
+    let limit = [("RUNPRINT_MAX_PACKAGES", "100")];
+    let repo = repo_with(&[
+        ("requirements.txt", &pins(120, 0)),
+        ("web/requirements.txt", &pins(5, 0)),
+    ]);
+    let scratch = tempfile::tempdir().unwrap();
+    let (old_path, new_path) = (
+        scratch.path().join("old.toml"),
+        scratch.path().join("new.toml"),
+    );
+    let (old, _) = stamp_into(repo.path(), &old_path, &limit);
+    warned(&old, "requirements.txt", "over the 100-package limit");
+    let big = &old.content.lockfiles[0];
+    assert_eq!(
+        (big.path.as_str(), big.packages.len(), big.packages_omitted),
+        ("requirements.txt", 0, Some(120))
+    );
+    // The small file keeps its packages; the digest is still the file's (sha256sum's).
+    assert_eq!(old.content.lockfiles[1].packages.len(), 5);
+    let text = std::fs::read_to_string(&old_path).unwrap();
+    assert!(text.contains("packages-omitted = 120"), "{text}");
+
+    // One pin changes inside the unrecorded list: nothing shows which, so it is a retrain.
+    write_files(repo.path(), &[("requirements.txt", &pins(120, 1))]);
+    git(repo.path(), &["commit", "-q", "-am", "bump"]);
+    let (_new, _) = stamp_into(repo.path(), &new_path, &limit);
+    let (code, report): (i32, serde_json::Value) =
+        common::diff_json(&old_path, &new_path, repo.path(), &[]);
+    assert_eq!(code, 4, "{report:#}");
+    let first = &report["changes"][0];
+    assert_eq!(first["subject"], "requirements.txt (pypi)", "{report:#}");
+    assert_eq!(first["impact"], "retrain");
+}
+
+#[test]
+fn a_manifest_too_large_to_read_back_is_fitted_and_diff_reads_it() {
+    // Files up to 64 KiB are read; the manifest of 2,000 pins would be about 120 KiB.
+    let limit = [("RUNPRINT_MAX_FILE_BYTES", "65536")];
+    let repo = repo_with(&[
+        ("requirements.txt", &pins(2000, 0)),
+        ("requirements-dev.txt", &pins(30, 0)),
+    ]);
+    let scratch = tempfile::tempdir().unwrap();
+    let out = scratch.path().join("m.toml");
+    let (m, stderr) = stamp_into(repo.path(), &out, &limit);
+    assert!(
+        stderr.contains("left out to keep the manifest under the 65536-byte limit"),
+        "{stderr}"
+    );
+    warned(&m, "`requirements.txt`", "left out to keep the manifest");
+    let size = std::fs::metadata(&out).unwrap().len();
+    assert!(size <= 65536, "{size} bytes");
+    // The other lockfile keeps its packages, and the fitted manifest is not "modified".
+    assert_eq!(m.content.lockfiles[0].packages.len(), 30);
+    assert!(!m.is_modified());
+    let (code, report): (i32, serde_json::Value) = {
+        let o = runprint()
+            .arg("diff")
+            .arg(&out)
+            .arg(&out)
+            .args(["--format", "json"])
+            .envs(limit.iter().copied())
+            .output()
+            .unwrap();
+        (
+            o.status.code().unwrap(),
+            serde_json::from_slice(&o.stdout).unwrap(),
+        )
+    };
+    assert_eq!((code, report["verdict"].as_str()), (0, Some("none")));
+}

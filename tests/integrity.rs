@@ -95,6 +95,7 @@ fn no_path_in_a_manifest_is_ever_opened() {
         let mut content = runprint::manifest::Content::default();
         for path in [sentinel.to_str().unwrap(), "requirements.txt", "Cargo.lock"] {
             content.lockfiles.push(runprint::manifest::Lockfile {
+                packages_omitted: None,
                 path: path.into(),
                 ecosystem: "pypi".into(),
                 sha256: "00".into(),

@@ -273,13 +273,17 @@ fn read_lockfile(
     if !parsed.includes.is_empty() {
         merge_includes(repo, tree, path, &mut parsed, warnings);
     }
-    Some(Lockfile {
-        path: path.to_string(),
-        ecosystem: format.ecosystem().to_string(),
-        format_version: parsed.format_version,
-        sha256: hex(&Sha256::digest(&bytes)),
-        packages: parsed.packages,
-    })
+    Some(
+        Lockfile {
+            packages_omitted: None,
+            path: path.to_string(),
+            ecosystem: format.ecosystem().to_string(),
+            format_version: parsed.format_version,
+            sha256: hex(&Sha256::digest(&bytes)),
+            packages: parsed.packages,
+        }
+        .limit_packages(crate::limits::max_packages(), warnings),
+    )
 }
 
 /// `name` in the folder of `path`.

@@ -468,13 +468,17 @@ fn read_one(
             }
         }
     }
-    Some(Lockfile {
-        path: shown.to_string(),
-        ecosystem: format.ecosystem().to_string(),
-        format_version: parsed.format_version,
-        sha256: hex(&Sha256::digest(&bytes)),
-        packages: parsed.packages,
-    })
+    Some(
+        Lockfile {
+            packages_omitted: None,
+            path: shown.to_string(),
+            ecosystem: format.ecosystem().to_string(),
+            format_version: parsed.format_version,
+            sha256: hex(&Sha256::digest(&bytes)),
+            packages: parsed.packages,
+        }
+        .limit_packages(crate::limits::max_packages(), warnings),
+    )
 }
 
 /// Why a lockfile was not read, as the rest of a sentence that starts with its name.

@@ -874,6 +874,29 @@ fn compare_lockfiles(old: &[Lockfile], new: &[Lockfile], ctx: &Context<'_>, out:
             oi.get(path).map(|&i| &old[i]),
             ni.get(path).map(|&i| &new[i]),
         ) {
+            (Some(a), Some(b))
+                if a.sha256 != b.sha256
+                    && (a.packages_omitted.is_some() || b.packages_omitted.is_some()) =>
+            {
+                let count = |l: &Lockfile| {
+                    Some(match l.packages_omitted {
+                        Some(n) => {
+                            format!("{n} packages (not recorded), {}", digest_short(&l.sha256))
+                        }
+                        None => {
+                            format!("{} packages, {}", l.packages.len(), digest_short(&l.sha256))
+                        }
+                    })
+                };
+                out.push(Change::from_rule(
+                    &rules::LOCK_UNRECORDED,
+                    "lockfiles",
+                    format!("{} ({})", b.path, b.ecosystem),
+                    "the lockfile changed, and its packages were left out of a manifest (over the package limit); compare the files themselves".to_string(),
+                    count(a),
+                    count(b),
+                ));
+            }
             (Some(a), Some(b)) => {
                 if a.sha256 != b.sha256 || a.packages != b.packages {
                     compare_packages(path, &b.ecosystem, &a.packages, &b.packages, ctx, out);
@@ -897,7 +920,14 @@ fn whole_lockfile(l: &Lockfile, added: bool, ctx: &Context<'_>) -> Change {
         .map(|p| p.name.as_str())
         .collect();
     let verb = if added { "added" } else { "removed" };
-    let (rule, lead) = if !numeric.is_empty() {
+    let (rule, lead) = if let Some(n) = l.packages_omitted {
+        (
+            &rules::LOCK_UNRECORDED,
+            format!(
+                "the lockfile was {verb} with {n} package(s), not recorded (over the package limit)"
+            ),
+        )
+    } else if !numeric.is_empty() {
         (
             &rules::LOCK_NUMERIC,
             format!(

@@ -223,6 +223,10 @@ rules! {
         "lockfile with other packages added or removed",
         "training may load its packages",
         "common practice";
+    LOCK_UNRECORDED = "lock.unrecorded", "lockfiles", Retrain, 70,
+        "lockfile changed whose packages were not recorded (over the package limit)",
+        "the manifest holds only its digest, so nothing shows that the change spares the packages that do the arithmetic",
+        "common practice";
     LOCK_EMPTY = "lock.empty", "lockfiles", None, 0,
         "empty lockfile added or removed",
         "it lists no packages",
