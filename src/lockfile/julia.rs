@@ -45,7 +45,11 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
             e.message().to_string(),
         )
     };
-    let table: toml::Table = toml::from_str(text).map_err(toml_err)?;
+    let mut table: toml::Table = toml::from_str(text).map_err(toml_err)?;
+    let julia_version = table
+        .get("julia_version")
+        .and_then(|v| v.as_str())
+        .map(str::to_string);
     let format = table.get("manifest_format").map(|v| match v {
         toml::Value::String(s) => s.clone(),
         other => other.to_string(),
@@ -53,8 +57,9 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
     let mut warnings = Vec::new();
     let deps = match format.as_deref() {
         None => {
-            // Old format: every top-level array of tables is a package name.
-            table.clone()
+            // Old format: every top-level array of tables is a package name. (Taken, not
+            // copied: a deep copy of every entry cost more than the parse itself.)
+            std::mem::take(&mut table)
         }
         Some(f) => {
             if f != "2.0" {
@@ -62,8 +67,8 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
                     "`{path}`: manifest_format {f} is not one this runprint knows (1.0, 2.0); packages were read as far as possible"
                 ));
             }
-            match table.get("deps") {
-                Some(toml::Value::Table(t)) => t.clone(),
+            match table.remove("deps") {
+                Some(toml::Value::Table(t)) => t,
                 None => toml::Table::new(),
                 Some(_) => {
                     return Err(LockfileError::at(
@@ -76,10 +81,10 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
         }
     };
     let mut packages = Vec::new();
-    if let Some(v) = table.get("julia_version").and_then(|v| v.as_str()) {
+    if let Some(v) = julia_version {
         packages.push(Package {
             name: "julia".into(),
-            version: v.to_string(),
+            version: v,
             ..Package::default()
         });
     }
