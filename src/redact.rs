@@ -828,6 +828,26 @@ pub fn has_url_credentials(text: &str) -> bool {
 /// RFC 6750 for `Bearer`) and netrc's `password` (GNU inetutils manual).
 const CREDENTIAL_BEFORE: &[&str] = &["bearer", "basic", "password", "passwd", "digest"];
 
+/// Whether `word` (lower-cased, trimmed) is shaped like the credentials of the weak scheme
+/// `scheme`: `Digest` parameters are `name=value` pairs (RFC 7616 section 3.4); `Basic`
+/// credentials are base64 (RFC 7617 section 2), which for any `user:password` holds a digit,
+/// `+`, `/` or `=`, or is long. The word comes lower-cased, so letter case cannot tell.
+fn scheme_credential(scheme: &str, word: &str) -> bool {
+    match scheme {
+        "digest" => word.contains('='),
+        _ => {
+            word.len() >= 4
+                && word
+                    .chars()
+                    .all(|c| c.is_ascii_alphanumeric() || matches!(c, '+' | '/' | '='))
+                && (word.len() >= 16
+                    || word
+                        .chars()
+                        .any(|c| c.is_ascii_digit() || matches!(c, '+' | '/' | '=')))
+        }
+    }
+}
+
 /// Marks of a private key outside a `-----BEGIN` block: a header written without its dashes
 /// (`BEGIN RSA PRIVATE KEY`) and PuTTY's key file header (PuTTY user manual, appendix C).
 const KEY_MARKS: &[&str] = &["PRIVATE KEY", "PuTTY-User-Key-File-"];
@@ -925,6 +945,9 @@ pub fn scrub_text(text: &str) -> (String, bool) {
     let mut out = String::with_capacity(text.len());
     // Walk the words (whitespace-separated), keeping the separators as they are.
     let mut redact_next = false;
+    // After `Basic` or `Digest`, which are also everyday words ("its digest alone", "a basic
+    // check"), only a word shaped like that scheme's credentials is redacted.
+    let mut after_scheme: Option<&'static str> = None;
     let mut key_seen = false;
     let mut prev_word = String::new();
     let mut rest = text.as_str();
@@ -957,6 +980,10 @@ pub fn scrub_text(text: &str) -> (String, bool) {
             continue;
         }
         let key_before = std::mem::take(&mut key_seen);
+        let weak = std::mem::take(&mut after_scheme);
+        if redact_next && weak.is_some_and(|w| !scheme_credential(w, &bare)) {
+            redact_next = false;
+        }
         if redact_next && !bare.is_empty() && !word.starts_with(REDACTED) && !scheme {
             found = true;
             redact_next = false;
@@ -970,6 +997,11 @@ pub fn scrub_text(text: &str) -> (String, bool) {
         if CREDENTIAL_BEFORE.contains(&lower_trim) || auth_token {
             out.push_str(word);
             redact_next = true;
+            after_scheme = match lower_trim {
+                "basic" => Some("basic"),
+                "digest" => Some("digest"),
+                _ => None,
+            };
             prev_word = bare;
             continue;
         }
@@ -1487,6 +1519,33 @@ pub fn content_free(message: &str) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// `Basic` and `Digest` name authorization schemes (RFC 7617, RFC 7616) and are also
+    /// everyday words: their credentials go, prose stays.
+    #[test]
+    fn basic_and_digest_take_only_credentials() {
+        let kept = [
+            "lockfile `x`: recorded by its digest alone",
+            "a basic check of the files",
+        ];
+        for t in kept {
+            assert_eq!(scrub_secrets(t), t);
+        }
+        for (t, secret) in [
+            ("Authorization: Basic dXNlcjpodW50ZXIy", "dXNlcjpodW50ZXIy"),
+            ("basic YWxhZGRpbjpvcGVuc2VzYW1l", "YWxhZGRpbjpvcGVuc2VzYW1l"),
+            (
+                "Authorization: Digest username=\"ci\", response=\"6629fae4\"",
+                "username",
+            ),
+        ] {
+            assert!(
+                !scrub_secrets(t).contains(secret),
+                "{t}: {}",
+                scrub_secrets(t)
+            );
+        }
+    }
 
     /// Found by the `requirements_txt` and `cargo_lock` fuzz targets: a character of several
     /// bytes (U+FEFF) just before a scheme cut a string inside it.
