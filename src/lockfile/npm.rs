@@ -58,14 +58,15 @@ struct JsonPackage {
     dev_optional: bool,
     #[serde(default)]
     link: bool,
+    // Only the names are used; the ranges are skipped without being stored.
     #[serde(default)]
-    dependencies: BTreeMap<String, serde_json::Value>,
+    dependencies: BTreeMap<String, serde::de::IgnoredAny>,
     #[serde(default)]
-    dev_dependencies: BTreeMap<String, serde_json::Value>,
+    dev_dependencies: BTreeMap<String, serde::de::IgnoredAny>,
     #[serde(default)]
-    optional_dependencies: BTreeMap<String, serde_json::Value>,
+    optional_dependencies: BTreeMap<String, serde::de::IgnoredAny>,
     #[serde(default)]
-    peer_dependencies: BTreeMap<String, serde_json::Value>,
+    peer_dependencies: BTreeMap<String, serde::de::IgnoredAny>,
     #[serde(default)]
     os: StringList,
     #[serde(default)]
