@@ -243,11 +243,19 @@ fn main() {
     println!("| input | entries | ms | entries (10x) | ms | time ratio |");
     println!("|---|---|---|---|---|---|");
     let mut worst: (f64, &str) = (0.0, "");
+    // `SCALING_ONLY=NAME` measures that lockfile format alone (for a profiler).
+    let only = std::env::var("SCALING_ONLY").ok();
     for (name, generate) in GENERATORS {
+        if only.as_deref().is_some_and(|o| o != *name) {
+            continue;
+        }
         let ratio = row(name, small, &lockfile_measure(name, *generate));
         if ratio > worst.0 {
             worst = (ratio, name);
         }
+    }
+    if only.is_some() {
+        return;
     }
     // The TOML crate alone on Julia's layout (one `[[deps.NAME]]` header per package), to
     // tell the crate's share from the parser's.

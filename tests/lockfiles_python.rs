@@ -483,3 +483,63 @@ fn conda_fixtures_are_found_and_read() {
         ["sha256:3f4365e11b28e244c95ba8579942b0802761ba7bb31c026f50d1a9ea9c728149"]
     );
 }
+
+/// Which requirement lines are whole requirements is decided as pip decides it: pip's own copy
+/// of the `packaging` library (`pip._vendor.packaging.requirements.Requirement`, the PEP 508
+/// parser pip uses for requirements files) is the reference. A line it refuses is a warning
+/// for that line alone, and the file's other pins are kept; a line it accepts is recorded.
+#[test]
+fn requirement_lines_are_accepted_as_pips_parser_accepts_them() {
+    let Some(python) = tool("python") else {
+        return;
+    };
+    let lines = [
+        "numpy==1.26.4 scipy==1.11.0",
+        "numpy == 1.26.4",
+        "requests (>=2.31, <3)",
+        "foo ==1.0 bar",
+        "torch>=2.1,<2.4",
+        "numpy==1 0",
+        "pkg===arbitrary",
+        "scipy ~= 1.11.0",
+        "tqdm >=4.66 <5",
+        "Demo_Pkg[extra]==0.3.1 ; python_version >= \"3.10\"",
+    ];
+    let script = "import sys, json\n\
+                  from pip._vendor.packaging.requirements import Requirement\n\
+                  out = []\n\
+                  for line in json.load(sys.stdin):\n\
+                  \x20   try:\n\
+                  \x20       Requirement(line); out.append(True)\n\
+                  \x20   except Exception:\n\
+                  \x20       out.append(False)\n\
+                  print(json.dumps(out))\n";
+    let mut child = Command::new(&python)
+        .args(["-c", script])
+        .stdin(std::process::Stdio::piped())
+        .stdout(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    use std::io::Write;
+    child
+        .stdin
+        .take()
+        .unwrap()
+        .write_all(serde_json::to_string(&lines).unwrap().as_bytes())
+        .unwrap();
+    let out = child.wait_with_output().unwrap();
+    assert!(out.status.success());
+    let pip_accepts: Vec<bool> = serde_json::from_slice(&out.stdout).unwrap();
+    // Both kinds occur, so the comparison is not trivial.
+    assert!(pip_accepts.contains(&true) && pip_accepts.contains(&false));
+    for (line, accepted) in lines.iter().zip(pip_accepts) {
+        let text = format!("{line}\nkept==1.0\n");
+        let parsed = Format::Requirements
+            .parse(&text, "requirements.txt")
+            .unwrap_or_else(|e| panic!("{line}: the whole file was refused: {e}"));
+        let recorded = parsed.packages.len() == 2;
+        assert_eq!(recorded, accepted, "{line}: {:?}", parsed.warnings);
+        assert_eq!(parsed.warnings.is_empty(), accepted, "{line}");
+        assert!(parsed.packages.iter().any(|p| p.name == "kept"), "{line}");
+    }
+}
