@@ -41,11 +41,15 @@ pub const MAX_FILE_BYTES_VAR: &str = "RUNPRINT_MAX_FILE_BYTES";
 /// The largest file runprint reads, from [`MAX_FILE_BYTES_VAR`] when it holds a positive
 /// integer, else [`DEFAULT_MAX_FILE_BYTES`].
 pub fn max_file_bytes() -> u64 {
-    std::env::var(MAX_FILE_BYTES_VAR)
+    positive_var(MAX_FILE_BYTES_VAR).unwrap_or(DEFAULT_MAX_FILE_BYTES)
+}
+
+/// The positive integer an environment variable holds, if it holds one.
+fn positive_var<T: std::str::FromStr + PartialOrd + Default>(name: &str) -> Option<T> {
+    std::env::var(name)
         .ok()
-        .and_then(|v| v.trim().parse::<u64>().ok())
-        .filter(|&n| n > 0)
-        .unwrap_or(DEFAULT_MAX_FILE_BYTES)
+        .and_then(|v| v.trim().parse::<T>().ok())
+        .filter(|n| *n > T::default())
 }
 
 /// The default largest number of packages recorded for one lockfile: 100,000, several times
@@ -60,11 +64,7 @@ pub const MAX_PACKAGES_VAR: &str = "RUNPRINT_MAX_PACKAGES";
 /// The largest number of packages recorded for one lockfile, from [`MAX_PACKAGES_VAR`] when
 /// it holds a positive integer, else [`DEFAULT_MAX_PACKAGES`].
 pub fn max_packages() -> usize {
-    std::env::var(MAX_PACKAGES_VAR)
-        .ok()
-        .and_then(|v| v.trim().parse::<usize>().ok())
-        .filter(|&n| n > 0)
-        .unwrap_or(DEFAULT_MAX_PACKAGES)
+    positive_var(MAX_PACKAGES_VAR).unwrap_or(DEFAULT_MAX_PACKAGES)
 }
 
 /// The error for a file over the limit (`size` when known).

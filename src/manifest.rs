@@ -333,6 +333,26 @@ pub struct Lockfile {
 }
 
 impl Lockfile {
+    /// The entry for a lockfile at `path` (as shown) of `format`, parsed from `bytes`: its
+    /// digest, and its packages unless there are more than [`crate::limits::max_packages`].
+    pub fn from_parsed(
+        path: &str,
+        format: crate::lockfile::Format,
+        parsed: crate::lockfile::Parsed,
+        bytes: &[u8],
+        warnings: &mut Vec<String>,
+    ) -> Lockfile {
+        Lockfile {
+            path: path.to_string(),
+            ecosystem: format.ecosystem().to_string(),
+            format_version: parsed.format_version,
+            sha256: hex(&Sha256::digest(bytes)),
+            packages: parsed.packages,
+            packages_omitted: None,
+        }
+        .limit_packages(crate::limits::max_packages(), warnings)
+    }
+
     /// Leaves the packages out (keeping their count) when there are more than `limit`, with a
     /// warning naming the file and the limit.
     pub fn limit_packages(mut self, limit: usize, warnings: &mut Vec<String>) -> Lockfile {

@@ -13,10 +13,9 @@
 use std::collections::HashSet;
 
 use git2::{ObjectType, Repository, Tree, TreeWalkMode, TreeWalkResult};
-use sha2::{Digest, Sha256};
 
 use crate::lockfile::{requirements, Format, Include, Parsed};
-use crate::manifest::{hex, GitInfo, Lockfile, Submodule};
+use crate::manifest::{GitInfo, Lockfile, Submodule};
 
 /// What a revision holds.
 #[derive(Debug)]
@@ -273,17 +272,9 @@ fn read_lockfile(
     if !parsed.includes.is_empty() {
         merge_includes(repo, tree, path, &mut parsed, warnings);
     }
-    Some(
-        Lockfile {
-            packages_omitted: None,
-            path: path.to_string(),
-            ecosystem: format.ecosystem().to_string(),
-            format_version: parsed.format_version,
-            sha256: hex(&Sha256::digest(&bytes)),
-            packages: parsed.packages,
-        }
-        .limit_packages(crate::limits::max_packages(), warnings),
-    )
+    Some(Lockfile::from_parsed(
+        path, format, parsed, &bytes, warnings,
+    ))
 }
 
 /// `name` in the folder of `path`.

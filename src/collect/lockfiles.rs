@@ -8,12 +8,10 @@
 use std::collections::HashSet;
 use std::path::{Path, PathBuf};
 
-use sha2::{Digest, Sha256};
-
 use crate::collect::cargo_features;
 use crate::collect::lockfile_cache::{self as cache, Inputs, LockfileCache};
 use crate::lockfile::{cargo, requirements, Format, Parsed};
-use crate::manifest::{hex, Lockfile};
+use crate::manifest::Lockfile;
 
 /// Folder names never descended into.
 pub(crate) const SKIPPED_DIRS: &[&str] = &[
@@ -468,17 +466,9 @@ fn read_one(
             }
         }
     }
-    Some(
-        Lockfile {
-            packages_omitted: None,
-            path: shown.to_string(),
-            ecosystem: format.ecosystem().to_string(),
-            format_version: parsed.format_version,
-            sha256: hex(&Sha256::digest(&bytes)),
-            packages: parsed.packages,
-        }
-        .limit_packages(crate::limits::max_packages(), warnings),
-    )
+    Some(Lockfile::from_parsed(
+        shown, format, parsed, &bytes, warnings,
+    ))
 }
 
 /// Why a lockfile was not read, as the rest of a sentence that starts with its name.
