@@ -232,18 +232,30 @@ fn packages(lockfiles: &[Lockfile], out: &mut String) {
         let outside = l.path.starts_with('/') || l.path.starts_with("../");
         let _ = writeln!(
             out,
-            "# {} ({}, {} package(s){})",
+            "# {} ({}, {}{})",
             comment(&l.path),
             comment(&l.ecosystem),
-            l.packages.len(),
+            match l.packages_omitted {
+                Some(n) => format!("{n} package(s), not recorded in the manifest"),
+                None => format!("{} package(s)", l.packages.len()),
+            },
             if outside {
                 "; outside the repository, so not restored by the checkout"
             } else {
                 ""
             }
         );
-        if l.ecosystem == "pypi" {
+        if l.ecosystem == "pypi" && l.packages_omitted.is_none() {
             pip_pins(l, out);
+            continue;
+        }
+        if l.ecosystem == "pypi" && !name.starts_with("requirements") {
+            // Its pins are only in the file, which the checkout restores; the other Python
+            // formats are each installed by their own tool.
+            let _ = writeln!(
+                out,
+                "# install from the file itself with the tool that wrote it (its packages were not recorded)"
+            );
             continue;
         }
         let Some(dir) = folder(l) else { continue };
@@ -278,6 +290,8 @@ fn packages(lockfiles: &[Lockfile], out: &mut String) {
                 format!("conda env create --file {file}")
             }
             ("conda", _) => format!("conda create --yes --name runprint-recreated --file {file}"),
+            // A requirements file whose pins were not recorded: the checkout restores it.
+            ("pypi", _) => format!("python -m pip install -r {file}"),
             (other, _) => format!("# no locked install known for ecosystem {}", comment(other)),
         };
         let _ = writeln!(out, "{step}");
@@ -497,5 +511,31 @@ mod tests {
             pip_requirement(&url).unwrap(),
             "'numpy @ git+https://example.invalid/lib.git@v1'"
         );
+    }
+
+    #[test]
+    fn a_lockfile_without_recorded_packages_is_installed_from_the_file() {
+        let l = |path: &str, eco: &str| Lockfile {
+            path: path.into(),
+            ecosystem: eco.into(),
+            packages_omitted: Some(150_000),
+            ..Lockfile::default()
+        };
+        let mut out = String::new();
+        packages(
+            &[
+                l("requirements.txt", "pypi"),
+                l("uv.lock", "pypi"),
+                l("web/package-lock.json", "npm"),
+            ],
+            &mut out,
+        );
+        assert!(out.contains("150000 package(s), not recorded"), "{out}");
+        assert!(
+            out.contains("python -m pip install -r requirements.txt\n"),
+            "{out}"
+        );
+        assert!(out.contains("(cd web && npm ci)"), "{out}");
+        assert!(!out.contains("=="), "{out}");
     }
 }
