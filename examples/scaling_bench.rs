@@ -201,6 +201,13 @@ fn median(runs: usize, mut f: impl FnMut()) -> f64 {
 }
 
 /// Runs a measurement at `small` and ten times `small` entries and prints one row.
+/// Keeps the largest ratio seen, with its input's name.
+fn keep_worst<'a>(worst: &mut (f64, &'a str), ratio: f64, name: &'a str) {
+    if ratio > worst.0 {
+        *worst = (ratio, name);
+    }
+}
+
 fn row(name: &str, small: usize, measure: &dyn Fn(usize) -> (usize, f64)) -> f64 {
     let (count_small, t_small) = measure(small);
     let (count_large, t_large) = measure(small * 10);
@@ -251,9 +258,7 @@ fn main() {
             continue;
         }
         let ratio = row(name, small, &lockfile_measure(name, *generate));
-        if ratio > worst.0 {
-            worst = (ratio, name);
-        }
+        keep_worst(&mut worst, ratio, name);
     }
     if only
         .as_deref()
@@ -300,10 +305,11 @@ fn main() {
         (n, t)
     };
     if only.as_deref() != Some("policy") {
-        let r = row("manifest (TOML)", small, &manifest);
-        if r > worst.0 {
-            worst = (r, "manifest");
-        }
+        keep_worst(
+            &mut worst,
+            row("manifest (TOML)", small, &manifest),
+            "manifest",
+        );
     }
     // The policy file: n `[[accept]]` entries.
     let policy = |n: usize| {
@@ -323,10 +329,11 @@ fn main() {
         (n, t)
     };
     if only.as_deref() != Some("manifest") {
-        let r = row("runprint.toml [[accept]]", small, &policy);
-        if r > worst.0 {
-            worst = (r, "policy");
-        }
+        keep_worst(
+            &mut worst,
+            row("runprint.toml [[accept]]", small, &policy),
+            "policy",
+        );
     }
     println!(
         "\nworst ratio: {:.1}x ({}); target: at most about 12x",

@@ -342,11 +342,7 @@ fn run_stamp(args: StampArgs) -> ExitStatus {
         Ok(m) => m,
         Err(code) => return code,
     };
-    let (manifest, text, added) =
-        manifest.fit_within(format, prepared.as_ref(), crate::limits::max_file_bytes());
-    for w in &added {
-        eprintln!("warning: {}", crate::escape::printable(w));
-    }
+    let (manifest, text, added) = fit_for_reading(manifest, format, prepared.as_ref());
     if strict && !added.is_empty() {
         return fail(
             "packages were left out of the manifest and --strict was given; no manifest written",
@@ -370,6 +366,20 @@ fn run_stamp(args: StampArgs) -> ExitStatus {
         }
     }
     EXIT_NONE
+}
+
+/// The manifest's text within the size runprint reads ([`Manifest::fit_within`]), printing a
+/// warning for each package list left out; returns those warnings too.
+fn fit_for_reading(
+    manifest: Manifest,
+    format: ManifestFormat,
+    prepared: Option<&Prepared>,
+) -> (Manifest, String, Vec<String>) {
+    let fitted = manifest.fit_within(format, prepared, crate::limits::max_file_bytes());
+    for w in &fitted.2 {
+        eprintln!("warning: {}", crate::escape::printable(w));
+    }
+    fitted
 }
 
 fn run_policy_check(file: Option<PathBuf>) -> ExitStatus {
@@ -505,11 +515,7 @@ fn run_check(args: CheckArgs) -> ExitStatus {
         let current_name = match &args.save {
             Some(path) => {
                 // What is saved is what is compared.
-                let (fitted, text, added) =
-                    current.fit_within(ManifestFormat::Toml, None, crate::limits::max_file_bytes());
-                for w in &added {
-                    eprintln!("warning: {}", crate::escape::printable(w));
-                }
+                let (fitted, text, _) = fit_for_reading(current, ManifestFormat::Toml, None);
                 current = fitted;
                 if let Err(e) = write_output(path, text.as_bytes()) {
                     return fail(e);

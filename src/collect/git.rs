@@ -627,13 +627,23 @@ fn submodules(repo: &Repository) -> Vec<Submodule> {
 /// [`preflight`] has found nothing that would make git or libgit2 wait forever; what it found
 /// is the error's message.
 pub fn discover(dir: &Path) -> Result<Repository, git2::Error> {
-    if let Some(problem) = preflight(dir) {
-        return Err(git2::Error::new(
+    let checked = preflight(dir).map_err(|problem| {
+        git2::Error::new(
             git2::ErrorCode::GenericError,
             git2::ErrorClass::Repository,
             problem,
-        ));
-    }
+        )
+    })?;
+    discover_checked(dir, &checked)
+}
+
+/// Proof that [`preflight`] found nothing in the repository containing a folder: what lets
+/// [`work_tree`] open it without looking again.
+#[derive(Debug)]
+pub struct Checked(());
+
+/// [`Repository::discover`] once [`preflight`] has passed.
+fn discover_checked(dir: &Path, _: &Checked) -> Result<Repository, git2::Error> {
     Repository::discover(dir)
 }
 
@@ -674,8 +684,16 @@ const MAX_INCLUDE_DEPTH: usize = 10;
 /// to [`MAX_INCLUDE_DEPTH`]) and the work tree's top `.gitignore`. A FIFO, socket or device
 /// among them would make libgit2 (in this process, where no timeout can stop it) or `git`
 /// wait forever; such a file, and a `.git` file that leads nowhere, is returned as a message
-/// naming it. `None`: nothing found (or no `.git` above `dir`: libgit2 decides).
-pub fn preflight(dir: &Path) -> Option<String> {
+/// naming it. `Ok`: nothing found (or no `.git` above `dir`: libgit2 decides).
+pub fn preflight(dir: &Path) -> Result<Checked, String> {
+    match first_blocking(dir) {
+        Some(problem) => Err(problem),
+        None => Ok(Checked(())),
+    }
+}
+
+/// [`preflight`]'s search: the first problem found, if any.
+fn first_blocking(dir: &Path) -> Option<String> {
     let start = std::path::absolute(dir).unwrap_or_else(|_| dir.to_path_buf());
     for folder in start.ancestors() {
         let dotgit = folder.join(".git");
@@ -890,9 +908,9 @@ fn include_path(line: &str) -> Option<String> {
 
 /// The work tree that contains `dir`: its root, and the repository opened once (its index is
 /// the `index` file of [`Repository::path`]; [`collect`] takes it). `None` outside a
-/// repository or in a bare one.
-pub fn work_tree(dir: &Path) -> Option<(PathBuf, Repository)> {
-    let repo = discover(dir).ok()?;
+/// repository or in a bare one. `checked` is [`preflight`]'s answer for `dir`.
+pub fn work_tree(dir: &Path, checked: &Checked) -> Option<(PathBuf, Repository)> {
+    let repo = discover_checked(dir, checked).ok()?;
     let root = repo.workdir()?.to_path_buf();
     Some((root, repo))
 }

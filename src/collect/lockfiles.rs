@@ -131,11 +131,7 @@ pub fn discover_all(root: &Path, warnings: &mut Vec<String>) -> (Vec<PathBuf>, V
         }
         if Format::detect(name).is_some() {
             if rel.to_str().is_none() {
-                warnings.push(format!(
-                    "lockfile `{}`: its path is not UTF-8 and cannot be written to a manifest; \
-                     not read",
-                    crate::escape::printable(&rel.to_string_lossy())
-                ));
+                warnings.push(not_utf8(&rel.to_string_lossy()));
                 continue;
             }
             found.push(rel.to_path_buf());
@@ -143,6 +139,14 @@ pub fn discover_all(root: &Path, warnings: &mut Vec<String>) -> (Vec<PathBuf>, V
     }
     found.sort();
     (found, cargo_manifests)
+}
+
+/// The warning for a lockfile whose path (`shown`, invalid bytes replaced) is not UTF-8.
+fn not_utf8(shown: &str) -> String {
+    format!(
+        "lockfile `{}`: its path is not UTF-8 and cannot be written to a manifest; not read",
+        crate::escape::printable(shown)
+    )
 }
 
 /// The gitignore patterns of `file` (matched relative to `dir`), read without following a
@@ -214,11 +218,7 @@ fn from_listing(
             if !gone {
                 found.push(PathBuf::from(f));
             } else if f.contains('\u{FFFD}') {
-                warnings.push(format!(
-                    "lockfile `{}`: its path is not UTF-8 and cannot be written to a manifest; \
-                     not read",
-                    crate::escape::printable(f)
-                ));
+                warnings.push(not_utf8(f));
             }
         }
     }

@@ -378,11 +378,12 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
     let control = std::sync::Arc::new(git::GitControl::new(opts.env.get("PATH").cloned()));
     // A FIFO or device where git reads (its index, a configuration include) would hold git
     // and libgit2 forever: then neither starts, and the git collector reports the file.
-    let started = match git::preflight(&opts.repo) {
-        Some(_) => Ok(None),
-        None => git::start_status(&opts.repo, &control),
+    let checked = git::preflight(&opts.repo).ok();
+    let started = match &checked {
+        None => Ok(None),
+        Some(_) => git::start_status(&opts.repo, &control),
     };
-    let (work_tree, opened) = match git::work_tree(&opts.repo) {
+    let (work_tree, opened) = match checked.and_then(|c| git::work_tree(&opts.repo, &c)) {
         Some((root, repo)) => (Some((root, repo.path().join("index"))), Some(repo)),
         None => (None, None),
     };

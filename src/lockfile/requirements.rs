@@ -99,15 +99,13 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
         if line.starts_with('-') {
             continue;
         }
-        match requirement(line, path, line_no) {
-            Ok(p) => packages.push(p),
+        match requirement(line, path, line_no)? {
+            Line::Package(p) => packages.push(p),
             // A specifier pip would refuse (two requirements on one line, a stray word) is
             // that line's problem alone: the file's other pins are kept.
-            Err(e) if e.message.starts_with(BAD_SPECIFIER) => warnings.push(format!(
-                "`{path}`, line {line_no}: {}; not recorded",
-                e.message
+            Line::Refused(why) => warnings.push(format!(
+                "`{path}`, line {line_no}: not a requirement pip reads: {why}; not recorded"
             )),
-            Err(e) => return Err(e),
         }
     }
     crate::lockfile::python::sort_packages(&mut packages);
@@ -206,7 +204,14 @@ fn split_marker(req: &str) -> (&str, Option<&str>) {
     }
 }
 
-fn requirement(line: &str, path: &str, line_no: usize) -> Result<Package, LockfileError> {
+/// What a requirement line gives: a package, or a refusal of that line alone (a specifier pip
+/// would refuse) with its reason. Damage that makes the file unreadable is an error.
+enum Line {
+    Package(Package),
+    Refused(String),
+}
+
+fn requirement(line: &str, path: &str, line_no: usize) -> Result<Line, LockfileError> {
     let err = |m: String| LockfileError::at(path, Some(line_no), m);
     // Split off `--hash` options, which pip allows after the requirement.
     let mut hashes = Vec::new();
@@ -251,7 +256,7 @@ fn requirement(line: &str, path: &str, line_no: usize) -> Result<Package, Lockfi
         if url.is_empty() {
             return Err(err(format!("`{name} @` has no URL")));
         }
-        return Ok(Package {
+        return Ok(Line::Package(Package {
             name: normalize_name(name),
             version: archive_name_version(url)
                 .map(|(_, v)| v)
@@ -260,7 +265,7 @@ fn requirement(line: &str, path: &str, line_no: usize) -> Result<Package, Lockfi
             hashes,
             platform,
             ..Package::default()
-        });
+        }));
     }
 
     // A bare URL, VCS URL or path.
@@ -275,14 +280,14 @@ fn requirement(line: &str, path: &str, line_no: usize) -> Result<Package, Lockfi
                     scrub_url_credentials(req)
                 ))
             })?;
-        return Ok(Package {
+        return Ok(Line::Package(Package {
             name: normalize_name(&name),
             version: from_file.map(|(_, v)| v).unwrap_or_default(),
             source: Some(scrub_url_credentials(req)),
             hashes,
             platform,
             ..Package::default()
-        });
+        }));
     }
 
     let name_end = req
@@ -317,41 +322,36 @@ fn requirement(line: &str, path: &str, line_no: usize) -> Result<Package, Lockfi
     if let Some(inner) = spec.strip_prefix('(').and_then(|s| s.strip_suffix(')')) {
         spec = inner.to_string();
     }
+    // A bare `==` is a line cut short (a truncated file), not a specifier to skip.
     if spec == "==" {
         return Err(err(format!("`{name}==` has no version")));
     }
     if split_word || !is_specifier_list(&spec) {
-        let words = rest.split_whitespace().count();
-        return Err(err(
-            if words > 1 && rest.split_whitespace().nth(1).is_some_and(starts_with_name) {
-                format!("{BAD_SPECIFIER}: more than one requirement on the line (pip reads one per line)")
+        return Ok(Line::Refused(
+            if rest.split_whitespace().nth(1).is_some_and(starts_with_name) {
+                "more than one requirement on the line (pip reads one per line)".to_string()
             } else {
-                format!("{BAD_SPECIFIER}: the version specifier of `{name}` is not PEP 440")
+                format!("the version specifier of `{name}` is not PEP 440")
             },
         ));
     }
     let version = if let Some(v) = spec.strip_prefix("===") {
         v.to_string()
     } else if let Some(v) = spec.strip_prefix("==") {
-        if v.is_empty() {
-            return Err(err(format!("`{name}==` has no version")));
-        }
+        // Not empty: a bare `==` was refused above as a cut line.
         v.to_string()
     } else {
         // Unpinned: keep the specifier itself so that a change is still visible.
         spec
     };
-    Ok(Package {
+    Ok(Line::Package(Package {
         name: normalize_name(name),
         version,
         hashes,
         platform,
         ..Package::default()
-    })
+    }))
 }
-
-/// How a line-level specifier error starts (the parser keeps the rest of the file).
-const BAD_SPECIFIER: &str = "not a requirement pip reads";
 
 /// Does a word start like a distribution name (a letter or digit)?
 fn starts_with_name(word: &str) -> bool {
@@ -379,7 +379,6 @@ fn is_specifier_list(spec: &str) -> bool {
                     && v.chars().all(|c| {
                         c.is_ascii_alphanumeric() || matches!(c, '.' | '*' | '+' | '!' | '-' | '_')
                     })
-                    && !v.contains("==")
             }
             None => false,
         }
