@@ -8,16 +8,23 @@
 //!
 //! [paths]                        # globs (globset syntax) relative to the repository root
 //! code = ["src/**"]              # a path takes the first class that matches, in the order
-//! config = ["experiments/*.py"]  # irrelevant, docs, data, config, code; unmatched paths
-//! data = ["fixtures/**"]         # fall back to the built-in defaults
-//! docs = ["notes/**"]
-//! irrelevant = ["notebooks/**"]
+//! config = ["experiments/*.py"]  # irrelevant, docs, metadata, notebooks, ci, tests, build,
+//! data = ["fixtures/**"]         # dependencies, data, config, code; unmatched paths fall
+//! docs = ["notes/**"]            # back to the built-in defaults
+//! irrelevant = ["scratch/**"]
+//! tests = ["qa/**"]
+//! ci = []
+//! build = []
+//! notebooks = []
+//! metadata = []
+//! dependencies = []
 //!
 //! [packages]                     # globs over package names, case-insensitive
 //! numeric = ["kelp-kernels"]     # treated as numerical libraries
 //! compiled = ["fastparse"]       # unknown, ships compiled code
 //! pure = ["our-utils"]           # unknown, pure script code
 //! tooling = ["internal-logger"]  # demoted: never affects results
+//! infrastructure = ["kelp-rpc"]  # demoted: networking, telemetry, never affects results
 //!
 //! [env]                          # globs over variable names, case-sensitive
 //! precision = ["KELP_MATMUL_MODE"]
@@ -25,7 +32,16 @@
 //! determinism = []
 //! kernels = []
 //! loader = []
-//! irrelevant = ["TORCH_HOME"]
+//! collectives = []
+//! devices = []
+//! cache = ["KELP_CACHE"]
+//! logging = []
+//! irrelevant = ["KELP_UI_THEME"]
+//!
+//! [scope]                        # the training job: what it runs and reads (see below)
+//! entry = ["train.py", "kelp.train"]  # entry points: files or Python modules
+//! lockfiles = ["requirements.txt"]    # the lockfiles it installs from (default: all)
+//! reads = ["configs/**", "data/**"]   # globs of configuration and data it reads
 //!
 //! [[accept]]                     # a known change, accepted until a date
 //! subject = "env OMP_NUM_THREADS" # a glob over the change's subject
@@ -51,7 +67,7 @@ use globset::{Glob, GlobBuilder, GlobSet, GlobSetBuilder};
 use serde::Deserialize;
 use toml::Spanned;
 
-use crate::diff::Impact;
+use crate::classes::Impact;
 
 /// The name of the policy file at a repository's root.
 pub const POLICY_FILE: &str = "runprint.toml";
@@ -96,50 +112,7 @@ pub enum FailOn {
     Never,
 }
 
-/// Classes of paths a policy can name.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum PathClassName {
-    /// Training code.
-    Code,
-    /// Configuration.
-    Config,
-    /// Data.
-    Data,
-    /// Documentation.
-    Docs,
-    /// Not read by training.
-    Irrelevant,
-}
-
-/// Classes of packages a policy can name.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum PackageClassName {
-    /// Does numerical work.
-    Numeric,
-    /// Ships compiled code.
-    Compiled,
-    /// Pure script code.
-    Pure,
-    /// Development tooling: never affects results.
-    Tooling,
-}
-
-/// Classes of environment variables a policy can name.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum EnvClass {
-    /// Changes floating-point precision: retrain.
-    Precision,
-    /// Thread counts or placement: verify.
-    Threads,
-    /// Determinism switches: verify.
-    Determinism,
-    /// Kernel choice: verify.
-    Kernels,
-    /// Library search paths: verify.
-    Loader,
-    /// Does not affect results.
-    Irrelevant,
-}
+pub use crate::classes::{EnvClass, PackageClass, PathClass};
 
 /// One accepted change.
 #[derive(Debug, Clone)]
@@ -183,8 +156,8 @@ pub struct Policy {
     pub path: Option<PathBuf>,
     /// Which verdict makes `diff` exit non-zero.
     pub fail_on: FailOn,
-    paths: Vec<(PathClassName, GlobSet)>,
-    packages: Vec<(PackageClassName, GlobSet)>,
+    paths: Vec<(PathClass, GlobSet)>,
+    packages: Vec<(PackageClass, GlobSet)>,
     env: Vec<(EnvClass, GlobSet)>,
     /// Accepted changes.
     pub accept: Vec<Acceptance>,
@@ -222,6 +195,18 @@ struct PathsFile {
     docs: Globs,
     #[serde(default)]
     irrelevant: Globs,
+    #[serde(default)]
+    tests: Globs,
+    #[serde(default)]
+    ci: Globs,
+    #[serde(default)]
+    build: Globs,
+    #[serde(default)]
+    notebooks: Globs,
+    #[serde(default)]
+    metadata: Globs,
+    #[serde(default)]
+    dependencies: Globs,
 }
 
 #[derive(Deserialize, Default)]
@@ -235,6 +220,8 @@ struct PackagesFile {
     pure: Globs,
     #[serde(default)]
     tooling: Globs,
+    #[serde(default)]
+    infrastructure: Globs,
 }
 
 #[derive(Deserialize, Default)]
@@ -250,6 +237,14 @@ struct EnvFile {
     kernels: Globs,
     #[serde(default)]
     loader: Globs,
+    #[serde(default)]
+    collectives: Globs,
+    #[serde(default)]
+    devices: Globs,
+    #[serde(default)]
+    cache: Globs,
+    #[serde(default)]
+    logging: Globs,
     #[serde(default)]
     irrelevant: Globs,
 }
@@ -384,20 +379,35 @@ impl Policy {
         };
         let p = &file.paths;
         for (class, list, key) in [
-            (PathClassName::Irrelevant, &p.irrelevant, "paths.irrelevant"),
-            (PathClassName::Docs, &p.docs, "paths.docs"),
-            (PathClassName::Data, &p.data, "paths.data"),
-            (PathClassName::Config, &p.config, "paths.config"),
-            (PathClassName::Code, &p.code, "paths.code"),
+            (PathClass::Irrelevant, &p.irrelevant, "paths.irrelevant"),
+            (PathClass::Docs, &p.docs, "paths.docs"),
+            (PathClass::Metadata, &p.metadata, "paths.metadata"),
+            (PathClass::Notebooks, &p.notebooks, "paths.notebooks"),
+            (PathClass::Ci, &p.ci, "paths.ci"),
+            (PathClass::Tests, &p.tests, "paths.tests"),
+            (PathClass::Build, &p.build, "paths.build"),
+            (
+                PathClass::Dependencies,
+                &p.dependencies,
+                "paths.dependencies",
+            ),
+            (PathClass::Data, &p.data, "paths.data"),
+            (PathClass::Config, &p.config, "paths.config"),
+            (PathClass::Code, &p.code, "paths.code"),
         ] {
             policy.paths.push((class, globs(list, key, false)?));
         }
         let k = &file.packages;
         for (class, list, key) in [
-            (PackageClassName::Tooling, &k.tooling, "packages.tooling"),
-            (PackageClassName::Numeric, &k.numeric, "packages.numeric"),
-            (PackageClassName::Compiled, &k.compiled, "packages.compiled"),
-            (PackageClassName::Pure, &k.pure, "packages.pure"),
+            (PackageClass::Tooling, &k.tooling, "packages.tooling"),
+            (
+                PackageClass::Infrastructure,
+                &k.infrastructure,
+                "packages.infrastructure",
+            ),
+            (PackageClass::Numeric, &k.numeric, "packages.numeric"),
+            (PackageClass::Compiled, &k.compiled, "packages.compiled"),
+            (PackageClass::Pure, &k.pure, "packages.pure"),
         ] {
             policy.packages.push((class, globs(list, key, true)?));
         }
@@ -409,6 +419,10 @@ impl Policy {
             (EnvClass::Threads, &e.threads, "env.threads"),
             (EnvClass::Kernels, &e.kernels, "env.kernels"),
             (EnvClass::Loader, &e.loader, "env.loader"),
+            (EnvClass::Collectives, &e.collectives, "env.collectives"),
+            (EnvClass::Devices, &e.devices, "env.devices"),
+            (EnvClass::Cache, &e.cache, "env.cache"),
+            (EnvClass::Logging, &e.logging, "env.logging"),
         ] {
             policy.env.push((class, globs(list, key, false)?));
         }
@@ -526,7 +540,7 @@ impl Policy {
     }
 
     /// The class the policy gives a path, if any.
-    pub fn path_class(&self, path: &str) -> Option<PathClassName> {
+    pub fn path_class(&self, path: &str) -> Option<PathClass> {
         self.paths
             .iter()
             .find(|(_, set)| set.is_match(path))
@@ -534,7 +548,7 @@ impl Policy {
     }
 
     /// The class the policy gives a package, if any.
-    pub fn package_class(&self, name: &str) -> Option<PackageClassName> {
+    pub fn package_class(&self, name: &str) -> Option<PackageClass> {
         self.packages
             .iter()
             .find(|(_, set)| set.is_match(name))
@@ -592,16 +606,10 @@ mod tests {
         )
         .unwrap();
         assert_eq!(p.fail_on, FailOn::Retrain);
-        assert_eq!(
-            p.path_class("notebooks/a.py"),
-            Some(PathClassName::Irrelevant)
-        );
-        assert_eq!(p.path_class("src/a.py"), Some(PathClassName::Code));
+        assert_eq!(p.path_class("notebooks/a.py"), Some(PathClass::Irrelevant));
+        assert_eq!(p.path_class("src/a.py"), Some(PathClass::Code));
         assert_eq!(p.path_class("README.md"), None);
-        assert_eq!(
-            p.package_class("kelp-kernels"),
-            Some(PackageClassName::Numeric)
-        );
+        assert_eq!(p.package_class("kelp-kernels"), Some(PackageClass::Numeric));
         assert_eq!(p.env_class("KELP_MODE"), Some(EnvClass::Precision));
         assert_eq!(p.accept[0].expires, "2999-12-31");
         assert_eq!(p.accept[0].line, 10);

@@ -16,6 +16,10 @@ pub enum VersionChange {
     Minor,
     /// A smaller step: patch, post-release, build or local label.
     Patch,
+    /// A calendar-versioned package (first number a year, as in `2024.8.30`) moved to a
+    /// later release: calendar versioning promises no compatibility meaning, so a new year is
+    /// judged like a minor release, not a major one.
+    Calendar,
     /// One side is a pre-release (alpha, beta, rc, dev).
     PreRelease,
     /// The new version is lower than the old one.
@@ -31,6 +35,7 @@ impl VersionChange {
             VersionChange::Major => "major version change",
             VersionChange::Minor => "minor version change",
             VersionChange::Patch => "patch-level version change",
+            VersionChange::Calendar => "calendar-versioned release",
             VersionChange::PreRelease => "change to or from a pre-release",
             VersionChange::Downgrade => "downgrade",
             VersionChange::Unknown => "version change",
@@ -140,7 +145,11 @@ pub fn classify(ecosystem: &str, old: &str, new: &str) -> VersionChange {
     }
     let (ra, rb) = (a.release(), b.release());
     let at = |r: &[u64], i: usize| r.get(i).copied().unwrap_or(0);
-    if at(&ra, 0) != at(&rb, 0) {
+    // CalVer (calver.org): a four-digit year as the first number.
+    let is_year = |n: u64| (1990..=2200).contains(&n);
+    if at(&ra, 0) != at(&rb, 0) && is_year(at(&ra, 0)) && is_year(at(&rb, 0)) {
+        VersionChange::Calendar
+    } else if at(&ra, 0) != at(&rb, 0) {
         VersionChange::Major
     } else if at(&ra, 1) != at(&rb, 1) {
         // SemVer 2.0.0 item 4: in 0.y.z anything may change, so a 0.x minor step is breaking.

@@ -28,11 +28,6 @@ const X86_FEATURES: &[&str] = &[
     "avx_vnni_int8",
     "avx_ifma",
     "avx_ne_convert",
-    "sha_ni",
-    "aes",
-    "vaes",
-    "vpclmulqdq",
-    "gfni",
     "xop",
 ];
 
@@ -40,11 +35,15 @@ const X86_FEATURES: &[&str] = &[
 /// `sme` or `asimd` is kept as well.
 const ARM_FEATURES: &[&str] = &["fp", "fphp", "bf16", "i8mm", "fcma", "atomics", "ebf16"];
 
-/// True when a flag from `/proc/cpuinfo` is one numerical kernels care about.
+/// True when a flag from `/proc/cpuinfo` is one numerical kernels care about. Cryptography
+/// instructions (AES, SHA, carry-less multiply, GFNI) and kernel-security flags are not: x86's
+/// `smep` (supervisor-mode execution prevention, Intel SDM vol. 3, 4.6) shares its first
+/// letters with ARM's `sme` (Scalable Matrix Extension) and is excluded by name.
 pub fn is_numeric_feature(flag: &str) -> bool {
     X86_FEATURES.contains(&flag)
         || ARM_FEATURES.contains(&flag)
-        || ["avx512", "amx", "sve", "sme", "asimd"]
+        || (flag.starts_with("sme") && flag != "smep")
+        || ["avx512", "amx", "sve", "asimd"]
             .iter()
             .any(|p| flag.starts_with(p))
 }

@@ -1,8 +1,8 @@
 //! Environment variables that steer numerical results, threading or which libraries load.
 //!
-//! Only variables whose name matches [`RELEVANT_PREFIXES`] or [`RELEVANT_NAMES`] are kept
-//! (Terraform's own `TF_` variables, [`TERRAFORM`], are not TensorFlow's and are left out);
-//! every other variable is left out. A kept variable is recorded by its value's grammar
+//! Only variables with a class in the one table of variables ([`crate::envvars`]) are kept
+//! (Terraform's own `TF_` variables are not TensorFlow's and are left out); every other
+//! variable is left out. A kept variable is recorded by its value's grammar
 //! ([`crate::redact::env_value`]): the value when the grammar is known, a digest when it is
 //! not, the name only when its name or value holds a credential.
 
@@ -11,99 +11,10 @@ use std::collections::BTreeMap;
 use crate::manifest::EnvInfo;
 use crate::redact::{env_value, Recorded};
 
-/// Prefixes of variables read by OpenMP runtimes, BLAS libraries, the CUDA/ROCm stacks and the
-/// major ML frameworks (each library's documentation lists its own; see
-/// `docs/manifest.md`).
-pub const RELEVANT_PREFIXES: &[&str] = &[
-    "OMP_",
-    "GOMP_",
-    "KMP_",
-    "MKL_",
-    "OPENBLAS_",
-    "GOTO_",
-    "BLIS_",
-    "VECLIB_",
-    "CUDA_",
-    "CUBLAS_",
-    "CUBLASLT_",
-    "CUDNN_",
-    "NCCL_",
-    "NVIDIA_",
-    "HIP_",
-    "HIPBLASLT_",
-    "ROCM_",
-    "MIOPEN_",
-    "TF_",
-    "XLA_",
-    "JAX_",
-    "TORCH_",
-    "PYTORCH_",
-    "TORCHINDUCTOR_",
-    "ATEN_",
-    "ONEDNN_",
-    "DNNL_",
-    "KERAS_",
-    "NUMEXPR_",
-    "NUMBA_",
-    "TBB_",
-    "JULIA_",
-];
-
-/// Single variables that matter: Python's hashing and path, the dynamic loader, Rust code
-/// generation flags, the active environment, thread pools of other libraries.
-pub const RELEVANT_NAMES: &[&str] = &[
-    "PYTHONHASHSEED",
-    "PYTHONPATH",
-    "PYTHONNOUSERSITE",
-    "PYTHONOPTIMIZE",
-    "LD_LIBRARY_PATH",
-    "LD_PRELOAD",
-    "DYLD_LIBRARY_PATH",
-    "DYLD_INSERT_LIBRARIES",
-    "RUSTFLAGS",
-    "CARGO_BUILD_RUSTFLAGS",
-    "RAYON_NUM_THREADS",
-    "VIRTUAL_ENV",
-    "CONDA_PREFIX",
-    "CONDA_DEFAULT_ENV",
-];
-
-/// Terraform's variables, which share TensorFlow's `TF_` prefix: input variables
-/// (`TF_VAR_name`), extra arguments (`TF_CLI_ARGS`, `TF_CLI_ARGS_name`), host credentials
-/// (`TF_TOKEN_host`) and the CLI's settings (Terraform CLI environment variables reference,
-/// developer.hashicorp.com/terraform/cli/config/environment-variables). They hold
-/// infrastructure inputs and credentials, never a numerical setting.
-pub const TERRAFORM: &[&str] = &[
-    "TF_VAR_",
-    "TF_CLI_",
-    "TF_TOKEN_",
-    "TF_LOG",
-    "TF_INPUT",
-    "TF_WORKSPACE",
-    "TF_DATA_DIR",
-    "TF_IN_AUTOMATION",
-    "TF_PLUGIN_CACHE_DIR",
-    "TF_PLUGIN_CACHE_MAY_BREAK_DEPENDENCY_LOCK_FILE",
-    "TF_REGISTRY_",
-    "TF_IGNORE",
-    "TF_STATE_PERSIST_INTERVAL",
-    "TF_APPEND_USER_AGENT",
-    "TF_REATTACH_PROVIDERS",
-    "TF_ACC",
-    "TF_MODULE_DEPTH",
-    "TF_WARN_OUTPUT_ERRORS",
-];
-
-/// True when a variable is recorded.
+/// True when a variable is recorded: it has a class in the one table of variables
+/// ([`crate::envvars`]).
 pub fn is_relevant(name: &str) -> bool {
-    if TERRAFORM.iter().any(|t| {
-        name == *t
-            || (t.ends_with('_') && name.starts_with(t))
-            || name.starts_with(&format!("{t}_"))
-    }) {
-        return false;
-    }
-    RELEVANT_NAMES.contains(&name) || RELEVANT_PREFIXES.iter().any(|p| name.starts_with(p))
+    crate::envvars::is_recorded(name)
 }
 
 /// Picks the relevant variables out of an environment snapshot. With `private`, values that

@@ -934,6 +934,9 @@ pub struct FileStat {
     pub added: u64,
     /// Lines removed.
     pub removed: u64,
+    /// The content did not change: a rename or a mode change of identical bytes (git's exact
+    /// rename detection, `git diff --find-renames=100%`).
+    pub unchanged: bool,
 }
 
 /// The files changed between two commits of the repository that contains `dir`, with lines
@@ -941,7 +944,11 @@ pub struct FileStat {
 /// when either commit is not in that repository.
 pub fn diff_stats_between(dir: &Path, old: &str, new: &str) -> Option<Vec<FileStat>> {
     let repo = discover(dir).ok()?;
-    let diff = tree_diff(&repo, old, new)?;
+    let mut diff = tree_diff(&repo, old, new)?;
+    let mut find = git2::DiffFindOptions::new();
+    find.renames(true).exact_match_only(true);
+    // Without rename detection a rename is a deletion and an addition, both still listed.
+    let _ = diff.find_similar(Some(&mut find));
     let mut out = Vec::new();
     for (i, delta) in diff.deltas().enumerate() {
         let Some(path) = delta.new_file().path().or(delta.old_file().path()) else {
@@ -952,10 +959,16 @@ pub fn diff_stats_between(dir: &Path, old: &str, new: &str) -> Option<Vec<FileSt
             .flatten()
             .and_then(|p| p.line_stats().ok())
             .map_or((0, 0), |(_, a, r)| (a as u64, r as u64));
+        let unchanged = matches!(
+            delta.status(),
+            git2::Delta::Renamed | git2::Delta::Modified | git2::Delta::Typechange
+        ) && delta.old_file().id() == delta.new_file().id()
+            && !delta.old_file().id().is_zero();
         out.push(FileStat {
             path: path.to_string_lossy().into_owned(),
             added,
             removed,
+            unchanged,
         });
     }
     out.sort_by(|x, y| x.path.cmp(&y.path));

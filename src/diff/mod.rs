@@ -15,51 +15,13 @@ use std::path::Path;
 
 use serde::{Deserialize, Serialize};
 
+use crate::classes::PathClass;
 use crate::collect::git;
 use crate::manifest::{Content, DataInput, Lockfile, Manifest, Package};
 use crate::policy::Policy;
-use rules::{PackageChange, PathClass, Rule};
+use rules::{PackageChange, Rule};
 
-/// How much a change matters, in increasing order.
-#[derive(
-    Debug, Clone, Copy, Default, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize, Deserialize,
-)]
-#[serde(rename_all = "lowercase")]
-pub enum Impact {
-    /// No effect on results is expected.
-    #[default]
-    None,
-    /// Results may shift slightly: rerun and compare metrics.
-    Verify,
-    /// Results are expected to change: retrain.
-    Retrain,
-}
-
-impl Impact {
-    /// The verdict word.
-    pub fn as_str(self) -> &'static str {
-        match self {
-            Impact::None => "none",
-            Impact::Verify => "verify",
-            Impact::Retrain => "retrain",
-        }
-    }
-
-    /// The documented exit code for a verdict: 0 none, 3 verify, 4 retrain.
-    pub fn exit_code(self) -> u8 {
-        match self {
-            Impact::None => 0,
-            Impact::Verify => 3,
-            Impact::Retrain => 4,
-        }
-    }
-}
-
-impl std::fmt::Display for Impact {
-    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
-        f.write_str(self.as_str())
-    }
-}
+pub use crate::classes::Impact;
 
 /// One difference between two manifests.
 #[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
@@ -386,7 +348,15 @@ impl<'a> Context<'a> {
         change: PackageChange<'_>,
         values: (Option<String>, Option<String>),
     ) -> Change {
-        let class = rules::classify_package(name, dev, compiled, self.policy);
+        let versions: Vec<&str> = match change {
+            PackageChange::Version { old, new, .. } => vec![old, new],
+            _ => [&values.0, &values.1]
+                .into_iter()
+                .flatten()
+                .map(String::as_str)
+                .collect(),
+        };
+        let class = rules::classify_package(name, dev, compiled, &versions, self.policy);
         let (rule, lead) = rules::package_rule(name, &class, change);
         Change::from_rule(rule, section, subject, lead, values.0, values.1)
     }
@@ -586,16 +556,19 @@ fn some_paths(paths: &[String]) -> String {
 /// Classes the changed paths and picks the deciding rule; the lead names the files by class.
 fn classify_paths(
     paths: &[String],
+    unchanged: &BTreeSet<String>,
     stats: Option<(u64, u64)>,
     scope: &str,
     ctx: &Context<'_>,
 ) -> (&'static Rule, String, CodeChange) {
     let mut classes: BTreeMap<PathClass, Vec<String>> = BTreeMap::new();
     for p in paths {
-        classes
-            .entry(rules::path_class(p, ctx.policy, &ctx.lockfiles))
-            .or_default()
-            .push(p.clone());
+        let class = if unchanged.contains(p) {
+            PathClass::Unchanged
+        } else {
+            rules::path_class(p, ctx.policy, &ctx.lockfiles)
+        };
+        classes.entry(class).or_default().push(p.clone());
     }
     let present: Vec<PathClass> = classes.keys().copied().collect();
     let rule = rules::git_rule(&present);
@@ -668,14 +641,23 @@ fn compare_git(
                 let (added, removed) = stats
                     .iter()
                     .fold((0, 0), |(a, r), f| (a + f.added, r + f.removed));
+                let mut unchanged: BTreeSet<String> = stats
+                    .iter()
+                    .filter(|f| f.unchanged)
+                    .map(|f| f.path.clone())
+                    .collect();
                 let mut paths: Vec<String> = stats.into_iter().map(|f| f.path).collect();
                 // Uncommitted edits on either side count too.
                 paths.extend(o.changed_paths.iter().cloned());
                 paths.extend(n.changed_paths.iter().cloned());
                 paths.sort();
                 paths.dedup();
+                for p in o.changed_paths.iter().chain(&n.changed_paths) {
+                    unchanged.remove(p);
+                }
                 let (rule, lead, s) = classify_paths(
                     &paths,
+                    &unchanged,
                     Some((added, removed)),
                     "the code changed between the two commits",
                     ctx,
@@ -714,7 +696,13 @@ fn compare_git(
             .collect();
         paths.sort();
         paths.dedup();
-        let (rule, lead, s) = classify_paths(&paths, None, "the uncommitted changes differ", ctx);
+        let (rule, lead, s) = classify_paths(
+            &paths,
+            &BTreeSet::new(),
+            None,
+            "the uncommitted changes differ",
+            ctx,
+        );
         summary = Some(s);
         let digest = |d: &Option<String>| Some(d.as_deref().map_or("clean".into(), digest_short));
         out.push(Change::from_rule(
@@ -914,8 +902,8 @@ fn whole_lockfile(l: &Lockfile, added: bool, ctx: &Context<'_>) -> Change {
         .packages
         .iter()
         .filter(|p| {
-            rules::classify_package(&p.name, p.dev, None, ctx.policy).class
-                == rules::PackageClass::Numeric
+            rules::classify_package(&p.name, p.dev, None, &[&p.version], ctx.policy).class
+                == crate::classes::PackageClass::Numeric
         })
         .map(|p| p.name.as_str())
         .collect();
@@ -1068,23 +1056,69 @@ fn compare_packages(
 }
 
 fn compare_env(old: &Content, new: &Content, ctx: &Context<'_>, out: &mut Vec<Change>) {
+    use crate::classes::EnvClass;
     let (o, n) = (&old.env.vars, &new.env.vars);
+    let python_compared = !old.python.is_empty() && !new.python.is_empty();
     for name in o.keys().chain(n.keys()).collect::<BTreeSet<_>>() {
         let (a, b) = (o.get(name), n.get(name));
         if a == b {
             continue;
         }
-        let rule = rules::env_rule(name, ctx.policy);
+        let class = rules::env_class(name, ctx.policy);
+        // Python docs: PYTHONHASHSEED "random" is the same as leaving it unset.
+        if class == Some(EnvClass::HashSeed) {
+            let norm = |v: Option<&String>| v.filter(|v| v.as_str() != "random").cloned();
+            if norm(a) == norm(b) {
+                continue;
+            }
+        }
         let what = match (a, b) {
             (None, _) => "was set",
             (_, None) => "was unset",
             _ => "changed",
         };
+        let mut lead = format!("{name} {what}");
+        let rule = match class {
+            Some(EnvClass::Flags) => {
+                let (fa, fb): (BTreeSet<&str>, BTreeSet<&str>) = (
+                    a.map(|v| crate::envvars::xla_flags(v))
+                        .unwrap_or_default()
+                        .into_iter()
+                        .collect(),
+                    b.map(|v| crate::envvars::xla_flags(v))
+                        .unwrap_or_default()
+                        .into_iter()
+                        .collect(),
+                );
+                let changed: Vec<&str> = fa.symmetric_difference(&fb).copied().collect();
+                let top = changed
+                    .iter()
+                    .map(|f| rules::env_class_rule(crate::envvars::xla_flag_class(f)))
+                    .max_by_key(|r| (r.impact, r.weight))
+                    .unwrap_or(&rules::ENV_LOGGING);
+                lead = format!("{lead} (flags added or removed: {})", changed.join(" "));
+                top
+            }
+            // Without a recorded interpreter on both sides, another environment folder is the
+            // only sign that other packages may load.
+            Some(EnvClass::Location)
+                if !python_compared
+                    && matches!(
+                        name.as_str(),
+                        "VIRTUAL_ENV" | "CONDA_PREFIX" | "CONDA_DEFAULT_ENV"
+                    ) =>
+            {
+                lead = format!("{lead}, and no Python environment was recorded on both sides to compare its packages");
+                &rules::ENV_LOADER
+            }
+            Some(c) => rules::env_class_rule(c),
+            None => &rules::ENV_NOT_NUMERIC,
+        };
         out.push(Change::from_rule(
             rule,
             "env",
             format!("env {name}"),
-            format!("{name} {what}"),
+            lead,
             a.cloned(),
             b.cloned(),
         ));
@@ -1140,9 +1174,15 @@ fn compare_cpu(old: &Content, new: &Content, out: &mut Vec<Change>) {
             Some(opt(&n.model_name)),
         ));
     }
-    if o.features != n.features {
-        let (of, nf): (BTreeSet<_>, BTreeSet<_>) =
-            (o.features.iter().collect(), n.features.iter().collect());
+    // Manifests of older runprint versions may hold flags that are not numerical (`smep`).
+    fn numeric(c: &crate::manifest::CpuInfo) -> BTreeSet<&String> {
+        c.features
+            .iter()
+            .filter(|f| crate::collect::cpu::is_numeric_feature(f))
+            .collect()
+    }
+    let (of, nf) = (numeric(o), numeric(n));
+    if of != nf {
         let gone: Vec<&str> = of.difference(&nf).map(|s| s.as_str()).collect();
         let came: Vec<&str> = nf.difference(&of).map(|s| s.as_str()).collect();
         let mut parts = Vec::new();
@@ -1163,8 +1203,8 @@ fn compare_cpu(old: &Content, new: &Content, out: &mut Vec<Change>) {
             "cpu",
             "cpu features",
             format!("the processor {}", parts.join(" and ")),
-            Some(format!("{} features", o.features.len())),
-            Some(format!("{} features ({summary})", n.features.len())),
+            Some(format!("{} features", of.len())),
+            Some(format!("{} features ({summary})", nf.len())),
         ));
     }
     let counts =

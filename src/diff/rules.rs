@@ -17,7 +17,8 @@
 //! not measurements.
 
 use super::Impact;
-use crate::policy::{EnvClass, PackageClassName, PathClassName, Policy};
+use crate::classes::{EnvClass, PackageClass, PathClass};
+use crate::policy::Policy;
 use crate::version::{self, VersionChange};
 
 /// One rule of the built-in table.
@@ -85,10 +86,38 @@ rules! {
         "source control recorded on one side only",
         "only one side was stamped inside a git repository, so the code cannot be compared",
         "common practice";
-    GIT_DEPENDENCIES = "git.dependencies", "git", None, 3,
-        "only lockfiles and dependency manifests changed in the code",
-        "their packages are compared one by one under `lockfiles`, which decides their impact",
+    GIT_DEPENDENCIES = "git.dependencies", "git", None, 4,
+        "only lockfiles, dependency manifests and dependency inputs changed in the code",
+        "what they resolve to is compared package by package under `lockfiles` and `python`, which decides the impact",
         "common practice";
+    GIT_OUT_OF_SCOPE = "git.out-of-scope", "git", None, 3,
+        "only files outside the training job's scope changed",
+        "they are not imported by the training entry points and are not configuration or data the job reads",
+        "runprint.toml or --entry of the repository";
+    GIT_BUILD = "git.build", "git", None, 3,
+        "only container, build or environment recipes changed (Dockerfile, Makefile, Nix)",
+        "they install and launch the job: what they install is compared as packages, base images and the numerical stack, and the variables they set under `env`",
+        "common practice";
+    GIT_TESTS = "git.tests", "git", None, 3,
+        "only tests or benchmarks changed",
+        "the training job does not import its test suite or benchmarks",
+        "https://docs.pytest.org/en/stable/explanation/goodpractices.html#conventions-for-python-test-discovery; https://pkg.go.dev/cmd/go#hdr-Test_packages";
+    GIT_CI = "git.ci", "git", None, 3,
+        "only continuous-integration workflows changed",
+        "workflows run checks on the repository; the training job does not read them",
+        "https://docs.github.com/en/actions/writing-workflows/workflow-syntax-for-github-actions";
+    GIT_NOTEBOOKS = "git.notebooks", "git", None, 2,
+        "only notebooks changed",
+        "notebooks are run by hand and not imported by the training job (name one as an entry point or under paths.code when it is)",
+        "common practice";
+    GIT_METADATA = "git.metadata", "git", None, 2,
+        "only repository metadata or developer-tool settings changed",
+        "attributes, editor, linter, ownership and template files do not change what the job computes",
+        "https://git-scm.com/docs/gitattributes; https://editorconfig.org/";
+    GIT_UNCHANGED = "git.unchanged", "git", None, 1,
+        "only renames or mode changes with identical content",
+        "the same bytes under another name or mode compute the same thing",
+        "https://git-scm.com/docs/git-diff#Documentation/git-diff.txt---find-renamesltngt";
     GIT_DOCS = "git.docs", "git", None, 2,
         "only documentation changed",
         "training does not read documentation, licences or changelogs",
@@ -207,6 +236,14 @@ rules! {
         "unknown pure-Python or script package: patch, post-release or rebuild",
         "patch releases only fix bugs, and pure-script code off the numerical path does not change arithmetic",
         "https://semver.org/spec/v2.0.0.html (item 6)";
+    PKG_INFRASTRUCTURE = "pkg.infrastructure", "lockfiles", None, 3,
+        "infrastructure package (networking, serialization, installers, logging, telemetry, profiling, metapackages)",
+        "it moves bytes, installs packages, or reports on the run, and does not take part in the arithmetic",
+        "common practice";
+    PKG_OUT_OF_SCOPE = "pkg.out-of-scope", "lockfiles", None, 2,
+        "package the training job cannot import",
+        "the training entry points do not import it, directly or through a dependency",
+        "runprint.toml or --entry of the repository";
     PKG_TOOLING = "pkg.tooling", "lockfiles", None, 2,
         "tooling package (tests, lint, notebooks, progress bars)",
         "it helps develop, test or display and does not take part in the arithmetic",
@@ -273,6 +310,18 @@ rules! {
         "other variable of a numerical library or framework",
         "it configures a library that takes part in the arithmetic",
         "common practice";
+    ENV_LOCATION = "env.location", "env", None, 3,
+        "location of the active environment or toolkit (VIRTUAL_ENV, CONDA_PREFIX, CUDA_HOME)",
+        "a folder name does not compute; the interpreter, its packages and the CUDA stack are compared in their own sections",
+        "https://docs.python.org/3/library/venv.html";
+    ENV_CACHE = "env.cache", "env", None, 2,
+        "cache or download folder (TORCH_HOME, HF_HOME, XDG_CACHE_HOME...)",
+        "where downloads and compiled kernels are kept does not change them; the data and packages themselves are compared",
+        "https://pytorch.org/docs/stable/hub.html#where-are-my-downloaded-models-saved; https://specifications.freedesktop.org/basedir-spec/latest/";
+    ENV_NOT_NUMERIC = "env.not-numerical", "env", None, 1,
+        "variable no numerical library reads (recorded by an older runprint)",
+        "runprint records only variables of numerical libraries; this one (Terraform's TF_CLI_*, for one) is not",
+        "https://developer.hashicorp.com/terraform/cli/config/environment-variables";
     ENV_LOGGING = "env.logging", "env", None, 2,
         "logging and verbosity variable",
         "it only changes messages",
@@ -665,6 +714,150 @@ const TOOLING_PREFIXES: &[&str] = &[
     "xunit.", "nunit", "coverlet",
 ];
 
+/// Packages that move bytes, install packages or report on a run, and take no part in the
+/// arithmetic: networking and HTTP stacks, RPC, serialization of messages, certificates,
+/// installers and build back-ends, file locks, logging and telemetry, profilers and GPU
+/// annotation libraries (NVTX, CUPTI, cuFile: they time and trace kernels, not change them).
+/// Common practice; each package's own description says what it does.
+const INFRASTRUCTURE_PACKAGES: &[&str] = &[
+    // Python: installers and build back-ends (PyPA docs)
+    "pip",
+    "setuptools",
+    "wheel",
+    "packaging",
+    "distlib",
+    "uv",
+    "hatchling",
+    "flit-core",
+    "poetry-core",
+    "setuptools-scm",
+    "pdm-backend",
+    "build",
+    "virtualenv",
+    // networking, RPC, certificates
+    "certifi",
+    "idna",
+    "charset-normalizer",
+    "chardet",
+    "urllib3",
+    "requests",
+    "requests-oauthlib",
+    "oauthlib",
+    "httpx",
+    "httpcore",
+    "h11",
+    "h2",
+    "anyio",
+    "sniffio",
+    "aiohttp",
+    "aiohappyeyeballs",
+    "aiosignal",
+    "frozenlist",
+    "multidict",
+    "yarl",
+    "propcache",
+    "async-timeout",
+    "websockets",
+    "websocket-client",
+    "grpcio",
+    "grpcio-status",
+    "grpcio-tools",
+    "googleapis-common-protos",
+    "protobuf",
+    "cryptography",
+    "pyopenssl",
+    "rsa",
+    "pyasn1",
+    "pyasn1-modules",
+    "google-auth",
+    "cachetools",
+    "boto3",
+    "botocore",
+    "s3transfer",
+    "jmespath",
+    // files, locks, small runtime helpers
+    "filelock",
+    "platformdirs",
+    "attrs",
+    "typing-extensions",
+    "typing-inspection",
+    "six",
+    "wrapt",
+    "deprecated",
+    "zipp",
+    "importlib-metadata",
+    "importlib-resources",
+    "psutil",
+    "py-cpuinfo",
+    // logging, telemetry, monitoring
+    "loguru",
+    "structlog",
+    "python-json-logger",
+    "coloredlogs",
+    "sentry-sdk",
+    "prometheus-client",
+    "nvidia-ml-py",
+    "pynvml",
+    // profiling and GPU annotation (NVIDIA Nsight docs: NVTX ranges, CUPTI, cuFile I/O)
+    "nvtx",
+    "py-spy",
+    "memray",
+    "scalene",
+    "line-profiler",
+    "pyinstrument",
+    "torch-tb-profiler",
+    // metapackages: they install other packages, which are compared one by one
+    "cuda-toolkit",
+    "nvidia-cuda-toolkit",
+    // Rust: async runtimes, HTTP, TLS (each crate's own description)
+    "tokio",
+    "tokio-util",
+    "tokio-rustls",
+    "mio",
+    "socket2",
+    "hyper",
+    "hyper-util",
+    "hyper-rustls",
+    "http",
+    "http-body",
+    "reqwest",
+    "rustls",
+    "rustls-webpki",
+    "ring",
+    "openssl",
+    "openssl-sys",
+    "native-tls",
+    "tower",
+    "tower-service",
+    "tonic",
+    "prost",
+    // JavaScript
+    "axios",
+    "node-fetch",
+    "undici",
+    "ws",
+    "express",
+];
+
+/// Name prefixes of infrastructure packages (OpenTelemetry's packages, CUDA's profiling and
+/// file-I/O wheels, which share the numerical `nvidia-` prefix).
+const INFRASTRUCTURE_PREFIXES: &[&str] = &[
+    "opentelemetry-",
+    "opentelemetry_",
+    "nvidia-nvtx-",
+    "nvidia-cuda-cupti-",
+    "nvidia-cufile-",
+    "nvidia-cuda-nvcc-",
+    "grpcio-",
+    "google-cloud-",
+    "azure-",
+    "botocore-",
+    "tokio-",
+    "hyper-",
+    "aws-",
+    "@opentelemetry/",
+];
+
 /// Name fragments that suggest a package ships compiled code, for lockfile entries without a
 /// recorded installation (a heuristic, named as such in reasons).
 const COMPILED_HINTS: &[&str] = &[
@@ -689,21 +882,6 @@ const COMPILED_HINTS: &[&str] = &[
     "-accel",
 ];
 
-/// The class a package belongs to for the rules.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum PackageClass {
-    /// Does the arithmetic of training or preprocessing.
-    Numeric,
-    /// Not known, ships compiled code.
-    Compiled,
-    /// Not known, pure Python or pure script code.
-    Pure,
-    /// Helps develop, test or display.
-    Tooling,
-    /// Only needed for development or tests.
-    Dev,
-}
-
 /// A package's class and how it was decided, as a phrase for reasons.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct Classified {
@@ -716,7 +894,16 @@ pub struct Classified {
 /// True when the package does numerical work by the built-in tables.
 pub fn is_numeric_package(name: &str) -> bool {
     let n = name.to_ascii_lowercase();
-    NUMERIC_PACKAGES.contains(&n.as_str()) || NUMERIC_PREFIXES.iter().any(|p| n.starts_with(p))
+    !is_infrastructure_package(&n)
+        && (NUMERIC_PACKAGES.contains(&n.as_str())
+            || NUMERIC_PREFIXES.iter().any(|p| n.starts_with(p)))
+}
+
+/// True when the package is infrastructure by the built-in tables.
+pub fn is_infrastructure_package(name: &str) -> bool {
+    let n = name.to_ascii_lowercase();
+    INFRASTRUCTURE_PACKAGES.contains(&n.as_str())
+        || INFRASTRUCTURE_PREFIXES.iter().any(|p| n.starts_with(p))
 }
 
 /// True when the package is development tooling by the built-in tables.
@@ -725,54 +912,71 @@ pub fn is_tooling_package(name: &str) -> bool {
     TOOLING_PACKAGES.contains(&n.as_str()) || TOOLING_PREFIXES.iter().any(|p| n.starts_with(p))
 }
 
+/// A local version label that marks a compiled build for a device or a framework ABI
+/// (`+cu121`, `+cpu`, `+rocm6.1`, `+cu123torch2.5`, `+pt25cu124`): PEP 440 local version
+/// identifiers as the PyTorch and extension-kernel indexes publish them.
+pub fn build_label(version: &str) -> Option<&str> {
+    let label = version::local_label(version)?;
+    let l = label.to_ascii_lowercase();
+    let marks = l.starts_with("cu")
+        || l.starts_with("cpu")
+        || l.starts_with("rocm")
+        || l.starts_with("pt")
+        || l.contains("torch")
+        || l.contains("cuda");
+    marks.then_some(label)
+}
+
 /// Classifies a package. `compiled` is what an installed copy says (the python section's
-/// `compiled` flag), when one was recorded.
+/// `compiled` flag), when one was recorded; `versions` are its versions on both sides (a
+/// build label there marks compiled code).
 pub fn classify_package(
     name: &str,
     dev: bool,
     compiled: Option<bool>,
+    versions: &[&str],
     policy: &Policy,
 ) -> Classified {
-    let by_policy = |class, what: &str| Classified {
-        class,
-        how: format!("classed as {what} by the policy file"),
-    };
-    match policy.package_class(name) {
-        Some(PackageClassName::Numeric) => return by_policy(PackageClass::Numeric, "numerical"),
-        Some(PackageClassName::Compiled) => {
-            return by_policy(PackageClass::Compiled, "shipping compiled code")
-        }
-        Some(PackageClassName::Pure) => return by_policy(PackageClass::Pure, "pure script code"),
-        Some(PackageClassName::Tooling) => return by_policy(PackageClass::Tooling, "tooling"),
-        None => {}
-    }
-    if is_numeric_package(name) {
+    if let Some(class) = policy.package_class(name) {
         return Classified {
-            class: PackageClass::Numeric,
-            how: "a numerical library".into(),
+            class,
+            how: format!("classed as {} by the policy file", class.as_str()),
         };
+    }
+    let classified = |class, how: &str| Classified {
+        class,
+        how: how.to_string(),
+    };
+    if is_numeric_package(name) {
+        return classified(PackageClass::Numeric, "a numerical library");
     }
     if dev {
-        return Classified {
-            class: PackageClass::Dev,
-            how: "a development-only dependency".into(),
-        };
+        return classified(PackageClass::Dev, "a development-only dependency");
     }
     if is_tooling_package(name) {
+        return classified(PackageClass::Tooling, "tooling");
+    }
+    if is_infrastructure_package(name) {
+        return classified(
+            PackageClass::Infrastructure,
+            "infrastructure (networking, installing, logging, telemetry or profiling)",
+        );
+    }
+    if let Some(label) = versions.iter().find_map(|v| build_label(v)) {
         return Classified {
-            class: PackageClass::Tooling,
-            how: "tooling".into(),
+            class: PackageClass::Compiled,
+            how: format!("not in runprint's tables; its version's build label `+{label}` marks a compiled build for a device or framework"),
         };
     }
     match compiled {
-        Some(true) => Classified {
-            class: PackageClass::Compiled,
-            how: "not in runprint's tables; its installed copy ships compiled code".into(),
-        },
-        Some(false) => Classified {
-            class: PackageClass::Pure,
-            how: "not in runprint's tables; its installed copy is pure Python".into(),
-        },
+        Some(true) => classified(
+            PackageClass::Compiled,
+            "not in runprint's tables; its installed copy ships compiled code",
+        ),
+        Some(false) => classified(
+            PackageClass::Pure,
+            "not in runprint's tables; its installed copy is pure Python",
+        ),
         None => {
             let n = name.to_ascii_lowercase();
             match COMPILED_HINTS.iter().find(|h| n.contains(*h)) {
@@ -780,10 +984,10 @@ pub fn classify_package(
                     class: PackageClass::Compiled,
                     how: format!("not in runprint's tables; judged by a heuristic, its name (`{hint}`) suggests compiled code"),
                 },
-                None => Classified {
-                    class: PackageClass::Pure,
-                    how: "not in runprint's tables; judged by a heuristic, nothing recorded or in its name suggests compiled code".into(),
-                },
+                None => classified(
+                    PackageClass::Pure,
+                    "not in runprint's tables; judged by a heuristic, nothing recorded or in its name suggests compiled code",
+                ),
             }
         }
     }
@@ -884,6 +1088,8 @@ pub fn package_rule(
     let lead = |what: &str| format!("{name} ({what}) is {}", class.how);
     match class.class {
         PackageClass::Tooling => return (&PKG_TOOLING, lead(&what)),
+        PackageClass::Infrastructure => return (&PKG_INFRASTRUCTURE, lead(&what)),
+        PackageClass::OutOfScope => return (&PKG_OUT_OF_SCOPE, lead(&what)),
         PackageClass::Dev => return (&PKG_DEV, lead(&what)),
         PackageClass::Compiled => return (&PKG_COMPILED, lead(&what)),
         PackageClass::Pure => {
@@ -968,7 +1174,7 @@ pub fn package_rule(
     }
     let rule = match kind {
         VersionChange::Major => &PKG_NUMERIC_MAJOR,
-        VersionChange::Minor => &PKG_NUMERIC_MINOR,
+        VersionChange::Minor | VersionChange::Calendar => &PKG_NUMERIC_MINOR,
         VersionChange::Patch => &PKG_NUMERIC_PATCH,
         VersionChange::PreRelease => &PKG_NUMERIC_PRE,
         VersionChange::Downgrade => &PKG_NUMERIC_DOWNGRADE,
@@ -980,135 +1186,42 @@ pub fn package_rule(
 // ------------------------------------------------------------------------------------------------
 // Environment variables
 
-const PRECISION_VARS: &[&str] = &[
-    "NVIDIA_TF32_OVERRIDE",
-    "TORCH_ALLOW_TF32_CUBLAS_OVERRIDE",
-    "HIPBLASLT_ALLOW_TF32",
-    "ONEDNN_DEFAULT_FPMATH_MODE",
-    "XLA_FLAGS",
-    "JAX_DEFAULT_MATMUL_PRECISION",
-    "JAX_ENABLE_X64",
-];
-const DETERMINISM_VARS: &[&str] = &[
-    "CUBLAS_WORKSPACE_CONFIG",
-    "CUBLASLT_WORKSPACE_SIZE",
-    "TF_DETERMINISTIC_OPS",
-    "TF_CUDNN_DETERMINISTIC",
-    "TF_USE_CUDNN_AUTOTUNE",
-    "TF_CUDNN_USE_AUTOTUNE",
-    "TORCH_CUDNN_V8_API_DISABLED",
-    "CUDA_LAUNCH_BLOCKING",
-    "MKL_CBWR",
-];
-const KERNEL_VARS: &[&str] = &[
-    "OPENBLAS_CORETYPE",
-    "OPENBLAS_BLOCK_FACTOR",
-    "MKL_ENABLE_INSTRUCTIONS",
-    "MKL_DEBUG_CPU_TYPE",
-    "ATEN_CPU_CAPABILITY",
-    "ONEDNN_MAX_CPU_ISA",
-    "DNNL_MAX_CPU_ISA",
-    "TF_ENABLE_ONEDNN_OPTS",
-    "BLIS_ARCH_TYPE",
-];
-const COLLECTIVE_VARS: &[&str] = &[
-    "NCCL_ALGO",
-    "NCCL_PROTO",
-    "NCCL_MAX_NCHANNELS",
-    "NCCL_MIN_NCHANNELS",
-    "NCCL_TREE_THRESHOLD",
-];
-const LOADER_VARS: &[&str] = &[
-    "LD_LIBRARY_PATH",
-    "LD_PRELOAD",
-    "DYLD_LIBRARY_PATH",
-    "DYLD_INSERT_LIBRARIES",
-    "PYTHONPATH",
-    "VIRTUAL_ENV",
-    "CONDA_PREFIX",
-    "CONDA_DEFAULT_ENV",
-    "PYTHONNOUSERSITE",
-];
-
-fn is_thread_var(name: &str) -> bool {
-    name.ends_with("_NUM_THREADS")
-        || name.ends_with("_MAX_THREADS")
-        || name.ends_with("_DYNAMIC")
-        || name.ends_with("_THREAD_LIMIT")
-        || name.contains("AFFINITY")
-        || name.starts_with("OMP_P")
+/// The rule for a variable of a class.
+pub fn env_class_rule(class: EnvClass) -> &'static Rule {
+    match class {
+        EnvClass::Precision => &ENV_PRECISION,
+        EnvClass::Determinism => &ENV_DETERMINISM,
+        EnvClass::Kernels => &ENV_KERNELS,
+        EnvClass::Collectives => &ENV_COLLECTIVES,
+        EnvClass::Threads => &ENV_THREADS,
+        EnvClass::HashSeed => &ENV_HASHSEED,
+        EnvClass::Loader => &ENV_LOADER,
+        EnvClass::Devices => &ENV_DEVICES,
+        EnvClass::Codegen => &ENV_CODEGEN,
+        EnvClass::Flags | EnvClass::Framework => &ENV_OTHER,
+        EnvClass::Location => &ENV_LOCATION,
+        EnvClass::Cache => &ENV_CACHE,
+        EnvClass::Logging => &ENV_LOGGING,
+        EnvClass::Irrelevant => &ENV_IRRELEVANT,
+    }
 }
 
-/// The rule for a changed environment variable (the policy's classes first).
+/// The class of a changed variable: the policy's classes first, then the one table of
+/// variables ([`crate::envvars`]). `None` for a variable runprint does not record (an older
+/// manifest may hold one).
+pub fn env_class(name: &str, policy: &Policy) -> Option<EnvClass> {
+    policy
+        .env_class(name)
+        .or_else(|| crate::envvars::class_of(name))
+}
+
+/// The rule for a changed environment variable whose flags are not read one by one.
 pub fn env_rule(name: &str, policy: &Policy) -> &'static Rule {
-    if let Some(class) = policy.env_class(name) {
-        return match class {
-            EnvClass::Precision => &ENV_PRECISION,
-            EnvClass::Threads => &ENV_THREADS,
-            EnvClass::Determinism => &ENV_DETERMINISM,
-            EnvClass::Kernels => &ENV_KERNELS,
-            EnvClass::Loader => &ENV_LOADER,
-            EnvClass::Irrelevant => &ENV_IRRELEVANT,
-        };
-    }
-    if PRECISION_VARS.contains(&name) {
-        &ENV_PRECISION
-    } else if name == "PYTHONHASHSEED" {
-        &ENV_HASHSEED
-    } else if DETERMINISM_VARS.contains(&name) {
-        &ENV_DETERMINISM
-    } else if KERNEL_VARS.contains(&name) {
-        &ENV_KERNELS
-    } else if COLLECTIVE_VARS.contains(&name) {
-        &ENV_COLLECTIVES
-    } else if is_thread_var(name) {
-        &ENV_THREADS
-    } else if name.contains("VERBOSE") || name.contains("DEBUG") || name.contains("LOG") {
-        &ENV_LOGGING
-    } else if LOADER_VARS.contains(&name) {
-        &ENV_LOADER
-    } else if name == "CUDA_VISIBLE_DEVICES" || name == "HIP_VISIBLE_DEVICES" {
-        &ENV_DEVICES
-    } else if name == "RUSTFLAGS" || name == "CARGO_BUILD_RUSTFLAGS" {
-        &ENV_CODEGEN
-    } else {
-        &ENV_OTHER
-    }
+    env_class(name, policy).map_or(&ENV_NOT_NUMERIC, env_class_rule)
 }
 
 // ------------------------------------------------------------------------------------------------
 // Paths
-
-/// The class of a changed file, for code changes.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Hash)]
-pub enum PathClass {
-    /// Training data stored in the repository.
-    Data,
-    /// Training code (anything not otherwise classed).
-    Code,
-    /// Configuration.
-    Config,
-    /// Lockfiles and dependency manifests judged by the lockfile comparison.
-    Dependencies,
-    /// Documentation.
-    Docs,
-    /// Marked irrelevant by the policy.
-    Irrelevant,
-}
-
-impl PathClass {
-    /// The word used in reports.
-    pub fn as_str(self) -> &'static str {
-        match self {
-            PathClass::Data => "data",
-            PathClass::Code => "code",
-            PathClass::Config => "config",
-            PathClass::Dependencies => "dependencies",
-            PathClass::Docs => "docs",
-            PathClass::Irrelevant => "irrelevant",
-        }
-    }
-}
 
 /// Paths whose change cannot alter training: documentation and licences. Common practice.
 pub fn is_documentation_path(path: &str) -> bool {
@@ -1128,9 +1241,8 @@ pub fn is_documentation_path(path: &str) -> bool {
         || file.starts_with("copying")
         || file.starts_with("authors")
         || file.starts_with("changelog")
+        || file.starts_with("citation")
         || file == "notice"
-        || file == ".gitignore"
-        || file == ".mailmap"
 }
 
 const DATA_EXTENSIONS: &[&str] = &[
@@ -1153,54 +1265,211 @@ const DATA_EXTENSIONS: &[&str] = &[
 const CONFIG_EXTENSIONS: &[&str] = &[
     ".yaml", ".yml", ".json", ".toml", ".ini", ".cfg", ".conf", ".gin", ".jsonnet", ".env",
 ];
-/// Dependency manifests: they only matter through the lockfile beside them.
-const DEPENDENCY_MANIFESTS: &[&str] = &[
+/// Source-code extensions: a program under a `data/` folder is code, not data.
+const SOURCE_EXTENSIONS: &[&str] = &[
+    ".py", ".pyx", ".pxd", ".rs", ".js", ".mjs", ".cjs", ".ts", ".go", ".jl", ".r", ".sh", ".c",
+    ".cc", ".cpp", ".cxx", ".h", ".hpp", ".cu", ".cuh", ".java", ".scala", ".kt", ".rb", ".cs",
+    ".fs", ".swift", ".m", ".lua", ".sql",
+];
+/// Dependency manifests and dependency inputs: what they resolve to is compared as packages
+/// (lockfiles, the installed environment). pip's requirements-file format and pip-tools'
+/// `.in` inputs; PEP 621 `pyproject.toml`; setuptools' `setup.cfg`/`setup.py`; `go.sum`
+/// (Go modules reference); the others' own manifests.
+const DEPENDENCY_FILES: &[&str] = &[
     "pyproject.toml",
+    "setup.cfg",
+    "setup.py",
+    "manifest.in",
     "cargo.toml",
     "package.json",
     "pipfile",
     "environment.yml",
     "environment.yaml",
     "go.mod",
+    "go.sum",
+    "go.work",
+    "go.work.sum",
     "description",
     "project.toml",
+    "gemfile",
+    "renv.lock",
+    "conda-lock.yml",
+    "pixi.toml",
+    "pixi.lock",
 ];
+/// Container, build and environment recipes (Docker/OCI, Make, Just, Nix, Compose), and
+/// infrastructure definitions (Terraform).
+const BUILD_FILES: &[&str] = &[
+    "dockerfile",
+    "containerfile",
+    ".dockerignore",
+    "makefile",
+    "gnumakefile",
+    "justfile",
+    "taskfile.yml",
+    "taskfile.yaml",
+    "docker-compose.yml",
+    "docker-compose.yaml",
+    "compose.yml",
+    "compose.yaml",
+    "flake.nix",
+    "flake.lock",
+    "shell.nix",
+    "default.nix",
+    "vagrantfile",
+    "procfile",
+    ".terraform.lock.hcl",
+];
+/// Repository metadata and developer-tool settings (gitattributes(5), EditorConfig, linters,
+/// formatters, editors, code owners, issue templates).
+const METADATA_FILES: &[&str] = &[
+    ".gitignore",
+    ".gitattributes",
+    ".gitmodules",
+    ".mailmap",
+    ".git-blame-ignore-revs",
+    ".editorconfig",
+    "codeowners",
+    ".pre-commit-config.yaml",
+    ".pre-commit-hooks.yaml",
+    ".flake8",
+    ".pylintrc",
+    "pylintrc",
+    "mypy.ini",
+    ".mypy.ini",
+    "ruff.toml",
+    ".ruff.toml",
+    ".isort.cfg",
+    ".coveragerc",
+    "pytest.ini",
+    "tox.ini",
+    "noxfile.py",
+    ".clang-format",
+    ".clang-tidy",
+    "rustfmt.toml",
+    ".rustfmt.toml",
+    "clippy.toml",
+    ".prettierrc",
+    ".prettierignore",
+    ".eslintrc",
+    ".eslintrc.json",
+    ".eslintrc.js",
+    ".eslintignore",
+    ".yamllint",
+    ".markdownlint.json",
+    ".readthedocs.yaml",
+    ".readthedocs.yml",
+    "mkdocs.yml",
+    ".style.yapf",
+    "codecov.yml",
+    ".codecov.yml",
+    "renovate.json",
+    ".nvmrc",
+];
+/// Folders of repository metadata and editor settings.
+const METADATA_FOLDERS: &[&str] = &[".github", ".vscode", ".idea", ".devcontainer", ".gitlab"];
+/// Continuous-integration files and folders (GitHub Actions, GitLab CI, CircleCI, Travis,
+/// Azure Pipelines, Jenkins, Buildkite, Drone, Bitbucket, AppVeyor, Woodpecker).
+const CI_FILES: &[&str] = &[
+    ".gitlab-ci.yml",
+    ".travis.yml",
+    "azure-pipelines.yml",
+    "jenkinsfile",
+    ".drone.yml",
+    "bitbucket-pipelines.yml",
+    "appveyor.yml",
+    ".appveyor.yml",
+    ".woodpecker.yml",
+    "cloudbuild.yaml",
+];
+const CI_FOLDERS: &[&str] = &[".circleci", ".buildkite", ".woodpecker", ".ci"];
+/// Test and benchmark folders (pytest, Cargo, Jest, Go and common layouts).
+const TEST_FOLDERS: &[&str] = &[
+    "tests",
+    "test",
+    "testing",
+    "__tests__",
+    "spec",
+    "benches",
+    "benchmarks",
+    "benchmark",
+];
+
+/// True for a test file by its name: pytest's discovery rules (`test_*.py`, `*_test.py`,
+/// `conftest.py`), Go's `*_test.go`, Jest's `*.test.*` and `*.spec.*`, RSpec's `*_spec.rb`.
+fn is_test_file(file: &str) -> bool {
+    let (stem, ext) = file.rsplit_once('.').unwrap_or((file, ""));
+    (ext == "py" && (stem.starts_with("test_") || stem.ends_with("_test") || stem == "conftest"))
+        || file.ends_with("_test.go")
+        || file.ends_with("_spec.rb")
+        || stem.ends_with(".test")
+        || stem.ends_with(".spec")
+}
+
+/// True for a container recipe by its name: `Dockerfile`, `Dockerfile.gpu`, `gpu.Dockerfile`,
+/// `Containerfile`.
+fn is_container_file(file: &str) -> bool {
+    file.starts_with("dockerfile")
+        || file.ends_with(".dockerfile")
+        || file.starts_with("containerfile")
+}
 
 /// Classifies a changed path: the policy's globs first, then the defaults. `lockfiles` are the
 /// lockfile paths recorded in both manifests (their packages are compared one by one).
 pub fn path_class(path: &str, policy: &Policy, lockfiles: &[&str]) -> PathClass {
     if let Some(class) = policy.path_class(path) {
-        return match class {
-            PathClassName::Code => PathClass::Code,
-            PathClassName::Config => PathClass::Config,
-            PathClassName::Data => PathClass::Data,
-            PathClassName::Docs => PathClass::Docs,
-            PathClassName::Irrelevant => PathClass::Irrelevant,
-        };
+        return class;
     }
     if lockfiles.contains(&path) {
         return PathClass::Dependencies;
     }
     let lower = path.to_ascii_lowercase();
-    let (folder, file) = match lower.rsplit_once('/') {
-        Some((d, f)) => (d.to_string(), f.to_string()),
-        None => (String::new(), lower.clone()),
+    let (folders, file): (Vec<&str>, &str) = match lower.rsplit_once('/') {
+        Some((d, f)) => (d.split('/').collect(), f),
+        None => (Vec::new(), lower.as_str()),
     };
-    if DEPENDENCY_MANIFESTS.contains(&file.as_str())
-        && lockfiles.iter().any(|l| {
-            let lf = l.to_ascii_lowercase();
-            lf.rsplit_once('/')
-                .map_or(String::new(), |(d, _)| d.to_string())
-                == folder
-        })
+    let in_folder = |names: &[&str]| folders.iter().any(|d| names.contains(d));
+    let is_source = SOURCE_EXTENSIONS.iter().any(|e| file.ends_with(e));
+    if lower.starts_with(".github/workflows/") || lower.starts_with(".github/actions/") {
+        return PathClass::Ci;
+    }
+    if CI_FILES.contains(&file) || folders.first().is_some_and(|d| CI_FOLDERS.contains(d)) {
+        return PathClass::Ci;
+    }
+    if DEPENDENCY_FILES.contains(&file)
+        || (file.starts_with("requirements") && (file.ends_with(".txt") || file.ends_with(".in")))
+        || (file.starts_with("constraints") && file.ends_with(".txt"))
+        || ((file.ends_with(".in") || file.ends_with(".txt"))
+            && folders.last() == Some(&"requirements"))
     {
         return PathClass::Dependencies;
     }
     if is_documentation_path(path) {
         return PathClass::Docs;
     }
-    let in_folder = |names: &[&str]| lower.split('/').rev().skip(1).any(|d| names.contains(&d));
-    if DATA_EXTENSIONS.iter().any(|e| file.ends_with(e)) || in_folder(&["data", "datasets"]) {
+    if METADATA_FILES.contains(&file)
+        || folders
+            .first()
+            .is_some_and(|d| METADATA_FOLDERS.contains(d))
+    {
+        return PathClass::Metadata;
+    }
+    if is_container_file(file)
+        || BUILD_FILES.contains(&file)
+        || file.ends_with(".tf")
+        || file.ends_with(".tfvars")
+    {
+        return PathClass::Build;
+    }
+    if is_test_file(file) || in_folder(TEST_FOLDERS) {
+        return PathClass::Tests;
+    }
+    if file.ends_with(".ipynb") {
+        return PathClass::Notebooks;
+    }
+    if DATA_EXTENSIONS.iter().any(|e| file.ends_with(e))
+        || (in_folder(&["data", "datasets"]) && !is_source)
+    {
         return PathClass::Data;
     }
     if CONFIG_EXTENSIONS.iter().any(|e| file.ends_with(e))
@@ -1211,24 +1480,33 @@ pub fn path_class(path: &str, policy: &Policy, lockfiles: &[&str]) -> PathClass 
     PathClass::Code
 }
 
-/// The rule for a set of changed-file classes: the most result-relevant class decides.
-pub fn git_rule(classes: &[PathClass]) -> &'static Rule {
-    let has = |c| classes.contains(&c);
-    if has(PathClass::Data) {
-        &GIT_DATA
-    } else if has(PathClass::Code) {
-        &GIT_CODE
-    } else if has(PathClass::Config) {
-        &GIT_CONFIG
-    } else if has(PathClass::Dependencies) {
-        &GIT_DEPENDENCIES
-    } else if has(PathClass::Docs) {
-        &GIT_DOCS
-    } else if has(PathClass::Irrelevant) {
-        &GIT_IRRELEVANT
-    } else {
-        &GIT_EMPTY
+/// The rule for a class of changed files.
+pub fn path_class_rule(class: PathClass) -> &'static Rule {
+    match class {
+        PathClass::Data => &GIT_DATA,
+        PathClass::Code => &GIT_CODE,
+        PathClass::Config => &GIT_CONFIG,
+        PathClass::Dependencies => &GIT_DEPENDENCIES,
+        PathClass::Build => &GIT_BUILD,
+        PathClass::Tests => &GIT_TESTS,
+        PathClass::Ci => &GIT_CI,
+        PathClass::Notebooks => &GIT_NOTEBOOKS,
+        PathClass::Metadata => &GIT_METADATA,
+        PathClass::Unchanged => &GIT_UNCHANGED,
+        PathClass::Docs => &GIT_DOCS,
+        PathClass::OutOfScope => &GIT_OUT_OF_SCOPE,
+        PathClass::Irrelevant => &GIT_IRRELEVANT,
     }
+}
+
+/// The rule for a set of changed-file classes: the most result-relevant class decides (the
+/// highest impact, then the highest weight).
+pub fn git_rule(classes: &[PathClass]) -> &'static Rule {
+    classes
+        .iter()
+        .map(|c| path_class_rule(*c))
+        .max_by_key(|r| (r.impact, r.weight))
+        .unwrap_or(&GIT_EMPTY)
 }
 
 // ------------------------------------------------------------------------------------------------
@@ -1391,7 +1669,38 @@ mod tests {
             ("requirements.txt", PathClass::Dependencies),
             ("trainer/pyproject.toml", PathClass::Dependencies),
             ("pyproject.toml", PathClass::Dependencies),
-            ("tools/pyproject.toml", PathClass::Config),
+            ("tools/pyproject.toml", PathClass::Dependencies),
+            // pytest discovery conventions, Go's `go test`, Jest.
+            ("tests/test_model.py", PathClass::Tests),
+            ("kelp/test_utils.py", PathClass::Tests),
+            ("kelp/utils_test.py", PathClass::Tests),
+            ("conftest.py", PathClass::Tests),
+            ("pkg/loader_test.go", PathClass::Tests),
+            ("web/src/app.test.ts", PathClass::Tests),
+            ("benchmarks/speed.py", PathClass::Tests),
+            // GitHub Actions workflow syntax, GitLab CI.
+            (".github/workflows/ci.yml", PathClass::Ci),
+            (".gitlab-ci.yml", PathClass::Ci),
+            (".github/CODEOWNERS", PathClass::Metadata),
+            (".gitattributes", PathClass::Metadata),
+            (".editorconfig", PathClass::Metadata),
+            (".pre-commit-config.yaml", PathClass::Metadata),
+            ("Dockerfile", PathClass::Build),
+            ("docker/Dockerfile.gpu", PathClass::Build),
+            ("Makefile", PathClass::Build),
+            ("flake.lock", PathClass::Build),
+            ("infra/main.tf", PathClass::Build),
+            ("notebooks/explore.ipynb", PathClass::Notebooks),
+            ("requirements.in", PathClass::Dependencies),
+            ("requirements/dev.txt", PathClass::Dependencies),
+            ("go.sum", PathClass::Dependencies),
+            ("setup.cfg", PathClass::Dependencies),
+            ("setup.py", PathClass::Dependencies),
+            // A program under a data folder is code; a table there is data.
+            ("kelp/data/loader.py", PathClass::Code),
+            ("datasets/tides.parquet", PathClass::Data),
+            ("data/README.txt", PathClass::Data),
+            ("scripts/preprocess.py", PathClass::Code),
         ] {
             assert_eq!(path_class(path, &p, &locks), want, "{path}");
         }
@@ -1405,12 +1714,24 @@ mod tests {
         assert_eq!(env_rule("TF_CPP_MIN_LOG_LEVEL", &p).impact, Impact::None);
         assert_eq!(env_rule("NCCL_ALGO", &p).id, "env.collectives");
         assert_eq!(env_rule("PYTHONHASHSEED", &p).id, "env.hash-seed");
+        // Cache folders, messages and folder locations do not compute.
+        for name in [
+            "TORCH_HOME",
+            "HF_HOME",
+            "XDG_CACHE_HOME",
+            "TORCH_SHOW_CPP_STACKTRACES",
+            "VIRTUAL_ENV",
+        ] {
+            assert_eq!(env_rule(name, &p).impact, Impact::None, "{name}");
+        }
+        // Terraform's TF_CLI_CONFIG_FILE is not TensorFlow's.
+        assert_eq!(env_rule("TF_CLI_CONFIG_FILE", &p).id, "env.not-numerical");
     }
 
     #[test]
     fn package_rules_by_kind() {
         let p = Policy::default();
-        let numeric = classify_package("numpy", false, None, &p);
+        let numeric = classify_package("numpy", false, None, &[], &p);
         let v = |o, n| PackageChange::Version {
             ecosystem: "pypi",
             old: o,
@@ -1428,7 +1749,7 @@ mod tests {
             package_rule("numpy", &numeric, v("2.1.2", "2.1.3")).0.id,
             "pkg.numeric.patch"
         );
-        let torch = classify_package("torch", false, None, &p);
+        let torch = classify_package("torch", false, None, &[], &p);
         assert_eq!(
             package_rule("torch", &torch, v("2.1.0+cpu", "2.1.0+cu121"))
                 .0
@@ -1441,20 +1762,72 @@ mod tests {
                 .id,
             "pkg.numeric.build-variant"
         );
-        let pure = classify_package("attrs", false, None, &p);
+        let pure = classify_package("kelp-utils", false, None, &[], &p);
         assert_eq!(pure.class, PackageClass::Pure);
         assert!(pure.how.contains("heuristic"));
         assert_eq!(
-            package_rule("attrs", &pure, v("23.1.0", "23.1.1")).0.impact,
+            package_rule("kelp-utils", &pure, v("23.1.0", "23.1.1"))
+                .0
+                .impact,
             Impact::None
         );
-        let sys = classify_package("zstd-sys", false, None, &p);
+        // calver.org: a year as the first number is a calendar release, not a major one.
+        assert_eq!(
+            package_rule("kelp-utils", &pure, v("2023.11.17", "2024.2.2")).1,
+            "kelp-utils (calendar-versioned release) is not in runprint's tables; judged by a heuristic, nothing recorded or in its name suggests compiled code"
+        );
+        // Infrastructure, profiling and metapackages never raise the verdict.
+        for name in [
+            "grpcio",
+            "opentelemetry-sdk",
+            "certifi",
+            "filelock",
+            "attrs",
+            "pip",
+            "setuptools",
+            "wheel",
+            "loguru",
+            "nvidia-nvtx-cu12",
+            "nvidia-cuda-cupti-cu12",
+            "nvidia-cufile-cu12",
+            "cuda-toolkit",
+        ] {
+            let c = classify_package(name, false, None, &[], &p);
+            assert_eq!(c.class, PackageClass::Infrastructure, "{name}");
+            assert_eq!(
+                package_rule(name, &c, v("1.0.0", "2.0.0")).0.impact,
+                Impact::None,
+                "{name}"
+            );
+        }
+        // CUDA libraries stay numerical.
+        for name in [
+            "nvidia-cudnn-cu12",
+            "nvidia-cublas-cu12",
+            "nvidia-nccl-cu12",
+        ] {
+            assert_eq!(
+                classify_package(name, false, None, &[], &p).class,
+                PackageClass::Numeric
+            );
+        }
+        // PEP 440 local labels of extension-kernel wheels mark compiled builds.
+        let kernel = classify_package(
+            "kelp-attention",
+            false,
+            None,
+            &["2.7.3+cu123torch2.5", "2.7.4+cu123torch2.5"],
+            &p,
+        );
+        assert_eq!(kernel.class, PackageClass::Compiled);
+        assert!(kernel.how.contains("+cu123torch2.5"), "{}", kernel.how);
+        let sys = classify_package("zstd-sys", false, None, &[], &p);
         assert_eq!(sys.class, PackageClass::Compiled);
         assert_eq!(
-            classify_package("left-pad", true, None, &p).class,
+            classify_package("left-pad", true, None, &[], &p).class,
             PackageClass::Dev
         );
-        let blas = classify_package("scipy-openblas64", false, None, &p);
+        let blas = classify_package("scipy-openblas64", false, None, &[], &p);
         assert_eq!(
             package_rule("scipy-openblas64", &blas, v("0.3.27.44.3", "0.3.28.0.2"))
                 .0
