@@ -153,7 +153,7 @@ pub fn read_cache_file(path: &Path) -> Result<Vec<u8>, CacheRead> {
 
 /// Bytes from hexadecimal digits, or `None`.
 fn decode_hex(hex: &[u8]) -> Option<Vec<u8>> {
-    if hex.len() % 2 != 0 {
+    if !hex.len().is_multiple_of(2) {
         return None;
     }
     hex.chunks(2)

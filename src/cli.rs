@@ -156,6 +156,12 @@ struct CollectArgs {
     /// a patch that looks like it holds a credential is not stored.
     #[arg(long, value_name = "BYTES", num_args = 0..=1, default_missing_value = "1048576")]
     keep_patch: Option<u64>,
+    /// A training entry point: a file (`train.py`) or a Python module (`kelp.train`)
+    /// (repeatable). Records the job's scope: the files it imports and the packages it can
+    /// load, so that `diff` judges changes outside it as harmless. Default: the `[scope]` of
+    /// the repository's runprint.toml, if any.
+    #[arg(long, value_name = "PATH_OR_MODULE")]
+    entry: Vec<String>,
 }
 
 #[derive(Debug, Clone, Copy, ValueEnum)]
@@ -295,6 +301,29 @@ impl CollectArgs {
         opts.no_lockfiles = self.no_lockfiles;
         opts.keep_patch = self.keep_patch;
         opts.python = self.python;
+        // The policy's [scope] gives the lockfiles and reads; --entry replaces its entries.
+        let declared = match crate::policy::Policy::discover(None, &self.repo) {
+            Ok(p) => p.scope,
+            Err(e) => {
+                eprintln!(
+                    "warning: {}; its [scope] is not used",
+                    crate::escape::printable(&e.to_string())
+                );
+                None
+            }
+        };
+        opts.scope = match (declared, self.entry.is_empty()) {
+            (Some(mut s), false) => {
+                s.entry = self.entry;
+                Some(s)
+            }
+            (Some(s), true) => Some(s),
+            (None, false) => Some(crate::collect::scope::Request {
+                entry: self.entry,
+                ..Default::default()
+            }),
+            (None, true) => None,
+        };
         opts.data = crate::collect::data::DataOptions {
             cache_dir: self
                 .cache

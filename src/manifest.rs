@@ -68,6 +68,8 @@ struct ManifestFile {
     native: NativeInfo,
     #[serde(default)]
     gpu: Option<GpuInfo>,
+    #[serde(default)]
+    scope: Option<Scope>,
 }
 
 impl From<ManifestFile> for Manifest {
@@ -86,6 +88,7 @@ impl From<ManifestFile> for Manifest {
                 python: f.python,
                 native: f.native,
                 gpu: f.gpu,
+                scope: f.scope,
             },
         }
     }
@@ -143,6 +146,46 @@ pub struct Content {
     /// before this section existed.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub gpu: Option<GpuInfo>,
+    /// The training job's scope (`stamp --entry`, or `[scope]` in the policy file): its entry
+    /// points, the repository files they import and the packages they can load.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub scope: Option<Scope>,
+}
+
+/// What the training job runs and reads. A change outside it cannot change the model; the
+/// comparison uses it only when it is complete on both sides.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct Scope {
+    /// Entry points as given: files (`train.py`) or Python modules (`kelp.train`).
+    pub entry: Vec<String>,
+    /// The lockfiles the job installs from (paths of recorded lockfiles); other lockfiles
+    /// are listed by the comparison but cannot raise its verdict.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub lockfiles: Vec<String>,
+    /// Globs of the configuration and data files the job reads.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub reads: Vec<String>,
+    /// False when the import closure could not be computed exactly (see `notes`): the
+    /// comparison then judges changed files as if no scope were declared.
+    pub complete: bool,
+    /// Why the closure or the package list is not complete.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub notes: Vec<String>,
+    /// Imports inside functions, classes, `if` or `try` (counted into the closure).
+    #[serde(default, deserialize_with = "toml_u64")]
+    pub conditional_imports: u64,
+    /// Top-level modules from outside the repository and the standard library it imports.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub modules: Vec<String>,
+    /// Every package the job can load: the distributions of `modules` and their
+    /// dependencies, followed through the recorded edges. Absent when they could not all be
+    /// followed (then no package is judged out of scope).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub packages: Option<Vec<String>>,
+    /// The repository files of the import closure, with their git blob ids.
+    #[serde(default, skip_serializing_if = "BTreeMap::is_empty")]
+    pub files: BTreeMap<String, String>,
 }
 
 /// One declared data input: a file or a folder.
@@ -407,6 +450,14 @@ pub struct Package {
     /// the format says.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub platform: Option<String>,
+    /// Whether its wheels hold compiled code, from the wheel file names the format lists
+    /// (PEP 427 tags: any ABI other than `none` or platform other than `any`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub compiled: Option<bool>,
+    /// Names of the packages it depends on, where the format records the edges (sorted,
+    /// without duplicates).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub requires: Vec<String>,
 }
 
 /// One Python interpreter and the distributions installed for it.
@@ -459,6 +510,9 @@ pub struct Distribution {
     /// Ships compiled code (extension modules or bundled shared libraries).
     #[serde(default, skip_serializing_if = "is_false")]
     pub compiled: bool,
+    /// The distributions it needs (`Requires-Dist`, extras left out), normalized, sorted.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub requires: Vec<String>,
 }
 
 /// One package of a conda environment.

@@ -163,6 +163,8 @@ pub struct Policy {
     pub accept: Vec<Acceptance>,
     /// The day acceptances are checked against (`YYYY-MM-DD`); today unless set.
     pub today: Option<String>,
+    /// The training job's scope (`[scope]`), when declared.
+    pub scope: Option<crate::collect::scope::Request>,
 }
 
 #[derive(Deserialize)]
@@ -178,6 +180,19 @@ struct PolicyFile {
     env: EnvFile,
     #[serde(default)]
     accept: Vec<AcceptFile>,
+    #[serde(default)]
+    scope: Option<ScopeFile>,
+}
+
+#[derive(Deserialize, Default)]
+#[serde(deny_unknown_fields)]
+struct ScopeFile {
+    #[serde(default)]
+    entry: Vec<String>,
+    #[serde(default)]
+    lockfiles: Globs,
+    #[serde(default)]
+    reads: Globs,
 }
 
 type Globs = Vec<Spanned<String>>;
@@ -313,7 +328,7 @@ fn key_at(text: &str, line: usize) -> Option<String> {
 fn days_in_month(year: u32, month: u32) -> u32 {
     match month {
         4 | 6 | 9 | 11 => 30,
-        2 if (year % 4 == 0 && year % 100 != 0) || year % 400 == 0 => 29,
+        2 if (year.is_multiple_of(4) && !year.is_multiple_of(100)) || year.is_multiple_of(400) => 29,
         2 => 28,
         _ => 31,
     }
@@ -425,6 +440,27 @@ impl Policy {
             (EnvClass::Logging, &e.logging, "env.logging"),
         ] {
             policy.env.push((class, globs(list, key, false)?));
+        }
+        if let Some(scope) = &file.scope {
+            // The globs are checked here so that a bad one is an error naming its line.
+            globs(&scope.lockfiles, "scope.lockfiles", false)?;
+            globs(&scope.reads, "scope.reads", false)?;
+            if scope.entry.is_empty() {
+                return Err(invalid(
+                    None,
+                    Some("scope.entry".into()),
+                    "a scope needs at least one entry point".into(),
+                ));
+            }
+            policy.scope = Some(crate::collect::scope::Request {
+                entry: scope.entry.clone(),
+                lockfiles: scope
+                    .lockfiles
+                    .iter()
+                    .map(|g| g.get_ref().clone())
+                    .collect(),
+                reads: scope.reads.iter().map(|g| g.get_ref().clone()).collect(),
+            });
         }
         for (i, a) in file.accept.iter().enumerate() {
             let key = |k: &str| Some(format!("accept[{i}].{k}"));

@@ -266,9 +266,17 @@ fn package() -> impl Strategy<Value = Package> {
             prop::option::of(any::<bool>()),
             opt_text(),
         ),
+        (
+            prop::option::of(any::<bool>()),
+            prop::collection::vec(text(), 0..3),
+        ),
     )
         .prop_map(
-            |((name, version, source, hashes), (features, dev, optional, direct, platform))| {
+            |(
+                (name, version, source, hashes),
+                (features, dev, optional, direct, platform),
+                (compiled, requires),
+            )| {
                 Package {
                     name,
                     version,
@@ -279,6 +287,8 @@ fn package() -> impl Strategy<Value = Package> {
                     optional,
                     direct,
                     platform,
+                    compiled,
+                    requires,
                 }
             },
         )

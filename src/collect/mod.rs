@@ -20,6 +20,7 @@ pub mod lockfiles;
 pub mod native;
 pub mod patch;
 pub mod python;
+pub mod scope;
 pub mod stack_cache;
 pub mod system;
 
@@ -52,6 +53,9 @@ pub struct StampOptions {
     /// Store the uncommitted change as a patch, leaving out files above this many bytes
     /// (`stamp --keep-patch`); `None`: do not store it.
     pub keep_patch: Option<u64>,
+    /// The training job's declared scope (`--entry`, the policy's `[scope]`); `None`: no
+    /// scope is recorded.
+    pub scope: Option<scope::Request>,
 }
 
 impl StampOptions {
@@ -74,6 +78,7 @@ impl StampOptions {
             data: data::DataOptions::default(),
             python: Vec::new(),
             keep_patch: None,
+            scope: None,
         }
     }
 }
@@ -522,6 +527,7 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
     }
     lock_cache.save();
 
+    let untracked: Vec<String> = untracked.map(<[String]>::to_vec).unwrap_or_default();
     let mut warnings = Vec::new();
     match git_result {
         Ok(facts) => {
@@ -529,6 +535,37 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
             warnings.extend(facts.warnings);
         }
         Err(e) => warnings.push(e),
+    }
+    if let Some(request) = &opts.scope {
+        let mut changed = content.git.changed_paths.clone();
+        changed.extend(untracked);
+        let index = work_tree
+            .as_ref()
+            .filter(|_| content.git.present)
+            .map(|(_, index)| index.as_path());
+        content.scope = Some(timed(t, "scope", || {
+            scope::collect(
+                request,
+                &scope::Inputs {
+                    root: &root,
+                    index,
+                    changed: &changed,
+                    python: &content.python,
+                    lockfiles: &content.lockfiles,
+                    cache_dir: opts.data.cache_dir.as_deref(),
+                },
+            )
+        }));
+        if let Some(sc) = &content.scope {
+            warnings.extend(
+                sc.notes
+                    .iter()
+                    .filter(|n| n.starts_with("entry point"))
+                    .map(|n| format!("scope: {n}")),
+            );
+        }
+        // The ahead-of-time serialization does not hold the scope.
+        prepared = None;
     }
     if let Some(cap) = opts.keep_patch.filter(|_| content.git.dirty) {
         content.git.patch = patch::collect(&root, cap, &mut warnings);

@@ -439,6 +439,7 @@ fn read_distribution(
     let mut d = Distribution {
         name: dist_name.clone(),
         version,
+        requires: crate::stack::python::parse_requires_dist(&text),
         ..Distribution::default()
     };
     let mut files = DistFiles {

@@ -27,7 +27,7 @@ use crate::collect::python::PythonScan;
 use crate::manifest::{hex, NativeInfo};
 
 const CACHE_KIND: &str = "runprint-stack-cache";
-const CACHE_VERSION: u32 = 2;
+const CACHE_VERSION: u32 = 3;
 
 /// Environment variables the Python and native collectors read (`src/collect/python.rs`,
 /// `src/collect/native.rs`); every variable whose name starts with `PYTHON` counts too, since

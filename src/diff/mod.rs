@@ -306,6 +306,73 @@ pub struct Context<'a> {
     /// Lockfile paths recorded in both manifests.
     pub lockfiles: Vec<&'a str>,
     compiled: BTreeMap<String, bool>,
+    /// The training job's scope, when both manifests recorded one.
+    pub scope: Option<ScopeView>,
+}
+
+/// The training job's scope as both manifests record it: the union of both sides, so that a
+/// file or package in either is in scope.
+#[derive(Debug, Default)]
+pub struct ScopeView {
+    /// Both closures are complete: files outside them can be judged out of scope.
+    pub files_known: bool,
+    /// Repository files of either closure.
+    pub files: BTreeSet<String>,
+    /// Globs of configuration and data the job reads (either side).
+    pub reads: Option<globset::GlobSet>,
+    /// Packages either side can load, when both sides know them.
+    pub packages: Option<BTreeSet<String>>,
+    /// Lockfiles in scope on either side.
+    pub lockfiles: BTreeSet<String>,
+    /// Why parts of the scope could not be used, for the report's notes.
+    pub notes: Vec<String>,
+}
+
+impl ScopeView {
+    /// The view of two manifests' scopes; `None` unless both recorded one.
+    pub fn of(old: &Content, new: &Content) -> Option<ScopeView> {
+        let (a, b) = (old.scope.as_ref()?, new.scope.as_ref()?);
+        let mut v = ScopeView {
+            files_known: a.complete && b.complete,
+            ..ScopeView::default()
+        };
+        v.files
+            .extend(a.files.keys().chain(b.files.keys()).cloned());
+        v.lockfiles
+            .extend(a.lockfiles.iter().chain(&b.lockfiles).cloned());
+        let globs: Vec<&String> = a.reads.iter().chain(&b.reads).collect();
+        if !globs.is_empty() {
+            let mut set = globset::GlobSetBuilder::new();
+            for g in globs {
+                if let Ok(glob) = globset::GlobBuilder::new(g).literal_separator(true).build() {
+                    set.add(glob);
+                }
+            }
+            v.reads = set.build().ok();
+        }
+        v.packages = match (&a.packages, &b.packages) {
+            (Some(x), Some(y)) => Some(x.iter().chain(y).map(|p| p.to_ascii_lowercase()).collect()),
+            _ => None,
+        };
+        if !v.files_known {
+            v.notes.push("the training job's import closure is incomplete on at least one side, so changed files are judged without it (see `[scope] notes`)".into());
+        }
+        if v.packages.is_none() {
+            v.notes.push("the packages the training job can load are not known on both sides, so every package is judged (see `[scope] notes`)".into());
+        }
+        Some(v)
+    }
+
+    /// True when the package cannot be loaded by the job.
+    pub fn excludes_package(&self, name: &str) -> bool {
+        let n = crate::lockfile::requirements::normalize_name(name);
+        self.packages.as_ref().is_some_and(|p| !p.contains(&n))
+    }
+
+    /// True when the lockfile is not one the job installs from.
+    pub fn excludes_lockfile(&self, path: &str) -> bool {
+        !self.lockfiles.contains(path)
+    }
 }
 
 impl<'a> Context<'a> {
@@ -328,6 +395,7 @@ impl<'a> Context<'a> {
             policy,
             lockfiles,
             compiled,
+            scope: ScopeView::of(old, new),
         }
     }
 
@@ -340,6 +408,7 @@ impl<'a> Context<'a> {
     #[allow(clippy::too_many_arguments)]
     pub fn package_change(
         &self,
+        lockfile: Option<&str>,
         section: &str,
         subject: String,
         name: &str,
@@ -356,7 +425,21 @@ impl<'a> Context<'a> {
                 .map(String::as_str)
                 .collect(),
         };
-        let class = rules::classify_package(name, dev, compiled, &versions, self.policy);
+        let mut class = rules::classify_package(name, dev, compiled, &versions, self.policy);
+        let scope = self.scope.as_ref();
+        if let Some(path) = lockfile.filter(|p| scope.is_some_and(|s| s.excludes_lockfile(p))) {
+            class = rules::Classified {
+                class: crate::classes::PackageClass::OutOfScope,
+                how: format!("locked in `{path}`, which the training job does not install from"),
+            };
+        } else if scope.is_some_and(|s| s.excludes_package(name))
+            && class.class != crate::classes::PackageClass::OutOfScope
+        {
+            class = rules::Classified {
+                class: crate::classes::PackageClass::OutOfScope,
+                how: "not imported by the training code, directly or through a dependency".into(),
+            };
+        }
         let (rule, lead) = rules::package_rule(name, &class, change);
         Change::from_rule(rule, section, subject, lead, values.0, values.1)
     }
@@ -403,6 +486,9 @@ pub fn compare_with(
     compare_system(&old.content, &new.content, &mut changes);
     compare_run(old, new, &mut changes);
     stack::compare(&old.content, &new.content, &ctx, &mut changes);
+    if let Some(s) = &ctx.scope {
+        notes.extend(s.notes.iter().cloned());
+    }
     let expired_acceptances = apply_acceptances(policy, &mut changes, &mut notes);
     sort_changes(&mut changes);
     let verdict = changes
@@ -566,7 +652,13 @@ fn classify_paths(
         let class = if unchanged.contains(p) {
             PathClass::Unchanged
         } else {
-            rules::path_class(p, ctx.policy, &ctx.lockfiles)
+            let class = rules::path_class(p, ctx.policy, &ctx.lockfiles);
+            match &ctx.scope {
+                Some(s) if s.files_known && rules::outside_scope(p, class, s) => {
+                    PathClass::OutOfScope
+                }
+                _ => class,
+            }
         };
         classes.entry(class).or_default().push(p.clone());
     }
@@ -908,7 +1000,24 @@ fn whole_lockfile(l: &Lockfile, added: bool, ctx: &Context<'_>) -> Change {
         .map(|p| p.name.as_str())
         .collect();
     let verb = if added { "added" } else { "removed" };
-    let (rule, lead) = if let Some(n) = l.packages_omitted {
+    let scope = ctx.scope.as_ref();
+    let (rule, lead) = if scope.is_some_and(|s| s.excludes_lockfile(&l.path)) {
+        (
+            &rules::LOCK_OUT_OF_SCOPE,
+            format!("the lockfile was {verb}; the training job does not install from it"),
+        )
+    } else if l.packages_omitted.is_none()
+        && !l.packages.is_empty()
+        && scope.is_some_and(|s| l.packages.iter().all(|p| s.excludes_package(&p.name)))
+    {
+        (
+            &rules::LOCK_OUT_OF_SCOPE,
+            format!(
+                "the lockfile was {verb} with {} package(s), none of which the training code imports, directly or through a dependency",
+                l.packages.len()
+            ),
+        )
+    } else if let Some(n) = l.packages_omitted {
         (
             &rules::LOCK_UNRECORDED,
             format!(
@@ -994,7 +1103,16 @@ fn compare_packages(
         let dev = a.iter().chain(b.iter()).all(|p| p.dev);
         let compiled = ctx.compiled(name);
         let pkg = |subject: String, change, values| {
-            ctx.package_change("lockfiles", subject, name, dev, compiled, change, values)
+            ctx.package_change(
+                Some(path),
+                "lockfiles",
+                subject,
+                name,
+                dev,
+                compiled,
+                change,
+                values,
+            )
         };
         if a.is_empty() || b.is_empty() {
             let change = if a.is_empty() {

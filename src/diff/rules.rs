@@ -264,6 +264,10 @@ rules! {
         "lockfile changed whose packages were not recorded (over the package limit)",
         "the manifest holds only its digest, so nothing shows that the change spares the packages that do the arithmetic",
         "common practice";
+    LOCK_OUT_OF_SCOPE = "lock.out-of-scope", "lockfiles", None, 2,
+        "lockfile the training job does not install from",
+        "its packages are not installed for the job (a web front end, a serving image, another project of the repository)",
+        "runprint.toml or --entry of the repository";
     LOCK_EMPTY = "lock.empty", "lockfiles", None, 0,
         "empty lockfile added or removed",
         "it lists no packages",
@@ -1478,6 +1482,32 @@ pub fn path_class(path: &str, policy: &Policy, lockfiles: &[&str]) -> PathClass 
         return PathClass::Config;
     }
     PathClass::Code
+}
+
+/// Sources a Python job may compile and load at run time (C, C++, CUDA, Rust extensions,
+/// `torch.utils.cpp_extension.load`, pyo3): never judged out of scope by the import closure.
+const NATIVE_SOURCES: &[&str] = &[
+    ".c", ".cc", ".cpp", ".cxx", ".h", ".hpp", ".cu", ".cuh", ".rs", ".pyx", ".pxd",
+];
+
+/// True when a changed file lies outside the training job's scope: not in the import closure
+/// of either side, and not configuration or data the job reads (when the scope declares what
+/// it reads; otherwise configuration and data stay in scope).
+pub fn outside_scope(path: &str, class: PathClass, scope: &super::ScopeView) -> bool {
+    if scope.files.contains(path) {
+        return false;
+    }
+    let lower = path.to_ascii_lowercase();
+    match class {
+        PathClass::Code | PathClass::Notebooks => {
+            !NATIVE_SOURCES.iter().any(|e| lower.ends_with(e))
+        }
+        PathClass::Config | PathClass::Data => scope
+            .reads
+            .as_ref()
+            .is_some_and(|reads| !reads.is_match(path)),
+        _ => false,
+    }
 }
 
 /// The rule for a class of changed files.

@@ -183,6 +183,7 @@ fn compare_distributions<'a>(
             }
         };
         out.push(ctx.package_change(
+            None,
             "python",
             format!("{label}: {name}"),
             name,
@@ -238,6 +239,7 @@ fn compare_conda(
         };
         // conda packages are mostly compiled; the name heuristics decide for unknown ones.
         out.push(ctx.package_change(
+            None,
             "python",
             subject,
             name,

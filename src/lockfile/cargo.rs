@@ -32,6 +32,9 @@ struct TomlPackage {
     version: String,
     source: Option<String>,
     checksum: Option<String>,
+    // Cargo writes each edge as `name`, `name version` or `name version (source)`.
+    #[serde(default)]
+    dependencies: Vec<String>,
 }
 
 /// Parses the text of a `Cargo.lock`; `path` only names the file in errors.
@@ -88,6 +91,11 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
                 version: p.version,
                 source: p.source.map(|s| crate::redact::scrub_url_credentials(&s)),
                 hashes: checksum.into_iter().collect(),
+                requires: crate::lockfile::support::requires_list(
+                    p.dependencies
+                        .iter()
+                        .filter_map(|d| d.split_whitespace().next().map(str::to_string)),
+                ),
                 ..Package::default()
             }
         })

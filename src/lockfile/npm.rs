@@ -208,6 +208,12 @@ fn from_packages(
             optional: p.optional || p.dev_optional,
             direct: Some(at_top && wanted.contains(install_name)),
             platform: platform_label(&p.os.to_vec(), &p.cpu.to_vec(), &p.libc.to_vec()),
+            requires: crate::lockfile::support::requires_list(
+                p.dependencies
+                    .keys()
+                    .chain(p.optional_dependencies.keys())
+                    .cloned(),
+            ),
             ..Package::default()
         });
     }

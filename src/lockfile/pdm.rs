@@ -61,11 +61,14 @@ struct TomlPackage {
     url: Option<String>,
     #[serde(default)]
     editable: bool,
+    #[serde(default)]
+    dependencies: Vec<String>,
 }
 
 #[derive(Deserialize)]
 struct TomlFile {
     hash: String,
+    file: Option<String>,
 }
 
 /// Parses the text of a `pdm.lock`; `path` only names the file in errors.
@@ -147,6 +150,18 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
             dev,
             optional,
             platform: p.marker.filter(|m| !m.trim().is_empty()),
+            compiled: crate::lockfile::support::any_compiled(
+                files.iter().filter_map(|f| f.file.as_deref()),
+            ),
+            // PDM writes each edge as a PEP 508 requirement: the name comes first.
+            requires: crate::lockfile::support::requires_list(p.dependencies.iter().filter_map(
+                |d| {
+                    let end = d
+                        .find(|c: char| !(c.is_ascii_alphanumeric() || "-_.".contains(c)))
+                        .unwrap_or(d.len());
+                    (end > 0).then(|| normalize_name(&d[..end]))
+                },
+            )),
             ..Package::default()
         });
     }

@@ -58,11 +58,14 @@ struct TomlPackage {
     #[serde(default)]
     files: Vec<TomlFile>,
     source: Option<TomlSource>,
+    #[serde(default)]
+    dependencies: BTreeMap<String, serde::de::IgnoredAny>,
 }
 
 #[derive(Deserialize)]
 struct TomlFile {
     hash: String,
+    file: Option<String>,
 }
 
 #[derive(Deserialize)]
@@ -134,6 +137,12 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
             dev,
             optional: p.optional,
             platform: any_of_markers(&markers),
+            compiled: crate::lockfile::support::any_compiled(
+                files.iter().filter_map(|f| f.file.as_deref()),
+            ),
+            requires: crate::lockfile::support::requires_list(
+                p.dependencies.keys().map(|n| normalize_name(n)),
+            ),
             ..Package::default()
         });
     }

@@ -59,6 +59,14 @@ struct TomlPackage {
     sdist: Option<TomlFile>,
     #[serde(default)]
     wheels: Vec<TomlFile>,
+    #[serde(default)]
+    dependencies: Vec<TomlDependency>,
+}
+
+/// PEP 751 `[[packages.dependencies]]`: a reference to another entry, by name among others.
+#[derive(Deserialize)]
+struct TomlDependency {
+    name: Option<String>,
 }
 
 #[derive(Deserialize)]
@@ -81,6 +89,7 @@ struct TomlDirectory {
 
 #[derive(Deserialize)]
 struct TomlFile {
+    name: Option<String>,
     url: Option<String>,
     path: Option<String>,
     #[serde(default)]
@@ -153,6 +162,16 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
             dev,
             optional,
             platform: p.marker.filter(|m| !m.trim().is_empty()),
+            compiled: crate::lockfile::support::any_compiled(
+                p.wheels
+                    .iter()
+                    .filter_map(|w| w.name.as_deref().or(w.url.as_deref()).or(w.path.as_deref())),
+            ),
+            requires: crate::lockfile::support::requires_list(
+                p.dependencies
+                    .iter()
+                    .filter_map(|d| d.name.as_deref().map(normalize_name)),
+            ),
             ..Package::default()
         });
     }

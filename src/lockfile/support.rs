@@ -180,3 +180,61 @@ mod tests {
         assert_eq!(sri_hashes(Some("sha512-a sha1-b")), ["sha512-a", "sha1-b"]);
     }
 }
+
+/// Whether a wheel file name (or a URL or path ending in one) holds compiled code: PEP 427
+/// names a wheel `{name}-{version}(-{build})?-{python}-{abi}-{platform}.whl`, and a pure wheel
+/// has ABI `none` and platform `any`. `None` for anything that is not a wheel name.
+pub(crate) fn wheel_is_compiled(file: &str) -> Option<bool> {
+    let name = file.rsplit(['/', '\\']).next()?;
+    let name = name.split(['?', '#']).next()?;
+    let stem = name.strip_suffix(".whl")?;
+    let parts: Vec<&str> = stem.split('-').collect();
+    if parts.len() < 5 {
+        return None;
+    }
+    let (abi, platform) = (parts[parts.len() - 2], parts[parts.len() - 1]);
+    Some(abi != "none" || platform != "any")
+}
+
+/// Whether any of a package's wheels is compiled (`None` when no file name is a wheel).
+pub(crate) fn any_compiled<'a>(files: impl IntoIterator<Item = &'a str>) -> Option<bool> {
+    files
+        .into_iter()
+        .filter_map(wheel_is_compiled)
+        .reduce(|a, b| a || b)
+}
+
+/// Sorted names without duplicates, for `Package::requires`.
+pub(crate) fn requires_list(names: impl IntoIterator<Item = String>) -> Vec<String> {
+    let mut v: Vec<String> = names.into_iter().collect();
+    v.sort();
+    v.dedup();
+    v
+}
+
+#[cfg(test)]
+mod wheel_tests {
+    use super::*;
+
+    #[test]
+    fn wheel_tags_as_pep_427_names_them() {
+        // File names in PEP 427's own examples and PyPI's naming (from memory).
+        assert_eq!(
+            wheel_is_compiled("distribution-1.0-1-py27-none-any.whl"),
+            Some(false)
+        );
+        assert_eq!(
+            wheel_is_compiled("https://files.example.invalid/a/numpy-2.1.3-cp311-cp311-manylinux_2_17_x86_64.manylinux2014_x86_64.whl"),
+            Some(true)
+        );
+        assert_eq!(
+            wheel_is_compiled("requests-2.32.3-py3-none-any.whl"),
+            Some(false)
+        );
+        assert_eq!(wheel_is_compiled("numpy-2.1.3.tar.gz"), None);
+        assert_eq!(
+            any_compiled(["a-1-py3-none-any.whl", "a-1-cp311-cp311-win_amd64.whl"]),
+            Some(true)
+        );
+    }
+}

@@ -65,6 +65,18 @@ struct TomlPackage {
 #[derive(Deserialize)]
 struct TomlArtifact {
     hash: Option<String>,
+    url: Option<String>,
+    path: Option<String>,
+    filename: Option<String>,
+}
+
+impl TomlArtifact {
+    fn file(&self) -> Option<&str> {
+        self.filename
+            .as_deref()
+            .or(self.url.as_deref())
+            .or(self.path.as_deref())
+    }
 }
 
 #[derive(Deserialize)]
@@ -158,6 +170,15 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
             optional: !is_root && !required.contains(&i) && with_extras.contains(&i),
             direct: (!roots.is_empty() && !is_root).then(|| direct.contains(&i)),
             platform: any_of_markers(&p.resolution_markers),
+            compiled: crate::lockfile::support::any_compiled(
+                p.wheels.iter().filter_map(TomlArtifact::file),
+            ),
+            requires: crate::lockfile::support::requires_list(
+                p.dependencies
+                    .iter()
+                    .chain(p.optional_dependencies.values().flatten())
+                    .map(|d| normalize_name(&d.name)),
+            ),
             ..Package::default()
         });
     }

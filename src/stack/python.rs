@@ -53,6 +53,39 @@ pub fn parse_metadata(text: &str, path: &str) -> Result<(String, String), Lockfi
     }
 }
 
+/// The distributions a distribution needs, from its `Requires-Dist` headers (core metadata
+/// 2.1+, PEP 508 requirements): names only, normalized (PEP 503), sorted. Requirements limited
+/// to an extra (`; extra == "dev"`) are left out: a plain install does not pull them in.
+pub fn parse_requires_dist(text: &str) -> Vec<String> {
+    let mut out = Vec::new();
+    for line in text.lines() {
+        if line.trim().is_empty() {
+            break;
+        }
+        let Some((k, v)) = line.split_once(':') else {
+            continue;
+        };
+        if !k.trim().eq_ignore_ascii_case("requires-dist") {
+            continue;
+        }
+        let (req, marker) = v.split_once(';').unwrap_or((v, ""));
+        let m: String = marker.chars().filter(|c| !c.is_whitespace()).collect();
+        if m.contains("extra==") || m.contains("extra===") {
+            continue;
+        }
+        let req = req.trim();
+        let end = req
+            .find(|c: char| !(c.is_ascii_alphanumeric() || "-_.".contains(c)))
+            .unwrap_or(req.len());
+        if end > 0 {
+            out.push(normalize_name(&req[..end]));
+        }
+    }
+    out.sort();
+    out.dedup();
+    out
+}
+
 /// Where a distribution came from according to its `direct_url.json`.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct DirectUrl {
@@ -236,6 +269,15 @@ mod tests {
         assert_eq!(
             parse_metadata(m, "x/METADATA").unwrap(),
             ("scikit-learn".into(), "1.5.0".into())
+        );
+        // Core metadata specification, "Requires-Dist" examples (packaging.python.org).
+        let meta = "Metadata-Version: 2.1\nName: kelp\nVersion: 1\nRequires-Dist: pkginfo\n\
+                    Requires-Dist: PasteDeploy\nRequires-Dist: zope.interface (>3.5.0)\n\
+                    Requires-Dist: pywin32 >1.0; sys_platform == 'win32'\n\
+                    Requires-Dist: pytest; extra == \"test\"\n\nRequires-Dist: body-not-header\n";
+        assert_eq!(
+            parse_requires_dist(meta),
+            ["pastedeploy", "pkginfo", "pywin32", "zope-interface"]
         );
         let err = parse_metadata("Name: a\n", "x/METADATA")
             .unwrap_err()
