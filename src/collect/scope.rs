@@ -620,10 +620,17 @@ fn records_edges(path: &str) -> bool {
         || (name.starts_with("pylock.") && name.ends_with(".toml"))
 }
 
-/// The `top_level.txt` of every distribution installed in the stamped environments:
-/// module → distributions.
+/// The top-level modules of every distribution installed in the stamped environments, as
+/// `importlib.metadata.packages_distributions` finds them: `top_level.txt` where the
+/// distribution has one, else the first part of every path its `RECORD` lists (PyPA
+/// "Recording installed projects"). Module → distributions.
 fn installed_top_levels(python: &[PythonEnv]) -> BTreeMap<String, BTreeSet<String>> {
     let mut map: BTreeMap<String, BTreeSet<String>> = BTreeMap::new();
+    let read = |p: &Path| {
+        crate::limits::read_regular_file_nofollow(p)
+            .ok()
+            .map(|b| String::from_utf8_lossy(&b).into_owned())
+    };
     for env in python {
         for site in &env.site_packages {
             let Ok(entries) = std::fs::read_dir(site) else {
@@ -638,16 +645,36 @@ fn installed_top_levels(python: &[PythonEnv]) -> BTreeMap<String, BTreeSet<Strin
                     continue;
                 };
                 let dist = normalize_name(stem.split('-').next().unwrap_or(stem));
-                let Ok(bytes) = crate::limits::read_regular_file_nofollow(
-                    &entry.path().join("top_level.txt"),
-                ) else {
-                    continue;
+                let modules: BTreeSet<String> = match read(&entry.path().join("top_level.txt")) {
+                    Some(text) => text
+                        .lines()
+                        .map(str::trim)
+                        .filter(|l| !l.is_empty())
+                        .map(str::to_string)
+                        .collect(),
+                    None => read(&entry.path().join("RECORD"))
+                        .map(|record| {
+                            crate::stack::python::record_paths(&record)
+                                .filter_map(|p| {
+                                    let first = p.split('/').next()?;
+                                    let top =
+                                        first.split_once('.').map_or(first, |(m, _)| m).to_string();
+                                    let keep = !first.ends_with(".dist-info")
+                                        && !first.ends_with(".data")
+                                        && !first.starts_with("..")
+                                        && first != "__pycache__"
+                                        && (p.contains('/')
+                                            || first.ends_with(".py")
+                                            || first.ends_with(".so")
+                                            || first.ends_with(".pyd"));
+                                    keep.then_some(top)
+                                })
+                                .collect()
+                        })
+                        .unwrap_or_default(),
                 };
-                let text = String::from_utf8_lossy(&bytes);
-                for module in text.lines().map(str::trim).filter(|l| !l.is_empty()) {
-                    map.entry(module.to_string())
-                        .or_default()
-                        .insert(dist.clone());
+                for module in modules {
+                    map.entry(module).or_default().insert(dist.clone());
                 }
             }
         }
@@ -712,11 +739,20 @@ fn packages(
         start.extend(found);
     }
     if !unmapped.is_empty() {
+        // With a stamped interpreter, a module no installed distribution provides cannot be
+        // imported there (a guarded import for another Python version or platform). Without
+        // one, a locked distribution may provide it under another name.
+        if inputs.python.is_empty() {
+            notes.push(format!(
+                "imported module(s) {} match no locked distribution (stamp with the interpreter, --python, to read what is installed), so the packages the job can load are not known",
+                unmapped.join(", ")
+            ));
+            return None;
+        }
         notes.push(format!(
-            "imported module(s) {} match no installed or locked distribution, so the packages the job can load are not known",
+            "imported module(s) {} are not installed in the stamped environment (imports guarded for another Python or platform)",
             unmapped.join(", ")
         ));
-        return None;
     }
     let mut reach = BTreeSet::new();
     let mut queue: VecDeque<String> = start.into_iter().collect();
