@@ -187,6 +187,9 @@ struct DiffArgs {
     /// diff of each changed lockfile's package list.
     #[arg(long, short)]
     verbose: bool,
+    /// List every harmless (`none`) change in the text report, not a count per kind.
+    #[arg(long)]
+    all: bool,
     /// The policy file (default: runprint.toml at the root of the repository named by --repo
     /// or of the current folder's repository, when there is one).
     #[arg(long, value_name = "FILE")]
@@ -215,6 +218,9 @@ struct CheckArgs {
     /// Also show a compact diff of each changed lockfile's package list.
     #[arg(long, short)]
     verbose: bool,
+    /// List every harmless (`none`) change in the text report, not a count per kind.
+    #[arg(long)]
+    all: bool,
     /// The policy file (default: runprint.toml at the root of the repository at `--repo`).
     #[arg(long, value_name = "FILE")]
     policy: Option<PathBuf>,
@@ -484,6 +490,7 @@ fn run_diff(args: DiffArgs) -> ExitStatus {
         report.details = crate::diff::package_list_diffs(&old, &new);
         crate::diff::explain_values(&mut report);
     }
+    report.all = args.all;
     let exit = policy.exit_code(report.verdict);
     emit_report(&report, args.format, exit)
 }
@@ -571,6 +578,7 @@ fn run_check(args: CheckArgs) -> ExitStatus {
         }
         report
     };
+    report.all = args.all;
     if args.verbose && report.details.is_empty() && args.rev.is_some() {
         report.notes.push(
             "--verbose package lists are shown only when comparing with the current environment"

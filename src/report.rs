@@ -56,7 +56,14 @@ fn short(fp: &str) -> &str {
 }
 
 fn counts(report: &Report) -> String {
-    let n = |i: Impact| report.changes.iter().filter(|c| c.impact == i).count();
+    // Rows grouped under another are part of its fact.
+    let n = |i: Impact| {
+        report
+            .changes
+            .iter()
+            .filter(|c| c.impact == i && c.group.is_none())
+            .count()
+    };
     format!(
         "{} retrain, {} verify, {} none",
         n(Impact::Retrain),
@@ -75,6 +82,35 @@ fn paint(s: &str, impact: Impact, color: bool) -> String {
         Impact::None => "2",
     };
     format!("\x1b[{code}m{s}\x1b[0m")
+}
+
+/// The members of the group headed by `head`.
+fn members<'a>(report: &'a Report, head: &'a Change) -> impl Iterator<Item = &'a Change> {
+    report
+        .changes
+        .iter()
+        .filter(move |c| c.group.as_deref() == Some(head.subject.as_str()))
+}
+
+/// The `none` rows by what they are (their rule's title), with counts, largest first.
+fn none_summary(report: &Report) -> Vec<(usize, String)> {
+    let mut by: std::collections::BTreeMap<String, usize> = std::collections::BTreeMap::new();
+    for c in report
+        .changes
+        .iter()
+        .filter(|c| c.impact == Impact::None && c.group.is_none())
+    {
+        let what = if c.accepted.is_some() {
+            "accepted by the policy file".to_string()
+        } else {
+            crate::diff::rules::by_id(&c.rule)
+                .map_or_else(|| c.rule.clone(), |r| r.title.to_string())
+        };
+        *by.entry(what).or_default() += 1;
+    }
+    let mut v: Vec<(usize, String)> = by.into_iter().map(|(k, n)| (n, k)).collect();
+    v.sort_by(|a, b| b.0.cmp(&a.0).then_with(|| a.1.cmp(&b.1)));
+    v
 }
 
 fn text(report: &Report, color: bool) -> String {
@@ -108,7 +144,10 @@ fn text(report: &Report, color: bool) -> String {
     } else {
         let _ = writeln!(out, "  {}", counts(report));
         out.push('\n');
-        for c in &report.changes {
+        for c in report.changes.iter().filter(|c| c.group.is_none()) {
+            if c.impact == Impact::None && !report.all {
+                continue;
+            }
             let word = format!("{:<7}", c.impact.as_str());
             let _ = write!(out, "{}  {}", paint(&word, c.impact, color), p(&c.subject));
             let v = value_change(c);
@@ -117,6 +156,9 @@ fn text(report: &Report, color: bool) -> String {
             }
             out.push('\n');
             let _ = writeln!(out, "         {}", p(&c.reason));
+            if c.lockfiles.len() > 1 {
+                let _ = writeln!(out, "         in {}", p(&c.lockfiles.join(", ")));
+            }
             if report.verbose {
                 if !c.rule.is_empty() {
                     let _ = writeln!(out, "         rule {}; source: {}", c.rule, p(&c.source));
@@ -124,6 +166,29 @@ fn text(report: &Report, color: bool) -> String {
                 if let Some(d) = &c.value_diff {
                     let _ = writeln!(out, "         diff: {}", p(d));
                 }
+            }
+            for m in members(report, c) {
+                let _ = write!(out, "         + {}", p(&m.subject));
+                let v = value_change(m);
+                if !v.is_empty() {
+                    let _ = write!(out, "  {}", p(&v));
+                }
+                let _ = writeln!(out, "  ({})", m.impact);
+                if report.verbose {
+                    let _ = writeln!(out, "           {}", p(&m.reason));
+                }
+            }
+        }
+        let summary = none_summary(report);
+        if !report.all && !summary.is_empty() {
+            let total: usize = summary.iter().map(|(n, _)| n).sum();
+            let _ = writeln!(
+                out,
+                "{}  {total} change(s) judged harmless (--all lists them):",
+                paint("none   ", Impact::None, color)
+            );
+            for (n, what) in summary {
+                let _ = writeln!(out, "         {n} × {}", p(&what));
             }
         }
     }
@@ -139,6 +204,52 @@ fn text(report: &Report, color: bool) -> String {
         );
     }
     out
+}
+
+/// The most a Markdown report may hold: a pull-request comment takes 65,536 characters, and
+/// this leaves room for what a CI job wraps around it.
+pub const MARKDOWN_LIMIT: usize = 60_000;
+
+/// A Markdown table row for a change.
+fn md_row(report: &Report, c: &Change) -> String {
+    let mut reason = md_text(&c.reason);
+    if c.lockfiles.len() > 1 {
+        reason.push_str(&format!(
+            " <br>in {}",
+            c.lockfiles
+                .iter()
+                .map(|l| md_code(l))
+                .collect::<Vec<_>>()
+                .join(", ")
+        ));
+    }
+    if report.verbose && !c.rule.is_empty() {
+        reason.push_str(&format!(" <br>rule `{}`; source: {}", c.rule, p(&c.source)));
+        if let Some(d) = &c.value_diff {
+            reason.push_str(&format!(" <br>diff: {}", md_code(d)));
+        }
+    }
+    format!(
+        "| {} | {} | {} | {} |\n",
+        c.impact,
+        md_code(&c.subject),
+        md_text(&value_change(c)),
+        reason
+    )
+}
+
+const MD_TABLE_HEAD: &str = "| Impact | Subject | Change | Reason |\n|---|---|---|---|\n";
+
+/// Appends `rows` as a table while they fit under `limit`; returns how many were left out.
+fn md_table(out: &mut String, rows: &[String], limit: usize) -> usize {
+    out.push_str(MD_TABLE_HEAD);
+    for (i, r) in rows.iter().enumerate() {
+        if out.len() + r.len() > limit {
+            return rows.len() - i;
+        }
+        out.push_str(r);
+    }
+    0
 }
 
 fn markdown(report: &Report) -> String {
@@ -165,32 +276,82 @@ fn markdown(report: &Report) -> String {
         out.push_str("\nNo differences that runprint records.\n");
         return out;
     }
-    out.push_str("\n| Impact | Subject | Change | Reason |\n|---|---|---|---|\n");
-    for c in &report.changes {
-        let mut reason = md_text(&c.reason);
-        if report.verbose && !c.rule.is_empty() {
-            reason.push_str(&format!(" <br>rule `{}`; source: {}", c.rule, p(&c.source)));
-            if let Some(d) = &c.value_diff {
-                reason.push_str(&format!(" <br>diff: {}", md_code(d)));
-            }
-        }
-        let _ = writeln!(
+    // Room kept for the closing lines and the note on what was left out.
+    let limit = MARKDOWN_LIMIT - 1_000;
+    let mut left_out = 0;
+    let heads: Vec<&Change> = report
+        .changes
+        .iter()
+        .filter(|c| c.group.is_none())
+        .collect();
+    let main: Vec<String> = heads
+        .iter()
+        .filter(|c| c.impact > Impact::None)
+        .map(|c| md_row(report, c))
+        .collect();
+    if !main.is_empty() {
+        out.push('\n');
+        left_out += md_table(&mut out, &main, limit);
+    }
+    let grouped: Vec<String> = report
+        .changes
+        .iter()
+        .filter(|c| c.group.is_some())
+        .map(|c| {
+            let mut c = c.clone();
+            c.subject = format!("{} (with {})", c.subject, c.group.as_deref().unwrap_or(""));
+            md_row(report, &c)
+        })
+        .collect();
+    if !grouped.is_empty() && left_out == 0 {
+        let _ = write!(
             out,
-            "| {} | {} | {} | {} |",
-            c.impact,
-            md_code(&c.subject),
-            md_text(&value_change(c)),
-            reason
+            "\n<details><summary>{} change(s) that came with the rows above</summary>\n\n",
+            grouped.len()
         );
+        left_out += md_table(&mut out, &grouped, limit);
+        out.push_str("\n</details>\n");
+    } else {
+        left_out += grouped.len();
+    }
+    let none: Vec<String> = heads
+        .iter()
+        .filter(|c| c.impact == Impact::None)
+        .map(|c| md_row(report, c))
+        .collect();
+    if !none.is_empty() && left_out == 0 {
+        let _ = write!(
+            out,
+            "\n<details><summary>{} change(s) judged harmless</summary>\n\n",
+            none.len()
+        );
+        for (n, what) in none_summary(report) {
+            let _ = writeln!(out, "- {n} × {}", md_text(&what));
+        }
+        out.push('\n');
+        left_out += md_table(&mut out, &none, limit);
+        out.push_str("\n</details>\n");
+    } else {
+        left_out += none.len();
     }
     for d in &report.details {
         // Inside a fence from `md_fence` everything but the escaped characters is literal.
         let body = printable_lines(&d.diff);
         let fence = md_fence(&body);
-        let _ = write!(
-            out,
+        let block = format!(
             "\n<details><summary>Packages in <code>{}</code></summary>\n\n{fence}diff\n{body}{fence}\n</details>\n",
             md_text(&d.subject),
+        );
+        if out.len() + block.len() > limit {
+            left_out += 1;
+            continue;
+        }
+        out.push_str(&block);
+    }
+    if left_out > 0 {
+        let _ = writeln!(
+            out,
+            "\n*{left_out} more row(s) left out to fit a pull-request comment; `runprint diff --format json` lists every change.*"
         );
     }
     out

@@ -304,3 +304,85 @@ fn help_documents_exit_codes() {
     let out = runprint().args(["diff", "only-one.toml"]).output().unwrap();
     assert_eq!(out.status.code(), Some(2));
 }
+
+/// A bump of 300 packages in each of five lockfiles (torch pulling in the rest): the Markdown
+/// report fits a pull-request comment (GitHub refuses comments above 65,536 characters; from
+/// memory) and still names torch as the cause. Package names besides torch are placeholders:
+/// what is checked is the size.
+#[test]
+fn a_large_bump_fits_a_pull_request_comment_and_names_the_parent() {
+    use runprint::manifest::{Content, Lockfile, Manifest, Package, RunInfo};
+    use runprint::report::{render, ReportFormat};
+    let side = |torch: &str, others: &str| {
+        let names: Vec<String> = (0..299).map(|i| format!("dependency-{i:03}")).collect();
+        let mut packages: Vec<Package> = names
+            .iter()
+            .map(|n| Package {
+                name: n.clone(),
+                version: others.into(),
+                ..Package::default()
+            })
+            .collect();
+        packages.push(Package {
+            name: "torch".into(),
+            version: torch.into(),
+            requires: names.clone(),
+            ..Package::default()
+        });
+        let lockfiles = (0..5)
+            .map(|i| Lockfile {
+                path: format!("project-{i}/uv.lock"),
+                ecosystem: "pypi".into(),
+                sha256: format!(
+                    "sha256:{}",
+                    format!("{i}{torch}")
+                        .repeat(64)
+                        .chars()
+                        .filter(char::is_ascii_hexdigit)
+                        .take(64)
+                        .collect::<String>()
+                ),
+                packages: packages.clone(),
+                ..Lockfile::default()
+            })
+            .collect();
+        Manifest::new(
+            RunInfo::default(),
+            Content {
+                lockfiles,
+                ..Content::default()
+            },
+        )
+    };
+    let (old, new) = (side("2.6.0", "1.0.0"), side("2.7.0", "1.1.0"));
+    let report = runprint::diff::compare("old.toml", &old, "new.toml", &new, None);
+    let md = render(&report, ReportFormat::Markdown, false);
+    assert!(
+        md.chars().count() < 60_000,
+        "{} characters",
+        md.chars().count()
+    );
+    let cause = report.most_likely_cause.clone().unwrap();
+    assert!(
+        cause.starts_with("torch (in 5 lockfiles) 2.6.0 → 2.7.0, with"),
+        "{cause}"
+    );
+    assert!(
+        md.contains("**Most likely cause:** torch"),
+        "{}",
+        &md[..300]
+    );
+    // One row per package, every lockfile listed on it.
+    assert_eq!(report.changes.len(), 300);
+    assert!(report.changes.iter().all(|c| c.lockfiles.len() == 5));
+    // JSON keeps every change and shows the grouping.
+    let json: serde_json::Value =
+        serde_json::from_str(&render(&report, ReportFormat::Json, false)).unwrap();
+    let grouped = json["changes"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .filter(|c| c["group"] == "torch (in 5 lockfiles)")
+        .count();
+    assert_eq!(grouped, 299);
+}

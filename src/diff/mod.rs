@@ -7,6 +7,7 @@
 //! ([`git::diff_stats_between`]) to list and measure the files changed between two commits, so
 //! that documentation-only commits do not ask for a retrain.
 
+pub mod group;
 pub mod rules;
 pub mod stack;
 
@@ -53,6 +54,23 @@ pub struct Change {
     /// A compact word diff of the old and new values (`--verbose`).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub value_diff: Option<String>,
+    /// The lockfiles where the package changed this same way (one row for them all).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub lockfiles: Vec<String>,
+    /// The subject of the change this one is grouped under: a package the changed package
+    /// pulled in as a dependency, or a library a changed distribution ships. It follows its
+    /// group's row, and the group's row carries the highest impact of the group.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub group: Option<String>,
+    /// The package it is about (normalized name), for grouping.
+    #[serde(skip)]
+    pub package: Option<String>,
+    /// The distribution that ships the library it is about, for grouping.
+    #[serde(skip)]
+    pub shipped_by: Option<String>,
+    /// The highest weight in its group, when it heads one.
+    #[serde(skip)]
+    pub group_weight: Option<u8>,
 }
 
 /// How a policy acceptance changed a change.
@@ -93,6 +111,11 @@ impl Change {
             source: rule.source.to_string(),
             accepted: None,
             value_diff: None,
+            lockfiles: Vec::new(),
+            group: None,
+            package: None,
+            shipped_by: None,
+            group_weight: None,
         }
     }
 
@@ -101,7 +124,8 @@ impl Change {
         if self.accepted.is_some() {
             return 0;
         }
-        rules::by_id(&self.rule).map_or(0, |r| r.weight)
+        let own = rules::by_id(&self.rule).map_or(0, |r| r.weight);
+        self.group_weight.map_or(own, |g| g.max(own))
     }
 }
 
@@ -170,6 +194,9 @@ pub struct Report {
     /// Show each change's rule, source and value diff in text and Markdown (`--verbose`).
     #[serde(skip)]
     pub verbose: bool,
+    /// List every `none` change in the text report instead of a count per kind (`--all`).
+    #[serde(skip)]
+    pub all: bool,
 }
 
 /// The code's changed files by class and the size of the change.
@@ -441,7 +468,12 @@ impl<'a> Context<'a> {
             };
         }
         let (rule, lead) = rules::package_rule(name, &class, change);
-        Change::from_rule(rule, section, subject, lead, values.0, values.1)
+        let mut c = Change::from_rule(rule, section, subject, lead, values.0, values.1);
+        c.package = Some(crate::lockfile::requirements::normalize_name(name));
+        if let Some(path) = lockfile {
+            c.lockfiles.push(path.to_string());
+        }
+        c
     }
 }
 
@@ -490,6 +522,7 @@ pub fn compare_with(
         notes.extend(s.notes.iter().cloned());
     }
     let expired_acceptances = apply_acceptances(policy, &mut changes, &mut notes);
+    let mut changes = group::group(changes, &group::edges(&old.content, &new.content));
     sort_changes(&mut changes);
     let verdict = changes
         .iter()
@@ -508,6 +541,7 @@ pub fn compare_with(
         expired_acceptances,
         details: Vec::new(),
         verbose: false,
+        all: false,
     }
 }
 
@@ -578,14 +612,36 @@ fn most_likely_cause(sorted: &[Change], verdict: Impact) -> Option<String> {
     }
     let top = sorted.first()?;
     let title = rules::by_id(&top.rule).map_or("", |r| r.title);
-    let values = match (&top.old, &top.new) {
+    let values = |c: &Change| match (&c.old, &c.new) {
         (Some(a), Some(b)) => format!(" {a} → {b}"),
         (None, Some(b)) => format!(" (absent) → {b}"),
         (Some(a), None) => format!(" {a} → (absent)"),
         (None, None) => String::new(),
     };
-    let others = sorted.iter().filter(|c| c.impact > Impact::None).count() - 1;
-    let mut line = format!("{}{values}", top.subject);
+    let members: Vec<&Change> = sorted
+        .iter()
+        .filter(|c| c.group.as_deref() == Some(top.subject.as_str()))
+        .collect();
+    let others = sorted
+        .iter()
+        .filter(|c| c.group.is_none() && c.impact > Impact::None)
+        .count()
+        - 1;
+    let mut line = format!("{}{}", top.subject, values(top));
+    if !members.is_empty() {
+        let shown: Vec<String> = members
+            .iter()
+            .take(3)
+            .map(|c| {
+                let name = c.package.as_deref().unwrap_or(&c.subject);
+                format!("{name}{}", values(c))
+            })
+            .collect();
+        line.push_str(&format!(", with {}", shown.join(", ")));
+        if members.len() > 3 {
+            line.push_str(&format!(" and {} more", members.len() - 3));
+        }
+    }
     if !title.is_empty() {
         line.push_str(&format!(" — {title}"));
     }
@@ -616,6 +672,8 @@ pub fn sort_changes(changes: &mut [Change]) {
         b.impact
             .cmp(&a.impact)
             .then_with(|| b.weight().cmp(&a.weight()))
+            // A group's head before its members: it names the cause.
+            .then_with(|| a.group.is_some().cmp(&b.group.is_some()))
             .then_with(|| rank(&a.section).cmp(&rank(&b.section)))
             .then_with(|| a.subject.cmp(&b.subject))
     });

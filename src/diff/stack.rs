@@ -410,7 +410,11 @@ fn compare_native<'a>(old: &'a Content, new: &'a Content, out: &mut Vec<Change>)
                 format!("{owner}'s {what} changed version or build"),
             )
         };
-        out.push(change(rule, "native", subject, lead, show(&a), show(&b)));
+        let mut c = change(rule, "native", subject, lead, show(&a), show(&b));
+        if owner != "system" {
+            c.shipped_by = Some(owner.clone());
+        }
+        out.push(c);
     }
 
     let fm = |c: &Content| -> BTreeSet<(String, String)> {
@@ -499,14 +503,18 @@ fn compare_gpu(o: &GpuInfo, n: &GpuInfo, out: &mut Vec<Change>) {
         let join = |s: Option<&BTreeSet<String>>| {
             s.map(|s| s.iter().cloned().collect::<Vec<_>>().join(", "))
         };
-        out.push(change(
+        let mut c = change(
             rule,
             "gpu",
             format!("{} ({})", k.0, k.1),
             String::new(),
             join(a),
             join(b),
-        ));
+        );
+        if k.1 != "system" {
+            c.shipped_by = Some(k.1.clone());
+        }
+        out.push(c);
     }
     let devs = |g: &GpuInfo| -> Vec<String> { g.devices.iter().map(|d| d.model.clone()).collect() };
     let (od, nd) = (devs(o), devs(n));
