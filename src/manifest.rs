@@ -761,6 +761,36 @@ pub struct Prepared {
     toml_tail: String,
 }
 
+impl Prepared {
+    /// Adds the `[scope]` section, the content's last field, to a prepared content that had
+    /// none (it is collected after the rest was serialized). `false` when it cannot be
+    /// spliced; the manifest is then rendered in full.
+    pub fn append_scope(&mut self, scope: &Scope) -> bool {
+        #[derive(Serialize)]
+        struct Last<'a> {
+            scope: &'a Scope,
+        }
+        let (Ok(json), Ok(toml)) = (
+            serde_json::to_vec(scope),
+            toml::to_string_pretty(&Last { scope }),
+        ) else {
+            return false;
+        };
+        if self.json_tail.pop() != Some(b'}') {
+            return false;
+        }
+        self.json_tail.extend_from_slice(b",\"scope\":");
+        self.json_tail.extend_from_slice(&json);
+        self.json_tail.push(b'}');
+        if !self.toml_tail.ends_with('\n') {
+            self.toml_tail.push('\n');
+        }
+        self.toml_tail.push('\n');
+        self.toml_tail.push_str(&toml);
+        true
+    }
+}
+
 /// The start of a manifest as TOML: what comes before the content's second field.
 #[derive(Serialize)]
 #[serde(rename_all = "kebab-case")]

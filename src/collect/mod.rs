@@ -564,8 +564,12 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
                     .map(|n| format!("scope: {n}")),
             );
         }
-        // The ahead-of-time serialization does not hold the scope.
-        prepared = None;
+        // The scope comes after the ahead-of-time serialization: it is added to it.
+        if let (Some(p), Some(sc)) = (prepared.as_mut(), content.scope.as_ref()) {
+            if !p.append_scope(sc) {
+                prepared = None;
+            }
+        }
     }
     if let Some(cap) = opts.keep_patch.filter(|_| content.git.dirty) {
         content.git.patch = patch::collect(&root, cap, &mut warnings);

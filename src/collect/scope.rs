@@ -418,6 +418,57 @@ impl Cached {
 }
 
 const CACHE_PREFIX: &str = "scope-imports-v1";
+/// The last scope computed for a repository, with the key it was computed for.
+const RESULT_PREFIX: &str = "scope-result-v1";
+
+/// What a scope depends on: the request, every Python file of the tree with its blob id, the
+/// stamped environments' distributions and the recorded lockfiles. Equal keys give equal
+/// scopes, so a warm stamp of an unchanged tree reads the last result instead of resolving.
+fn result_key(req: &Request, tree: &Tree, root: &Path, inputs: &Inputs<'_>) -> Option<String> {
+    use sha2::{Digest, Sha256};
+    let mut h = Sha256::new();
+    let mut put = |s: &str| {
+        h.update(s.as_bytes());
+        h.update([0]);
+    };
+    put(RESULT_PREFIX);
+    for list in [&req.entry, &req.lockfiles, &req.reads] {
+        put(&list.len().to_string());
+        list.iter().for_each(|x| put(x));
+    }
+    for (path, blob) in &tree.files {
+        put(path);
+        match blob {
+            Some(b) => put(b),
+            None => {
+                let bytes = crate::limits::read_regular_file_nofollow(&root.join(path)).ok()?;
+                put(&git2::Oid::hash_object(git2::ObjectType::Blob, &bytes)
+                    .ok()?
+                    .to_string());
+            }
+        }
+    }
+    tree.markers.iter().for_each(|m| put(m));
+    for env in inputs.python {
+        env.site_packages.iter().for_each(|s| put(s));
+        for d in &env.distributions {
+            put(&d.name);
+            put(&d.version);
+            d.requires.iter().for_each(|r| put(r));
+        }
+    }
+    for l in inputs.lockfiles {
+        put(&l.path);
+        put(&l.sha256);
+    }
+    Some(crate::manifest::hex(&h.finalize()))
+}
+
+#[derive(serde::Serialize, serde::Deserialize)]
+struct Remembered {
+    key: String,
+    scope: Scope,
+}
 
 impl Parser<'_> {
     /// Reads `path`: its blob id and its imports (or why they are unknown).
@@ -471,11 +522,40 @@ fn load_cache(dir: Option<&Path>, root: &Path) -> BTreeMap<String, Cached> {
 /// Computes the scope. Never fails: what cannot be known is written in `notes` and makes the
 /// scope incomplete.
 pub fn collect(req: &Request, inputs: &Inputs<'_>) -> Scope {
-    let mut notes = Vec::new();
     let tree = inputs
         .index
         .and_then(|i| Tree::from_index(inputs.root, i, inputs.changed))
         .unwrap_or_else(|| Tree::walk(inputs.root));
+    let key = inputs
+        .cache_dir
+        .and_then(|_| result_key(req, &tree, inputs.root, inputs));
+    let result_file = inputs
+        .cache_dir
+        .map(|d| crate::cache::per_repository_file(d, RESULT_PREFIX, inputs.root));
+    if let (Some(file), Some(key)) = (&result_file, &key) {
+        let remembered = crate::cache::read_cache_file(file)
+            .ok()
+            .and_then(|b| serde_json::from_slice::<Remembered>(&b).ok());
+        if let Some(r) = remembered.filter(|r| &r.key == key) {
+            return r.scope;
+        }
+    }
+    let scope = compute(req, inputs, &tree);
+    if let (Some(file), Some(key)) = (&result_file, key) {
+        let remembered = Remembered {
+            key,
+            scope: scope.clone(),
+        };
+        if let Ok(bytes) = serde_json::to_vec(&remembered) {
+            crate::cache::write_cache_file(file, &bytes);
+        }
+    }
+    scope
+}
+
+/// Computes the scope of a tree (see [`collect`]).
+fn compute(req: &Request, inputs: &Inputs<'_>, tree: &Tree) -> Scope {
+    let mut notes = Vec::new();
     // Entry points: files, else modules.
     let mut entry_files = Vec::new();
     let mut entry_modules = Vec::new();
@@ -497,8 +577,8 @@ pub fn collect(req: &Request, inputs: &Inputs<'_>) -> Scope {
         }
     }
     let resolver = Resolver {
-        tree: &tree,
-        roots: search_roots(&tree, &entry_files),
+        tree,
+        roots: search_roots(tree, &entry_files),
     };
     let mut queue: VecDeque<String> = entry_files.iter().cloned().collect();
     for m in &entry_modules {

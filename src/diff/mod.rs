@@ -487,7 +487,8 @@ pub fn compare_with(
     policy: &Policy,
 ) -> Report {
     let mut notes = Vec::new();
-    let (old_side, new_side) = (Side::of(old_path, old), Side::of(new_path, new));
+    // Checking a fingerprint serializes and hashes the whole content: both at once.
+    let (old_side, new_side) = rayon::join(|| Side::of(old_path, old), || Side::of(new_path, new));
     for side in [&old_side, &new_side] {
         if side.modified {
             notes.push(format!(
