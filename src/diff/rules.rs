@@ -1624,13 +1624,19 @@ single source. The weight orders changes of one impact by how likely each is to 
 difference in results; the highest-weighted change of the verdict's impact is the report's
 \"Most likely cause\".
 
-Packages the tables do not know are judged by a heuristic, and the reason says so: one whose
-installed copy ships compiled code (the `python` section's `compiled` flag), or whose name
-suggests it (`-sys`, `cffi`, `-cuda`, `blas`...), weighs more than a pure-Python or pure-script
-one; development-only and tooling packages weigh least. Changed files are classed as data,
-code, config, dependencies (lockfiles and the manifests beside them), docs or irrelevant, by the
-policy file's globs first and then by name; the most result-relevant class decides the commit's
-rule.
+Packages the tables do not know are judged by facts where there are some (a build label such as
+`+cu121` or `+cu123torch2.5`, a platform wheel in the lockfile, an installed copy with extension
+modules mark compiled code) and otherwise by a heuristic on the name, and the reason says which:
+compiled code weighs more than pure-Python or pure-script code; infrastructure (networking,
+installers, logging, telemetry, profiling, metapackages), development-only and tooling packages
+never raise the verdict. Changed files are classed as data, code, config, dependencies, build,
+tests, ci, notebooks, metadata, unchanged (identical renames), docs or irrelevant, by the policy
+file's globs first and then by name; the most result-relevant class decides the commit's rule.
+When both manifests record the training job's scope (`stamp --entry`), files outside its import
+closure, packages it cannot load and lockfiles it does not install from are out of scope.
+Environment variables are classed by exact name (`src/envvars.rs`), and `XLA_FLAGS` flag by flag.
+A package changed the same way in several lockfiles is one row, and the changes a bump pulled in
+are grouped under it (`group` in JSON), the group's row taking its highest impact.
 ";
 
 const MARKDOWN_TAIL: &str = "
