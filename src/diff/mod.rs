@@ -333,6 +333,8 @@ pub struct Context<'a> {
     /// Lockfile paths recorded in both manifests.
     pub lockfiles: Vec<&'a str>,
     compiled: BTreeMap<String, bool>,
+    /// Dependency edges both manifests record.
+    edges: group::Edges,
     /// The training job's scope, when both manifests recorded one.
     pub scope: Option<ScopeView>,
 }
@@ -423,7 +425,26 @@ impl<'a> Context<'a> {
             lockfiles,
             compiled,
             scope: ScopeView::of(old, new),
+            edges: group::edges(old, new),
         }
+    }
+
+    /// A numerical library the package depends on, directly or not, by the recorded edges.
+    pub fn numeric_dependency(&self, name: &str) -> Option<String> {
+        let start = crate::lockfile::requirements::normalize_name(name);
+        let mut seen = BTreeSet::new();
+        let mut todo = vec![start.clone()];
+        while let Some(n) = todo.pop() {
+            for d in self.edges.get(&n).into_iter().flatten() {
+                if seen.insert(d.clone()) {
+                    if rules::is_numeric_package(d) {
+                        return Some(d.clone());
+                    }
+                    todo.push(d.clone());
+                }
+            }
+        }
+        None
     }
 
     /// What an installed copy says about a package shipping compiled code.
@@ -453,6 +474,18 @@ impl<'a> Context<'a> {
                 .collect(),
         };
         let mut class = rules::classify_package(name, dev, compiled, &versions, self.policy);
+        // A package the tables do not know that loads a numerical library does its arithmetic
+        // through it: judged like compiled code.
+        if class.class == crate::classes::PackageClass::Pure {
+            if let Some(numeric) = self.numeric_dependency(name) {
+                class = rules::Classified {
+                    class: crate::classes::PackageClass::Compiled,
+                    how: format!(
+                        "not in runprint's tables; it depends on the numerical library {numeric}"
+                    ),
+                };
+            }
+        }
         let scope = self.scope.as_ref();
         if let Some(path) = lockfile.filter(|p| scope.is_some_and(|s| s.excludes_lockfile(p))) {
             class = rules::Classified {
@@ -1487,5 +1520,44 @@ mod tests {
             "--a [---b=1-]{+--b=2+} --c"
         );
         assert_eq!(word_diff("8", "16"), "[-8-]{+16+}");
+    }
+
+    /// A package the tables do not know that depends on a numerical library (the edges a
+    /// lockfile records) is judged like compiled code, not like a pure utility.
+    #[test]
+    fn an_unknown_package_that_loads_a_numerical_library_weighs_like_compiled_code() {
+        let side = |v: &str| {
+            let packages = vec![
+                Package {
+                    name: "kelp-tensors".into(),
+                    version: v.into(),
+                    requires: vec!["kelp-core".into()],
+                    ..Package::default()
+                },
+                Package {
+                    name: "kelp-core".into(),
+                    version: "1.0.0".into(),
+                    requires: vec!["numpy".into()],
+                    ..Package::default()
+                },
+            ];
+            Manifest::new(
+                crate::manifest::RunInfo::default(),
+                Content {
+                    lockfiles: vec![Lockfile {
+                        path: "uv.lock".into(),
+                        ecosystem: "pypi".into(),
+                        sha256: format!("sha256:{v}"),
+                        packages,
+                        ..Lockfile::default()
+                    }],
+                    ..Content::default()
+                },
+            )
+        };
+        let r = compare("a", &side("0.4.0"), "b", &side("0.5.0"), None);
+        let c = &r.changes[0];
+        assert_eq!(c.rule, "pkg.compiled", "{c:?}");
+        assert!(c.reason.contains("depends on the numerical library numpy"), "{}", c.reason);
     }
 }
