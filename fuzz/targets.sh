@@ -19,6 +19,7 @@ seeds() { # target -> seed folders
     pdm_lock) echo tests/corpus/pdm.lock ;;
     conda_environment_yml) echo tests/corpus/environment.yml ;;
     conda_explicit) echo tests/corpus/spec-file.txt ;;
+    dockerfile) echo tests/corpus/Dockerfile ;;
     manifest) echo tests/corpus/manifest tests/corpus/manifest-json fixtures/demo ;;
     policy) echo fuzz/seeds/policy ;;
     *) echo "fuzz: no seeds listed for target $1 (fuzz/targets.sh)" >&2; return 1 ;;

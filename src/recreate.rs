@@ -292,6 +292,20 @@ fn packages(lockfiles: &[Lockfile], out: &mut String) {
             ("conda", _) => format!("conda create --yes --name runprint-recreated --file {file}"),
             // A requirements file whose pins were not recorded: the checkout restores it.
             ("pypi", _) => format!("python -m pip install -r {file}"),
+            // A container recipe: its base images, pinned by digest where one was recorded.
+            ("oci", _) => l
+                .packages
+                .iter()
+                .filter_map(|p| {
+                    let reference = match p.hashes.first() {
+                        Some(d) if p.version.is_empty() => format!("{}@{d}", p.name),
+                        Some(d) => format!("{}:{}@{d}", p.name, p.version),
+                        None => format!("{}:{}", p.name, p.version),
+                    };
+                    quote(&reference).map(|r| format!("docker pull {r}"))
+                })
+                .collect::<Vec<_>>()
+                .join("\n"),
             (other, _) => format!("# no locked install known for ecosystem {}", comment(other)),
         };
         let _ = writeln!(out, "{step}");

@@ -95,6 +95,14 @@ fn is_pep440(ecosystem: &str) -> bool {
 
 fn parse(ecosystem: &str, text: &str) -> Option<Parsed> {
     let text = text.trim();
+    // A container image tag: leading dotted numbers, then a variant (`3.12-slim`,
+    // `12.4.1-cudnn-runtime-ubuntu22.04`), not a pre-release.
+    if ecosystem == "oci" {
+        return match dotted(text)? {
+            Parsed::Dotted(release, _) => Some(Parsed::Dotted(release, false)),
+            other => Some(other),
+        };
+    }
     if is_pep440(ecosystem) {
         if let Ok(v) = text.parse::<pep440_rs::Version>() {
             return Some(Parsed::Pep440(v));

@@ -552,6 +552,48 @@ fn monorepo_cases(lab: &mut Lab) {
             &[("benchmarks/bench_loader.py", "print(2)\n")],
             NONE,
         ),
+        // Dockerfile reference, FROM: the base image is a dependency. Python docs, random:
+        // a new minor release may change random's streams (runprint's python.minor rule)
+        (
+            "mono: base image python 3.12 -> 3.13",
+            &[("Dockerfile", "FROM python:3.13-slim\nRUN pip install uv\n")],
+            RETRAIN,
+        ),
+        // Python docs, random: bug-fix releases keep the streams (python.micro)
+        (
+            "mono: base image python 3.13 -> 3.13.1",
+            &[(
+                "Dockerfile",
+                "FROM python:3.13.1-slim\nRUN pip install uv\n",
+            )],
+            VERIFY,
+        ),
+        // cuBLAS "Results reproducibility": identical bits only within one toolkit version
+        (
+            "mono: serving image from a CUDA base",
+            &[(
+                "serving/Dockerfile",
+                "FROM nvidia/cuda:12.4.1-runtime-ubuntu22.04\n",
+            )],
+            RETRAIN,
+        ),
+        (
+            "mono: CUDA base image 12.4 -> 12.8",
+            &[(
+                "serving/Dockerfile",
+                "FROM nvidia/cuda:12.8.0-runtime-ubuntu22.04\n",
+            )],
+            RETRAIN,
+        ),
+        // Dockerfile reference: a RUN line changes no base image
+        (
+            "mono: Dockerfile RUN line only",
+            &[(
+                "serving/Dockerfile",
+                "FROM nvidia/cuda:12.8.0-runtime-ubuntu22.04\nRUN echo ready\n",
+            )],
+            NONE,
+        ),
         // common practice: a program under a data folder is code, not data
         (
             "mono: Python module under data/",
@@ -754,6 +796,15 @@ fn scope_cases(lab: &mut Lab) {
             "scope: its lockfile bumps numpy",
             &[("training/requirements.txt", "numpy==2.2.0\npyyaml==6.0.2\n")],
             RETRAIN,
+        ),
+        // runprint.toml [scope] lockfiles: the serving image is not what the job runs in
+        (
+            "scope: serving base image",
+            &[(
+                "serving/Dockerfile",
+                "FROM nvidia/cuda:12.8.0-runtime-ubuntu22.04\n",
+            )],
+            NONE,
         ),
         // torch.utils.cpp_extension.load compiles sources at run time: kept conservative
         (

@@ -1558,6 +1558,10 @@ mod tests {
         let r = compare("a", &side("0.4.0"), "b", &side("0.5.0"), None);
         let c = &r.changes[0];
         assert_eq!(c.rule, "pkg.compiled", "{c:?}");
-        assert!(c.reason.contains("depends on the numerical library numpy"), "{}", c.reason);
+        assert!(
+            c.reason.contains("depends on the numerical library numpy"),
+            "{}",
+            c.reason
+        );
     }
 }

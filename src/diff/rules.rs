@@ -898,8 +898,14 @@ pub struct Classified {
 /// True when the package does numerical work by the built-in tables.
 pub fn is_numeric_package(name: &str) -> bool {
     let n = name.to_ascii_lowercase();
+    // A container image (`nvidia/cuda`, `pytorch/pytorch`) by its last path segment.
+    let image = n.contains('/') && !n.starts_with('@') && {
+        let last = n.rsplit('/').next().unwrap_or("");
+        NUMERIC_PACKAGES.contains(&last) || last.contains("cuda") || last.contains("rocm")
+    };
     !is_infrastructure_package(&n)
-        && (NUMERIC_PACKAGES.contains(&n.as_str())
+        && (image
+            || NUMERIC_PACKAGES.contains(&n.as_str())
             || NUMERIC_PREFIXES.iter().any(|p| n.starts_with(p)))
 }
 
@@ -1090,6 +1096,24 @@ pub fn package_rule(
         PackageChange::Features => "other enabled features".into(),
     };
     let lead = |what: &str| format!("{name} ({what}) is {}", class.how);
+    // A Python base image changes the interpreter: judged as the python section judges it.
+    if let PackageChange::Version {
+        ecosystem: "oci",
+        old,
+        new,
+    } = change
+    {
+        let n = name.to_ascii_lowercase();
+        if (n == "python" || n.ends_with("/python"))
+            && matches!(class.class, PackageClass::Pure | PackageClass::Compiled)
+        {
+            let rule = match version::classify("oci", old, new) {
+                VersionChange::Patch => &PY_MICRO,
+                _ => &PY_MINOR,
+            };
+            return (rule, format!("{name} ({what}) is the base image's Python"));
+        }
+    }
     match class.class {
         PackageClass::Tooling => return (&PKG_TOOLING, lead(&what)),
         PackageClass::Infrastructure => return (&PKG_INFRASTRUCTURE, lead(&what)),

@@ -8,6 +8,7 @@
 
 pub mod cargo;
 pub mod conda;
+pub mod dockerfile;
 pub mod golang;
 pub mod julia;
 pub mod npm;
@@ -86,6 +87,8 @@ pub enum Format {
     CondaEnvironment,
     /// conda's explicit spec files (`@EXPLICIT`), as `conda list --explicit` writes them.
     CondaExplicit,
+    /// Container recipes (`Dockerfile`, `Containerfile`): their base images.
+    Dockerfile,
 }
 
 impl Format {
@@ -117,6 +120,7 @@ impl Format {
                 "pdm.lock" => Some(Format::PdmLock),
                 _ if conda::is_environment_name(file_name) => Some(Format::CondaEnvironment),
                 _ if conda::is_explicit_name(file_name) => Some(Format::CondaExplicit),
+                _ if dockerfile::is_dockerfile_name(file_name) => Some(Format::Dockerfile),
                 _ => None,
             }
         }
@@ -138,6 +142,7 @@ impl Format {
             | Format::UvLock
             | Format::PdmLock => "pypi",
             Format::CondaEnvironment | Format::CondaExplicit => "conda",
+            Format::Dockerfile => "oci",
         }
     }
 
@@ -166,6 +171,7 @@ impl Format {
             Format::PdmLock => pdm::parse(text, path),
             Format::CondaEnvironment => conda::parse_environment(text, path),
             Format::CondaExplicit => conda::parse_explicit(text, path),
+            Format::Dockerfile => dockerfile::parse(text, path),
         };
         parsed.map(|p| without_nameless(p, path))
     }

@@ -140,6 +140,7 @@ pub const LOCKFILE_NAMES: &[&str] = &[
     "pdm.lock",
     "environment.yml",
     "spec-file.txt",
+    "Dockerfile",
 ];
 
 /// Runs `runprint diff OLD NEW --format json EXTRA...` in `cwd` and decodes the report into the
