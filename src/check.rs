@@ -20,6 +20,41 @@ use crate::policy::Policy;
 /// The side name used for a fresh stamp that is not saved.
 pub const CURRENT: &str = "(current environment)";
 
+/// The files changed between the commits of two manifests, listed in the git repository that
+/// contains `repo` (default: the current folder); `None` when the commits are the same, either
+/// is missing, or the repository does not hold both. This is the comparison's only look into
+/// git, kept out of [`crate::diff`] so that the comparison stays pure.
+pub fn commit_files(
+    repo: Option<&Path>,
+    old: &Manifest,
+    new: &Manifest,
+) -> Option<Vec<crate::diff::FileStat>> {
+    let (a, b) = (
+        old.content.git.commit.as_ref()?,
+        new.content.git.commit.as_ref()?,
+    );
+    if a == b {
+        return None;
+    }
+    let cwd = std::env::current_dir().ok();
+    let dir = repo.or(cwd.as_deref())?;
+    crate::collect::git::diff_stats_between(dir, a, b)
+}
+
+/// [`compare_with`] with the changed files listed in the repository that contains `repo`
+/// (default: the current folder).
+pub fn compare_in_repo(
+    old_path: &str,
+    old: &Manifest,
+    new_path: &str,
+    new: &Manifest,
+    repo: Option<&Path>,
+    policy: &Policy,
+) -> Report {
+    let files = commit_files(repo, old, new);
+    compare_with(old_path, old, new_path, new, files.as_deref(), policy)
+}
+
 /// Compares a baseline with a manifest just stamped; `repo` is the stamped checkout, used to
 /// list the files changed between the two commits.
 pub fn against_current(
@@ -30,7 +65,7 @@ pub fn against_current(
     repo: &Path,
     policy: &Policy,
 ) -> Report {
-    compare_with(
+    compare_in_repo(
         baseline_path,
         baseline,
         current_name,
@@ -106,7 +141,7 @@ pub fn against_revision(
         .workdir()
         .map(Path::to_path_buf)
         .unwrap_or_else(|| repo.to_path_buf());
-    let mut report = compare_with(
+    let mut report = compare_in_repo(
         baseline_path,
         baseline,
         &format!("revision {rev} ({})", short(commit)),

@@ -165,3 +165,45 @@ named_enum! {
         Irrelevant = "irrelevant",
     }
 }
+
+/// x86 flags (as `/proc/cpuinfo` spells them) that BLAS, oneDNN, ATen, SVML and friends
+/// dispatch on. Any flag starting with `avx512` or `amx` is kept as well.
+const X86_FEATURES: &[&str] = &[
+    "sse",
+    "sse2",
+    "pni",
+    "ssse3",
+    "sse4_1",
+    "sse4_2",
+    "popcnt",
+    "avx",
+    "avx2",
+    "fma",
+    "fma4",
+    "f16c",
+    "bmi1",
+    "bmi2",
+    "avx_vnni",
+    "avx_vnni_int8",
+    "avx_ifma",
+    "avx_ne_convert",
+    "xop",
+];
+
+/// ARM flags (as `/proc/cpuinfo`'s `Features` line spells them). Any flag starting with `sve`,
+/// `sme` or `asimd` is kept as well.
+const ARM_FEATURES: &[&str] = &["fp", "fphp", "bf16", "i8mm", "fcma", "atomics", "ebf16"];
+
+/// True when a CPU flag from `/proc/cpuinfo` is one numerical kernels dispatch on: the class of
+/// flags the `[cpu]` section records and the rules compare. Cryptography instructions (AES,
+/// SHA, carry-less multiply, GFNI) and kernel-security flags are not: x86's `smep`
+/// (supervisor-mode execution prevention, Intel SDM vol. 3, 4.6) shares its first letters with
+/// ARM's `sme` (Scalable Matrix Extension) and is excluded by name.
+pub fn is_numeric_cpu_feature(flag: &str) -> bool {
+    X86_FEATURES.contains(&flag)
+        || ARM_FEATURES.contains(&flag)
+        || (flag.starts_with("sme") && flag != "smep")
+        || ["avx512", "amx", "sve", "asimd"]
+            .iter()
+            .any(|p| flag.starts_with(p))
+}

@@ -18,7 +18,6 @@ use clap::{Parser, Subcommand, ValueEnum};
 
 use crate::atomic::write_output;
 use crate::collect::{stamp_prepared, StampOptions};
-use crate::diff::compare_with;
 use crate::diff::rules::{render_table, TableFormat};
 use crate::manifest::{Manifest, ManifestFormat, Prepared};
 use crate::policy::{Policy, POLICY_FILE};
@@ -468,7 +467,7 @@ fn run_diff(args: DiffArgs) -> ExitStatus {
         Ok(p) => p,
         Err(e) => return fail(e),
     };
-    let mut report = compare_with(
+    let mut report = crate::check::compare_in_repo(
         &args.old.display().to_string(),
         &old,
         &args.new.display().to_string(),

@@ -306,7 +306,8 @@ pub fn analyse(paths: &[PathBuf], repo: Option<&Path>) -> Result<FleetReport, Fl
         .par_iter()
         .skip(1)
         .map(|(g, m)| {
-            let mut report = compare(&ref_name, &reference, &g.nodes[0].file, m, repo);
+            let files = crate::check::commit_files(repo, &reference, m);
+            let mut report = compare(&ref_name, &reference, &g.nodes[0].file, m, files.as_deref());
             report.changes.retain(|c| c.section != "run");
             report.changes
         })

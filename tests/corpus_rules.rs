@@ -18,7 +18,7 @@ use std::path::{Path, PathBuf};
 use std::process::Command;
 
 use common::{git, repo_with, runprint, write_files};
-use runprint::diff::{compare_with, Impact, Report};
+use runprint::diff::{Impact, Report};
 use runprint::manifest::{Content, Manifest};
 use runprint::policy::Policy;
 
@@ -58,7 +58,14 @@ impl Lab {
     }
 
     fn check(&mut self, name: &str, expected: Impact, old: &Manifest, new: &Manifest, repo: &Path) {
-        let report = compare_with("old", old, "new", new, Some(repo), &Policy::default());
+        let report = runprint::check::compare_in_repo(
+            "old",
+            old,
+            "new",
+            new,
+            Some(repo),
+            &Policy::default(),
+        );
         self.record(name, expected, report);
     }
 

@@ -7,45 +7,10 @@
 
 use crate::manifest::CpuInfo;
 
-/// x86 flags (as `/proc/cpuinfo` spells them) that BLAS, oneDNN, ATen, SVML and friends
-/// dispatch on. Any flag starting with `avx512` or `amx` is kept as well.
-const X86_FEATURES: &[&str] = &[
-    "sse",
-    "sse2",
-    "pni",
-    "ssse3",
-    "sse4_1",
-    "sse4_2",
-    "popcnt",
-    "avx",
-    "avx2",
-    "fma",
-    "fma4",
-    "f16c",
-    "bmi1",
-    "bmi2",
-    "avx_vnni",
-    "avx_vnni_int8",
-    "avx_ifma",
-    "avx_ne_convert",
-    "xop",
-];
-
-/// ARM flags (as `/proc/cpuinfo`'s `Features` line spells them). Any flag starting with `sve`,
-/// `sme` or `asimd` is kept as well.
-const ARM_FEATURES: &[&str] = &["fp", "fphp", "bf16", "i8mm", "fcma", "atomics", "ebf16"];
-
-/// True when a flag from `/proc/cpuinfo` is one numerical kernels care about. Cryptography
-/// instructions (AES, SHA, carry-less multiply, GFNI) and kernel-security flags are not: x86's
-/// `smep` (supervisor-mode execution prevention, Intel SDM vol. 3, 4.6) shares its first
-/// letters with ARM's `sme` (Scalable Matrix Extension) and is excluded by name.
+/// True when a flag from `/proc/cpuinfo` is one numerical kernels care about (the shared
+/// class, [`crate::classes::is_numeric_cpu_feature`]).
 pub fn is_numeric_feature(flag: &str) -> bool {
-    X86_FEATURES.contains(&flag)
-        || ARM_FEATURES.contains(&flag)
-        || (flag.starts_with("sme") && flag != "smep")
-        || ["avx512", "amx", "sve", "asimd"]
-            .iter()
-            .any(|p| flag.starts_with(p))
+    crate::classes::is_numeric_cpu_feature(flag)
 }
 
 /// Parses `/proc/cpuinfo` text. Only the first processor block is read for identity; features

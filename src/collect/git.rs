@@ -925,19 +925,7 @@ fn tree_diff<'r>(repo: &'r Repository, old: &str, new: &str) -> Option<git2::Dif
     repo.diff_tree_to_tree(Some(&a), Some(&b), None).ok()
 }
 
-/// One file changed between two commits, with its line counts (0 for binary files).
-#[derive(Debug, Clone, PartialEq, Eq)]
-pub struct FileStat {
-    /// Path relative to the repository root (the new path of a rename).
-    pub path: String,
-    /// Lines added.
-    pub added: u64,
-    /// Lines removed.
-    pub removed: u64,
-    /// The content did not change: a rename or a mode change of identical bytes (git's exact
-    /// rename detection, `git diff --find-renames=100%`).
-    pub unchanged: bool,
-}
+pub use crate::diff::FileStat;
 
 /// The files changed between two commits of the repository that contains `dir`, with lines
 /// added and removed (git2's patch statistics, as `git diff --numstat` counts them), or `None`

@@ -3,26 +3,38 @@
 //! ([`crate::policy::Policy`]); the [`Report`]'s verdict is the highest impact found, and its
 //! "most likely cause" the change most likely to explain a difference in results.
 //!
-//! The comparison is pure apart from one optional look into git
-//! ([`git::diff_stats_between`]) to list and measure the files changed between two commits, so
-//! that documentation-only commits do not ask for a retrain.
+//! The comparison is pure: the files changed between the two commits, which it classes so that
+//! a documentation-only commit does not ask for a retrain, are passed in ([`FileStat`], listed
+//! by [`crate::check::commit_files`]); nothing here reads a file or runs a program.
 
 pub mod group;
 pub mod rules;
 pub mod stack;
 
 use std::collections::{BTreeMap, BTreeSet};
-use std::path::Path;
 
 use serde::{Deserialize, Serialize};
 
 use crate::classes::PathClass;
-use crate::collect::git;
 use crate::manifest::{Content, DataInput, Lockfile, Manifest, Package};
 use crate::policy::Policy;
 use rules::{PackageChange, Rule};
 
 pub use crate::classes::Impact;
+
+/// One file changed between two commits, with its line counts (0 for binary files).
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct FileStat {
+    /// Path relative to the repository root (the new path of a rename).
+    pub path: String,
+    /// Lines added.
+    pub added: u64,
+    /// Lines removed.
+    pub removed: u64,
+    /// The content did not change: a rename or a mode change of identical bytes (git's exact
+    /// rename detection, `git diff --find-renames=100%`).
+    pub unchanged: bool,
+}
 
 /// One difference between two manifests.
 #[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
@@ -313,16 +325,17 @@ pub fn explain_values(report: &mut Report) {
     }
 }
 
-/// Compares two manifests with the built-in rules. `repo` is a folder inside a git repository
-/// that may hold both commits (used to list the files changed between them).
+/// Compares two manifests with the built-in rules. `files` are the files changed between
+/// their two commits, when they could be listed ([`crate::check::commit_files`]); without them
+/// a changed commit cannot be told from a change of training code.
 pub fn compare(
     old_path: &str,
     old: &Manifest,
     new_path: &str,
     new: &Manifest,
-    repo: Option<&Path>,
+    files: Option<&[FileStat]>,
 ) -> Report {
-    compare_with(old_path, old, new_path, new, repo, &Policy::default())
+    compare_with(old_path, old, new_path, new, files, &Policy::default())
 }
 
 /// What the section comparisons share: the policy, the lockfiles recorded on both sides and
@@ -516,7 +529,7 @@ pub fn compare_with(
     old: &Manifest,
     new_path: &str,
     new: &Manifest,
-    repo: Option<&Path>,
+    files: Option<&[FileStat]>,
     policy: &Policy,
 ) -> Report {
     let mut notes = Vec::new();
@@ -535,7 +548,7 @@ pub fn compare_with(
     let code_change = compare_git(
         &old.content,
         &new.content,
-        repo,
+        files,
         &ctx,
         &mut changes,
         &mut notes,
@@ -790,7 +803,7 @@ fn classify_paths(
 fn compare_git(
     old: &Content,
     new: &Content,
-    repo: Option<&Path>,
+    files: Option<&[FileStat]>,
     ctx: &Context<'_>,
     out: &mut Vec<Change>,
     notes: &mut Vec<String>,
@@ -813,11 +826,7 @@ fn compare_git(
     let mut summary = None;
     if o.commit != n.commit {
         let listed = match (&o.commit, &n.commit) {
-            (Some(a), Some(b)) => {
-                let cwd = std::env::current_dir().ok();
-                repo.or(cwd.as_deref())
-                    .and_then(|dir| git::diff_stats_between(dir, a, b))
-            }
+            (Some(_), Some(_)) => files,
             _ => None,
         };
         match listed {
@@ -830,7 +839,7 @@ fn compare_git(
                     .filter(|f| f.unchanged)
                     .map(|f| f.path.clone())
                     .collect();
-                let mut paths: Vec<String> = stats.into_iter().map(|f| f.path).collect();
+                let mut paths: Vec<String> = stats.iter().map(|f| f.path.clone()).collect();
                 // Uncommitted edits on either side count too.
                 paths.extend(o.changed_paths.iter().cloned());
                 paths.extend(n.changed_paths.iter().cloned());
