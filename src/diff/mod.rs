@@ -1202,7 +1202,13 @@ fn compare_packages(
             ng.get(name).unwrap_or(&empty),
         );
         let dev = a.iter().chain(b.iter()).all(|p| p.dev);
-        let compiled = ctx.compiled(name);
+        // The installed copy first, else the wheels the lockfile lists (PEP 427 tags).
+        let compiled = ctx.compiled(name).or_else(|| {
+            a.iter()
+                .chain(b.iter())
+                .filter_map(|p| p.compiled)
+                .reduce(|x, y| x || y)
+        });
         let pkg = |subject: String, change, values| {
             ctx.package_change(
                 Some(path),
@@ -1529,6 +1535,36 @@ mod tests {
             "--a [---b=1-]{+--b=2+} --c"
         );
         assert_eq!(word_diff("8", "16"), "[-8-]{+16+}");
+    }
+
+    /// The wheel tags a lockfile lists decide an unknown package's class (PEP 427: a platform
+    /// wheel holds compiled code).
+    #[test]
+    fn locked_platform_wheels_mark_compiled_code() {
+        let side = |v: &str, compiled: bool| {
+            Manifest::new(
+                crate::manifest::RunInfo::default(),
+                Content {
+                    lockfiles: vec![Lockfile {
+                        path: "uv.lock".into(),
+                        ecosystem: "pypi".into(),
+                        sha256: format!("sha256:{v}"),
+                        packages: vec![Package {
+                            name: "kelp-fastparse".into(),
+                            version: v.into(),
+                            compiled: Some(compiled),
+                            ..Package::default()
+                        }],
+                        ..Lockfile::default()
+                    }],
+                    ..Content::default()
+                },
+            )
+        };
+        let r = compare("a", &side("1.0.0", true), "b", &side("1.0.1", true), None);
+        assert_eq!(r.changes[0].rule, "pkg.compiled");
+        let r = compare("a", &side("1.0.0", false), "b", &side("1.0.1", false), None);
+        assert_eq!(r.changes[0].rule, "pkg.pure.patch");
     }
 
     /// A package the tables do not know that depends on a numerical library (the edges a

@@ -981,11 +981,11 @@ pub fn classify_package(
     match compiled {
         Some(true) => classified(
             PackageClass::Compiled,
-            "not in runprint's tables; its installed copy ships compiled code",
+            "not in runprint's tables; its installed copy or its locked wheels hold compiled code",
         ),
         Some(false) => classified(
             PackageClass::Pure,
-            "not in runprint's tables; its installed copy is pure Python",
+            "not in runprint's tables; its installed copy or its locked wheels are pure Python",
         ),
         None => {
             let n = name.to_ascii_lowercase();
