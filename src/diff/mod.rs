@@ -22,6 +22,32 @@ use rules::{PackageChange, Rule};
 
 pub use crate::classes::Impact;
 
+/// Every key of two maps in order, with the value each side has: the outer join every section
+/// comparison walks (a merge of the two sorted key sequences, nothing collected).
+pub fn outer_join<'a, K: Ord, A, B>(
+    old: &'a BTreeMap<K, A>,
+    new: &'a BTreeMap<K, B>,
+) -> impl Iterator<Item = (&'a K, Option<&'a A>, Option<&'a B>)> {
+    let (mut a, mut b) = (old.iter().peekable(), new.iter().peekable());
+    std::iter::from_fn(move || {
+        use std::cmp::Ordering::*;
+        match (a.peek(), b.peek()) {
+            (None, None) => None,
+            (Some(_), None) => a.next().map(|(k, v)| (k, Some(v), None)),
+            (None, Some(_)) => b.next().map(|(k, v)| (k, None, Some(v))),
+            (Some((ka, _)), Some((kb, _))) => match ka.cmp(kb) {
+                Less => a.next().map(|(k, v)| (k, Some(v), None)),
+                Greater => b.next().map(|(k, v)| (k, None, Some(v))),
+                Equal => {
+                    let (k, va) = a.next()?;
+                    let (_, vb) = b.next()?;
+                    Some((k, Some(va), Some(vb)))
+                }
+            },
+        }
+    })
+}
+
 /// One file changed between two commits, with its line counts (0 for binary files).
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct FileStat {
@@ -934,11 +960,8 @@ fn compare_git(
             .collect()
     };
     let (os, ns) = (subs(o), subs(n));
-    for path in os.keys().chain(ns.keys()).collect::<BTreeSet<_>>() {
-        let (a, b) = (
-            os.get(path).cloned().flatten(),
-            ns.get(path).cloned().flatten(),
-        );
+    for (path, a, b) in outer_join(&os, &ns) {
+        let (a, b) = (a.cloned().flatten(), b.cloned().flatten());
         if a != b {
             out.push(Change::from_rule(
                 &rules::GIT_SUBMODULE,
@@ -958,9 +981,9 @@ fn compare_data(old: &Content, new: &Content, out: &mut Vec<Change>) {
         c.data.iter().map(|d| (d.path.clone(), d.clone())).collect()
     };
     let (o, n) = (index(old), index(new));
-    for path in o.keys().chain(n.keys()).collect::<BTreeSet<_>>() {
+    for (path, a, b) in outer_join(&o, &n) {
         let subject = format!("data {path}");
-        match (o.get(path), n.get(path)) {
+        match (a, b) {
             (Some(a), Some(b)) if a.sha256 != b.sha256 => {
                 let lead = changed_files(a, b).map_or_else(String::new, |d| format!("files {d}"));
                 out.push(Change::from_rule(
@@ -1050,11 +1073,8 @@ fn compare_lockfiles(old: &[Lockfile], new: &[Lockfile], ctx: &Context<'_>, out:
             .collect()
     };
     let (oi, ni) = (index(old), index(new));
-    for path in oi.keys().chain(ni.keys()).collect::<BTreeSet<_>>() {
-        match (
-            oi.get(path).map(|&i| &old[i]),
-            ni.get(path).map(|&i| &new[i]),
-        ) {
+    for (path, a, b) in outer_join(&oi, &ni) {
+        match (a.map(|&i| &old[i]), b.map(|&i| &new[i])) {
             (Some(a), Some(b))
                 if a.sha256 != b.sha256
                     && (a.packages_omitted.is_some() || b.packages_omitted.is_some()) =>
@@ -1194,13 +1214,10 @@ fn compare_packages(
     out: &mut Vec<Change>,
 ) {
     let (og, ng) = (group_by_name(old), group_by_name(new));
-    for name in og.keys().chain(ng.keys()).collect::<BTreeSet<_>>() {
+    let empty = Vec::new();
+    for (name, a, b) in outer_join(&og, &ng) {
         let subject = format!("{path}: {name}");
-        let empty = Vec::new();
-        let (a, b) = (
-            og.get(name).unwrap_or(&empty),
-            ng.get(name).unwrap_or(&empty),
-        );
+        let (a, b) = (a.unwrap_or(&empty), b.unwrap_or(&empty));
         let dev = a.iter().chain(b.iter()).all(|p| p.dev);
         // The installed copy first, else the wheels the lockfile lists (PEP 427 tags).
         let compiled = ctx.compiled(name).or_else(|| {
@@ -1284,8 +1301,7 @@ fn compare_env(old: &Content, new: &Content, ctx: &Context<'_>, out: &mut Vec<Ch
     use crate::classes::EnvClass;
     let (o, n) = (&old.env.vars, &new.env.vars);
     let python_compared = !old.python.is_empty() && !new.python.is_empty();
-    for name in o.keys().chain(n.keys()).collect::<BTreeSet<_>>() {
-        let (a, b) = (o.get(name), n.get(name));
+    for (name, a, b) in outer_join(o, n) {
         if a == b {
             continue;
         }
@@ -1535,6 +1551,25 @@ mod tests {
             "--a [---b=1-]{+--b=2+} --c"
         );
         assert_eq!(word_diff("8", "16"), "[-8-]{+16+}");
+    }
+
+    #[test]
+    fn outer_join_walks_both_key_sets_in_order() {
+        let a: BTreeMap<i32, &str> = [(1, "a"), (3, "c"), (5, "e")].into_iter().collect();
+        let b: BTreeMap<i32, &str> = [(2, "B"), (3, "C"), (6, "F")].into_iter().collect();
+        let got: Vec<(i32, Option<&str>, Option<&str>)> = outer_join(&a, &b)
+            .map(|(k, x, y)| (*k, x.copied(), y.copied()))
+            .collect();
+        assert_eq!(
+            got,
+            [
+                (1, Some("a"), None),
+                (2, None, Some("B")),
+                (3, Some("c"), Some("C")),
+                (5, Some("e"), None),
+                (6, None, Some("F")),
+            ]
+        );
     }
 
     /// The wheel tags a lockfile lists decide an unknown package's class (PEP 427: a platform

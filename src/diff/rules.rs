@@ -1003,6 +1003,21 @@ pub fn classify_package(
     }
 }
 
+/// Releases at which a library changed a default that changes results: (names, the first
+/// release with the new behaviour, the rule that states it with its source). A version change
+/// across one of them is decided by that rule. (scikit-learn's "changed models" come with every
+/// minor release and are matched in [`package_rule`].)
+pub static RELEASE_BOUNDARIES: &[(&[&str], &[&str], &Rule)] = &[
+    (&["numpy"], &["2.0.0"], &PKG_NUMPY_NEP50),
+    (&["torch", "pytorch"], &["1.12.0"], &PKG_TORCH_TF32),
+    (&["pandas"], &["2.0.0"], &PKG_PANDAS_2),
+    (
+        &["tensorflow", "tensorflow-cpu", "tensorflow-gpu"],
+        &["2.4.0", "2.9.0", "2.11.0"],
+        &PKG_TF_DEFAULTS,
+    ),
+];
+
 /// What happened to a package between two manifests.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum PackageChange<'a> {
@@ -1165,21 +1180,17 @@ pub fn package_rule(
     }
     let kind = version::classify(ecosystem, old, new);
     // Documented default changes at known releases come first: they name the real cause.
-    let specific = match n.as_str() {
-        "numpy" if crosses(ecosystem, old, new, "2.0.0") => Some(&PKG_NUMPY_NEP50),
-        "torch" | "pytorch" if crosses(ecosystem, old, new, "1.12.0") => Some(&PKG_TORCH_TF32),
-        "scikit-learn" if matches!(kind, VersionChange::Major | VersionChange::Minor) => {
+    let boundary = RELEASE_BOUNDARIES.iter().find(|(names, releases, _)| {
+        names.contains(&n.as_str()) && releases.iter().any(|b| crosses(ecosystem, old, new, b))
+    });
+    let specific = match boundary {
+        Some((_, _, rule)) => Some(*rule),
+        None if n == "scikit-learn"
+            && matches!(kind, VersionChange::Major | VersionChange::Minor) =>
+        {
             Some(&PKG_SKLEARN_MODELS)
         }
-        "pandas" if crosses(ecosystem, old, new, "2.0.0") => Some(&PKG_PANDAS_2),
-        "tensorflow" | "tensorflow-cpu" | "tensorflow-gpu"
-            if ["2.4.0", "2.9.0", "2.11.0"]
-                .iter()
-                .any(|b| crosses(ecosystem, old, new, b)) =>
-        {
-            Some(&PKG_TF_DEFAULTS)
-        }
-        _ => None,
+        None => None,
     };
     if let Some(rule) = specific {
         return (rule, lead(&what));

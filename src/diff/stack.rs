@@ -159,8 +159,7 @@ fn compare_distributions<'a>(
                 .collect::<Vec<_>>()
         })
     };
-    for name in og.keys().chain(ng.keys()).collect::<BTreeSet<_>>() {
-        let (a, b) = (og.get(name), ng.get(name));
+    for (name, a, b) in super::outer_join(&og, &ng) {
         if key(a) == key(b) {
             continue;
         }
@@ -210,8 +209,7 @@ fn compare_conda(
     };
     let show = |v: Option<&(String, String)>| v.map(|(ver, build)| format!("{ver} ({build})"));
     let (om, nm) = (m(o), m(n));
-    for name in om.keys().chain(nm.keys()).collect::<BTreeSet<_>>() {
-        let (a, b) = (om.get(name), nm.get(name));
+    for (name, a, b) in super::outer_join(&om, &nm) {
         if a == b {
             continue;
         }
@@ -356,10 +354,10 @@ fn compare_native<'a>(old: &'a Content, new: &'a Content, out: &mut Vec<Change>)
         m
     };
     let (og, ng) = (group(old), group(new));
-    for k in og.keys().chain(ng.keys()).collect::<BTreeSet<_>>() {
+    for (k, a, b) in super::outer_join(&og, &ng) {
         let (owner, role, place) = k;
-        let a = og.get(k).cloned().unwrap_or_default();
-        let b = ng.get(k).cloned().unwrap_or_default();
+        let a = a.cloned().unwrap_or_default();
+        let b = b.cloned().unwrap_or_default();
         let show = |ls: &[&NativeLibrary]| {
             Some(
                 ls.iter()
@@ -489,8 +487,7 @@ fn compare_gpu(o: &GpuInfo, n: &GpuInfo, out: &mut Vec<Change>) {
         m
     };
     let (ol, nl) = (libs(o), libs(n));
-    for k in ol.keys().chain(nl.keys()).collect::<BTreeSet<_>>() {
-        let (a, b) = (ol.get(k), nl.get(k));
+    for (k, a, b) in super::outer_join(&ol, &nl) {
         if a == b {
             continue;
         }
