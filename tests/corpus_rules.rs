@@ -655,6 +655,68 @@ fn monorepo_cases(lab: &mut Lab) {
     lab.check("mono: rename with an edit", RETRAIN, &prev, &next, &dir);
 }
 
+/// A scope stamped with a real interpreter (the numpy/scipy/scikit-learn environment of
+/// `.ci/run`): the packages the job can load come from the installed `Requires-Dist`, so a
+/// package pinned beside them that the job never imports is out of scope, and one it imports
+/// through scikit-learn is not.
+fn scope_with_interpreter_cases(lab: &mut Lab, python: &Path) {
+    let freeze = run_tool(python, Path::new("."), &["-m", "pip", "freeze"]);
+    let pins: String = freeze
+        .lines()
+        .filter(|l| l.contains("=="))
+        .map(|l| format!("{l}\n"))
+        .collect();
+    let repo = repo_with(&[
+        (
+            "train.py",
+            "from sklearn.linear_model import LogisticRegression\n",
+        ),
+        ("requirements.txt", &format!("{pins}fastapi==0.115.0\n")),
+    ]);
+    let dir = repo.path();
+    let py = python.to_str().unwrap();
+    let args = ["--python", py, "--entry", "train.py"];
+    let a = lab.stamp(dir, &[], &args);
+    assert!(
+        a.content
+            .scope
+            .as_ref()
+            .is_some_and(|s| s.packages.is_some()),
+        "{:?}",
+        a.content.scope
+    );
+    write_files(
+        dir,
+        &[("requirements.txt", &format!("{pins}fastapi==0.115.6\n"))],
+    );
+    git(dir, &["commit", "-qam", "fastapi"]);
+    let b = lab.stamp(dir, &[], &args);
+    // runprint.toml [scope]: the job does not import fastapi, directly or through a dependency
+    // (importlib.metadata.requires of what it imports, checked in tests/scope.rs)
+    lab.check("scope+python: unimported package bumped", NONE, &a, &b, dir);
+    let threadpool = pins
+        .lines()
+        .find(|l| l.starts_with("threadpoolctl=="))
+        .unwrap_or("threadpoolctl==3.5.0")
+        .to_string();
+    let bumped = pins.replace(&threadpool, "threadpoolctl==1.0.0");
+    write_files(
+        dir,
+        &[("requirements.txt", &format!("{bumped}fastapi==0.115.6\n"))],
+    );
+    git(dir, &["commit", "-qam", "threadpoolctl"]);
+    let c = lab.stamp(dir, &[], &args);
+    // scikit-learn requires threadpoolctl (its Requires-Dist): reached through a dependency, a
+    // pure-Python package's downgrade keeps its verdict
+    lab.check(
+        "scope+python: dependency of an imported package",
+        VERIFY,
+        &b,
+        &c,
+        dir,
+    );
+}
+
 /// The monorepo's files (an invented scenario).
 const MONOREPO: &[(&str, &str)] = &[
     ("README.md", "# kelp\n"),
@@ -1387,6 +1449,7 @@ fn tool_cases(lab: &mut Lab) {
             let z = lab.stamp(dir, &[], &["--python", n]);
             // common practice: the same environment
             lab.check(names[2], NONE, &y, &z, dir);
+            scope_with_interpreter_cases(lab, new_py);
         }
         _ => {
             for n in names {

@@ -392,6 +392,9 @@ pub struct ScopeView {
     pub packages: Option<BTreeSet<String>>,
     /// Lockfiles in scope on either side.
     pub lockfiles: BTreeSet<String>,
+    /// The Python (`pypi`, `conda`) lockfiles of either side: the package list, which follows
+    /// Python imports, judges only their packages.
+    pub python_lockfiles: BTreeSet<String>,
     /// Why parts of the scope could not be used, for the report's notes.
     pub notes: Vec<String>,
 }
@@ -408,6 +411,13 @@ impl ScopeView {
             .extend(a.files.keys().chain(b.files.keys()).cloned());
         v.lockfiles
             .extend(a.lockfiles.iter().chain(&b.lockfiles).cloned());
+        v.python_lockfiles.extend(
+            old.lockfiles
+                .iter()
+                .chain(&new.lockfiles)
+                .filter(|l| matches!(l.ecosystem.as_str(), "pypi" | "conda"))
+                .map(|l| l.path.clone()),
+        );
         let globs: Vec<&String> = a.reads.iter().chain(&b.reads).collect();
         if !globs.is_empty() {
             let mut set = globset::GlobSetBuilder::new();
@@ -531,8 +541,10 @@ impl<'a> Context<'a> {
                 class: crate::classes::PackageClass::OutOfScope,
                 how: format!("locked in `{path}`, which the training job does not install from"),
             };
-        } else if scope.is_some_and(|s| s.excludes_package(name))
-            && class.class != crate::classes::PackageClass::OutOfScope
+        } else if scope.is_some_and(|s| {
+            s.excludes_package(name)
+                && lockfile.is_none_or(|path| s.python_lockfiles.contains(path))
+        }) && class.class != crate::classes::PackageClass::OutOfScope
         {
             class = rules::Classified {
                 class: crate::classes::PackageClass::OutOfScope,
@@ -1129,6 +1141,7 @@ fn whole_lockfile(l: &Lockfile, added: bool, ctx: &Context<'_>) -> Change {
         )
     } else if l.packages_omitted.is_none()
         && !l.packages.is_empty()
+        && matches!(l.ecosystem.as_str(), "pypi" | "conda")
         && scope.is_some_and(|s| l.packages.iter().all(|p| s.excludes_package(&p.name)))
     {
         (
@@ -1570,6 +1583,60 @@ mod tests {
                 (6, None, Some("F")),
             ]
         );
+    }
+
+    /// The package list of a scope follows Python imports: it judges the packages of Python
+    /// lockfiles only. A Cargo.lock the job installs from (a Rust extension) keeps its verdict.
+    #[test]
+    fn the_scope_judges_only_python_packages_by_the_python_package_list() {
+        let side = |ndarray: &str, fastapi: &str| {
+            let lock = |path: &str, eco: &str, name: &str, v: &str| Lockfile {
+                path: path.into(),
+                ecosystem: eco.into(),
+                sha256: format!("sha256:{name}{v}"),
+                packages: vec![Package {
+                    name: name.into(),
+                    version: v.into(),
+                    ..Package::default()
+                }],
+                ..Lockfile::default()
+            };
+            Manifest::new(
+                crate::manifest::RunInfo::default(),
+                Content {
+                    lockfiles: vec![
+                        lock("Cargo.lock", "cargo", "ndarray", ndarray),
+                        lock("requirements.txt", "pypi", "fastapi", fastapi),
+                    ],
+                    scope: Some(crate::manifest::Scope {
+                        entry: vec!["train.py".into()],
+                        lockfiles: vec!["Cargo.lock".into(), "requirements.txt".into()],
+                        complete: true,
+                        packages: Some(vec!["numpy".into()]),
+                        ..Default::default()
+                    }),
+                    ..Content::default()
+                },
+            )
+        };
+        let r = compare(
+            "a",
+            &side("0.15.6", "0.115.0"),
+            "b",
+            &side("0.16.1", "0.115.6"),
+            None,
+        );
+        let rule = |s: &str| {
+            r.changes
+                .iter()
+                .find(|c| c.subject.contains(s))
+                .unwrap()
+                .rule
+                .clone()
+        };
+        assert_eq!(rule("ndarray"), "pkg.numeric.major");
+        assert_eq!(rule("fastapi"), "pkg.out-of-scope");
+        assert_eq!(r.verdict, Impact::Retrain);
     }
 
     /// The wheel tags a lockfile lists decide an unknown package's class (PEP 427: a platform
