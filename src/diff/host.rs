@@ -1,0 +1,159 @@
+//! The machine: `cpu`, `system` and `run`.
+
+use super::*;
+
+pub(super) fn compare_cpu(old: &Content, new: &Content, out: &mut Vec<Change>) {
+    let (o, n) = (&old.cpu, &new.cpu);
+    if o.arch != n.arch {
+        out.push(Change::from_rule(
+            &rules::CPU_ARCH,
+            "cpu",
+            "cpu architecture",
+            "",
+            Some(o.arch.clone()),
+            Some(n.arch.clone()),
+        ));
+    }
+    let ident = |c: &crate::manifest::CpuInfo| {
+        (
+            c.vendor.clone(),
+            c.model_name.clone(),
+            c.family.clone(),
+            c.model.clone(),
+            c.stepping.clone(),
+        )
+    };
+    if ident(o) != ident(n) {
+        out.push(Change::from_rule(
+            &rules::CPU_MODEL,
+            "cpu",
+            "cpu model",
+            "",
+            Some(opt(&o.model_name)),
+            Some(opt(&n.model_name)),
+        ));
+    }
+    // Manifests of older runprint versions may hold flags that are not numerical (`smep`).
+    fn numeric(c: &crate::manifest::CpuInfo) -> BTreeSet<&String> {
+        c.features
+            .iter()
+            .filter(|f| crate::collect::cpu::is_numeric_feature(f))
+            .collect()
+    }
+    let (of, nf) = (numeric(o), numeric(n));
+    if of != nf {
+        let gone: Vec<&str> = of.difference(&nf).map(|s| s.as_str()).collect();
+        let came: Vec<&str> = nf.difference(&of).map(|s| s.as_str()).collect();
+        let mut parts = Vec::new();
+        if !came.is_empty() {
+            parts.push(format!("gained {}", came.join(" ")));
+        }
+        if !gone.is_empty() {
+            parts.push(format!("lost {}", gone.join(" ")));
+        }
+        let summary = came
+            .iter()
+            .map(|f| format!("+{f}"))
+            .chain(gone.iter().map(|f| format!("-{f}")))
+            .collect::<Vec<_>>()
+            .join(" ");
+        out.push(Change::from_rule(
+            &rules::CPU_FEATURES,
+            "cpu",
+            "cpu features",
+            format!("the processor {}", parts.join(" and ")),
+            Some(format!("{} features", of.len())),
+            Some(format!("{} features ({summary})", nf.len())),
+        ));
+    }
+    let counts =
+        |c: &crate::manifest::CpuInfo| (c.logical_cores, c.physical_cores, c.allowed_cpu_count);
+    let fmt = |c: &crate::manifest::CpuInfo| {
+        format!(
+            "{} logical, {} allowed",
+            c.logical_cores,
+            c.allowed_cpu_count.map_or("?".into(), |n| n.to_string())
+        )
+    };
+    if counts(o) != counts(n) {
+        out.push(Change::from_rule(
+            &rules::CPU_COUNT,
+            "cpu",
+            "cpu count",
+            "",
+            Some(fmt(o)),
+            Some(fmt(n)),
+        ));
+    } else if o.allowed_cpus != n.allowed_cpus {
+        out.push(Change::from_rule(
+            &rules::CPU_AFFINITY,
+            "cpu",
+            "cpu affinity",
+            "",
+            o.allowed_cpus.clone(),
+            n.allowed_cpus.clone(),
+        ));
+    }
+}
+
+pub(super) fn compare_run(old: &Manifest, new: &Manifest, out: &mut Vec<Change>) {
+    let (o, n) = (&old.run, &new.run);
+    let mut push = |subject: &str, a: Option<String>, b: Option<String>| {
+        if a != b {
+            out.push(Change::from_rule(
+                &rules::RUN_INFO,
+                "run",
+                subject,
+                "",
+                a,
+                b,
+            ));
+        }
+    };
+    push("host name", o.hostname.clone(), n.hostname.clone());
+    push("label", o.label.clone(), n.label.clone());
+    push(
+        "runprint version",
+        Some(o.tool_version.clone()),
+        Some(n.tool_version.clone()),
+    );
+}
+
+pub(super) fn compare_system(old: &Content, new: &Content, out: &mut Vec<Change>) {
+    let (o, n) = (&old.system, &new.system);
+    if (&o.libc, &o.libc_version) != (&n.libc, &n.libc_version) {
+        let f =
+            |s: &crate::manifest::SystemInfo| format!("{} {}", opt(&s.libc), opt(&s.libc_version));
+        out.push(Change::from_rule(
+            &rules::SYS_LIBC,
+            "system",
+            "libc",
+            "",
+            Some(f(o)),
+            Some(f(n)),
+        ));
+    }
+    let mut push = |subject: &str, a: Option<String>, b: Option<String>| {
+        if a != b {
+            out.push(Change::from_rule(
+                &rules::SYS_OTHER,
+                "system",
+                subject,
+                "",
+                a,
+                b,
+            ));
+        }
+    };
+    push(
+        "operating system",
+        Some(format!("{} {}", o.os, opt(&o.os_version))),
+        Some(format!("{} {}", n.os, opt(&n.os_version))),
+    );
+    push("kernel", o.kernel.clone(), n.kernel.clone());
+    push(
+        "memory",
+        Some(o.memory_bytes.to_string()),
+        Some(n.memory_bytes.to_string()),
+    );
+}
