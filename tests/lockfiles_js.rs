@@ -166,6 +166,37 @@ fn npm_integrities(tools: &Tools) -> BTreeMap<NameVersion, String> {
         .collect()
 }
 
+/// The dependency edges read from the lockfile (`requires`) against the tool's own account of
+/// each package's dependencies, for every package both know; at least `min` compared.
+fn assert_edges(
+    parsed: &Parsed,
+    expected: &BTreeMap<NameVersion, BTreeSet<String>>,
+    min: usize,
+    tool: &str,
+) {
+    let mut checked = 0;
+    for p in &parsed.packages {
+        if let Some(want) = expected.get(&(p.name.clone(), p.version.clone())) {
+            let got: BTreeSet<String> = p.requires.iter().cloned().collect();
+            assert_eq!(&got, want, "{tool}: edges of {}@{}", p.name, p.version);
+            checked += 1;
+        }
+    }
+    assert!(
+        checked >= min,
+        "{tool}: only {checked} packages' edges compared"
+    );
+}
+
+/// The names a `package.json` depends on (`dependencies` and `optionalDependencies`).
+fn manifest_edges(package_json: &Value) -> BTreeSet<String> {
+    ["dependencies", "optionalDependencies"]
+        .iter()
+        .filter_map(|m| package_json.get(*m).and_then(Value::as_object))
+        .flat_map(|m| m.keys().cloned())
+        .collect()
+}
+
 fn assert_hashes_match_npm(parsed: &Parsed, npm: &BTreeMap<NameVersion, String>) {
     let mut checked = 0;
     for p in &parsed.packages {
@@ -310,6 +341,23 @@ fn yarn_classic_matches_yarn_list() {
     walk(&tree["data"]["trees"], &mut listed);
     assert_eq!(name_versions(&parsed), listed);
     assert_hashes_match_npm(&parsed, &npm_integrities(&tools));
+    // Edges: each hoisted package's own package.json, as yarn installed it.
+    let mut installed = BTreeMap::new();
+    for p in &parsed.packages {
+        let file = dir
+            .path()
+            .join("node_modules")
+            .join(&p.name)
+            .join("package.json");
+        let Ok(text) = std::fs::read_to_string(&file) else {
+            continue;
+        };
+        let json: Value = serde_json::from_str(&text).unwrap();
+        if json["version"].as_str() == Some(p.version.as_str()) {
+            installed.insert((p.name.clone(), p.version.clone()), manifest_edges(&json));
+        }
+    }
+    assert_edges(&parsed, &installed, 5, "yarn 1");
 }
 
 #[test]
@@ -405,6 +453,19 @@ fn pnpm_case(tools: &Tools, script: &str, expected_version: &str) {
     walk_tree(root, &maps, &mut all);
     let keys: BTreeSet<NameVersion> = all.keys().cloned().collect();
     assert_eq!(name_versions(&parsed), keys, "pnpm {expected_version}");
+    // Edges: the children pnpm's own tree gives each package.
+    let edges: BTreeMap<NameVersion, BTreeSet<String>> = all
+        .iter()
+        .map(|(k, node)| {
+            let children = ["dependencies", "optionalDependencies"]
+                .iter()
+                .filter_map(|m| node.get(*m).and_then(Value::as_object))
+                .flat_map(|m| m.keys().cloned())
+                .collect();
+            (k.clone(), children)
+        })
+        .collect();
+    assert_edges(&parsed, &edges, 5, &format!("pnpm {expected_version}"));
 
     // Dev-only: reachable from devDependencies and not from the others, per pnpm's own tree.
     let subtree = |names: &[&str]| {

@@ -95,6 +95,11 @@ struct PnpmPackage {
     cpu: Vec<String>,
     #[serde(default)]
     libc: Vec<String>,
+    // Lockfile versions before 9.0 list the edges here (names only are used).
+    #[serde(default)]
+    dependencies: BTreeMap<String, serde::de::IgnoredAny>,
+    #[serde(default)]
+    optional_dependencies: BTreeMap<String, serde::de::IgnoredAny>,
 }
 
 #[derive(Deserialize, Default)]
@@ -199,6 +204,17 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
         *all &= snap.optional;
     }
 
+    // 9.0 lists the edges in `snapshots`, one per peer combination: their union.
+    let mut snapshot_edges: BTreeMap<&str, BTreeSet<&str>> = BTreeMap::new();
+    for (key, snap) in &lock.snapshots {
+        snapshot_edges.entry(strip_peers(key)).or_default().extend(
+            snap.dependencies
+                .keys()
+                .chain(snap.optional_dependencies.keys())
+                .map(String::as_str),
+        );
+    }
+
     let mut packages = Vec::with_capacity(lock.packages.len());
     for (key, p) in &lock.packages {
         let base = strip_peers(key);
@@ -259,6 +275,14 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
             optional,
             direct: Some(direct.contains(base)),
             platform: platform_label(&p.os, &p.cpu, &p.libc),
+            requires: crate::lockfile::support::requires_list(
+                p.dependencies
+                    .keys()
+                    .chain(p.optional_dependencies.keys())
+                    .map(String::as_str)
+                    .chain(snapshot_edges.get(base).into_iter().flatten().copied())
+                    .map(str::to_string),
+            ),
             ..Package::default()
         });
     }

@@ -63,6 +63,8 @@ struct ClassicEntry {
     version: Option<String>,
     resolved: Option<String>,
     integrity: Option<String>,
+    /// Names in its `dependencies` and `optionalDependencies` blocks.
+    requires: Vec<String>,
 }
 
 fn parse_classic(text: &str, path: &str) -> Result<Parsed, LockfileError> {
@@ -70,6 +72,8 @@ fn parse_classic(text: &str, path: &str) -> Result<Parsed, LockfileError> {
     let mut entries: Vec<ClassicEntry> = Vec::new();
     // Whether a `key:` block at depth 1 is open, so depth 2 lines are allowed.
     let mut in_block = false;
+    // Whether the open block lists dependency edges.
+    let mut edges_block = false;
     for (i, raw) in text.lines().enumerate() {
         let line_no = i + 1;
         let line = raw.strip_suffix('\r').unwrap_or(raw);
@@ -104,8 +108,10 @@ fn parse_classic(text: &str, path: &str) -> Result<Parsed, LockfileError> {
                     version: None,
                     resolved: None,
                     integrity: None,
+                    requires: Vec::new(),
                 });
                 in_block = false;
+                edges_block = false;
             }
             (0, Some(_)) => {
                 return Err(err(
@@ -120,6 +126,8 @@ fn parse_classic(text: &str, path: &str) -> Result<Parsed, LockfileError> {
                 let [key] = keys.as_slice() else {
                     return Err(err("expected one key on a nested line".into()));
                 };
+                edges_block =
+                    in_block && matches!(key.as_str(), "dependencies" | "optionalDependencies");
                 match (key.as_str(), value) {
                     ("version", Some(v)) => entry.version = Some(v),
                     ("resolved", Some(v)) => entry.resolved = Some(v),
@@ -127,7 +135,13 @@ fn parse_classic(text: &str, path: &str) -> Result<Parsed, LockfileError> {
                     _ => {}
                 }
             }
-            (2, Some(_)) if in_block => {}
+            (2, Some(_)) if in_block => {
+                if let (true, Some(entry), [name]) =
+                    (edges_block, entries.last_mut(), keys.as_slice())
+                {
+                    entry.requires.push(name.clone());
+                }
+            }
             _ => return Err(err("unexpected indentation".into())),
         }
     }
@@ -162,6 +176,7 @@ fn parse_classic(text: &str, path: &str) -> Result<Parsed, LockfileError> {
             version,
             source: e.resolved.as_deref().map(scrub_url_credentials),
             hashes: sri_hashes(e.integrity.as_deref()),
+            requires: crate::lockfile::support::requires_list(e.requires),
             ..Package::default()
         });
     }
@@ -364,6 +379,7 @@ fn parse_berry(text: &str, path: &str) -> Result<Parsed, LockfileError> {
             optional: is_optional,
             direct: Some(is_direct),
             platform: e.conditions.clone(),
+            requires: crate::lockfile::support::requires_list(e.dependencies.keys().cloned()),
             ..Package::default()
         });
     }
