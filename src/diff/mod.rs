@@ -730,6 +730,23 @@ fn opt(s: &Option<String>) -> String {
 mod tests {
     use super::*;
 
+    /// A manifest holding one `uv.lock` with these packages (its digest named after `v`).
+    fn uv_lock(v: &str, packages: Vec<Package>) -> Manifest {
+        Manifest::new(
+            crate::manifest::RunInfo::default(),
+            Content {
+                lockfiles: vec![Lockfile {
+                    path: "uv.lock".into(),
+                    ecosystem: "pypi".into(),
+                    sha256: format!("sha256:{v}"),
+                    packages,
+                    ..Lockfile::default()
+                }],
+                ..Content::default()
+            },
+        )
+    }
+
     #[test]
     fn word_diff_marks_removed_and_added_words() {
         assert_eq!(
@@ -817,23 +834,14 @@ mod tests {
     #[test]
     fn locked_platform_wheels_mark_compiled_code() {
         let side = |v: &str, compiled: bool| {
-            Manifest::new(
-                crate::manifest::RunInfo::default(),
-                Content {
-                    lockfiles: vec![Lockfile {
-                        path: "uv.lock".into(),
-                        ecosystem: "pypi".into(),
-                        sha256: format!("sha256:{v}"),
-                        packages: vec![Package {
-                            name: "kelp-fastparse".into(),
-                            version: v.into(),
-                            compiled: Some(compiled),
-                            ..Package::default()
-                        }],
-                        ..Lockfile::default()
-                    }],
-                    ..Content::default()
-                },
+            uv_lock(
+                v,
+                vec![Package {
+                    name: "kelp-fastparse".into(),
+                    version: v.into(),
+                    compiled: Some(compiled),
+                    ..Package::default()
+                }],
             )
         };
         let r = compare("a", &side("1.0.0", true), "b", &side("1.0.1", true), None);
@@ -861,19 +869,7 @@ mod tests {
                     ..Package::default()
                 },
             ];
-            Manifest::new(
-                crate::manifest::RunInfo::default(),
-                Content {
-                    lockfiles: vec![Lockfile {
-                        path: "uv.lock".into(),
-                        ecosystem: "pypi".into(),
-                        sha256: format!("sha256:{v}"),
-                        packages,
-                        ..Lockfile::default()
-                    }],
-                    ..Content::default()
-                },
-            )
+            uv_lock(v, packages)
         };
         let r = compare("a", &side("0.4.0"), "b", &side("0.5.0"), None);
         let c = &r.changes[0];
