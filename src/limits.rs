@@ -84,7 +84,9 @@ pub(crate) fn too_large(size: Option<u64>, limit: u64) -> io::Error {
 
 /// Reads at most `limit` bytes from an open file; more is an error.
 fn read_to_limit(file: File, len_hint: u64, limit: u64) -> io::Result<Vec<u8>> {
-    let mut bytes = Vec::with_capacity(len_hint.min(limit).min(1 << 24) as usize);
+    // One byte more than the file: `read_to_end` probes for the end with a read into spare
+    // capacity, and a full vector would be grown (and the file copied) just for that probe.
+    let mut bytes = Vec::with_capacity(len_hint.min(limit).min(1 << 24).saturating_add(1) as usize);
     file.take(limit.saturating_add(1)).read_to_end(&mut bytes)?;
     if bytes.len() as u64 > limit {
         return Err(too_large(None, limit));
