@@ -46,6 +46,65 @@ impl std::fmt::Display for Impact {
     }
 }
 
+/// The manifest section a change belongs to (`section` in the JSON report).
+#[derive(
+    Debug, Clone, Copy, Default, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize, Deserialize,
+)]
+#[serde(rename_all = "lowercase")]
+pub enum Section {
+    /// Source control.
+    #[default]
+    Git,
+    /// Declared data inputs.
+    Data,
+    /// Lockfiles and their packages.
+    Lockfiles,
+    /// Python environments and framework builds.
+    Python,
+    /// BLAS, OpenMP and fast-math modules.
+    Native,
+    /// The GPU stack.
+    Gpu,
+    /// Environment variables.
+    Env,
+    /// The processor.
+    Cpu,
+    /// Operating system and C library.
+    System,
+    /// The stamping itself.
+    Run,
+}
+
+impl Section {
+    /// The word used in reports.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Section::Git => "git",
+            Section::Data => "data",
+            Section::Lockfiles => "lockfiles",
+            Section::Python => "python",
+            Section::Native => "native",
+            Section::Gpu => "gpu",
+            Section::Env => "env",
+            Section::Cpu => "cpu",
+            Section::System => "system",
+            Section::Run => "run",
+        }
+    }
+}
+
+impl PartialEq<&str> for Section {
+    fn eq(&self, other: &&str) -> bool {
+        self.as_str() == *other
+    }
+}
+
+impl std::fmt::Display for Section {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(self.as_str())
+    }
+}
+
 macro_rules! named_enum {
     ($(#[$m:meta])* $name:ident { $( $(#[$vm:meta])* $variant:ident = $word:literal, )* }) => {
         $(#[$m])*

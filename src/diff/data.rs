@@ -14,7 +14,7 @@ pub(super) fn compare_data(old: &Content, new: &Content, out: &mut Vec<Change>) 
                 let lead = changed_files(a, b).map_or_else(String::new, |d| format!("files {d}"));
                 out.push(Change::from_rule(
                     &rules::DATA_CHANGED,
-                    "data",
+                    Section::Data,
                     subject,
                     lead,
                     Some(format!(
@@ -34,7 +34,7 @@ pub(super) fn compare_data(old: &Content, new: &Content, out: &mut Vec<Change>) 
             (Some(_), Some(_)) => {}
             (a, b) => out.push(Change::from_rule(
                 &rules::DATA_ONE_SIDE,
-                "data",
+                Section::Data,
                 subject,
                 "",
                 a.map(|d| digest_short(&d.sha256)),

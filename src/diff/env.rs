@@ -63,7 +63,7 @@ pub(super) fn compare_env(old: &Content, new: &Content, ctx: &Context<'_>, out: 
         };
         out.push(Change::from_rule(
             rule,
-            "env",
+            Section::Env,
             format!("env {name}"),
             lead,
             a.cloned(),
@@ -77,7 +77,7 @@ pub(super) fn compare_env(old: &Content, new: &Content, ctx: &Context<'_>, out: 
     for name in ro.symmetric_difference(&rn) {
         out.push(Change::from_rule(
             &rules::ENV_CREDENTIAL,
-            "env",
+            Section::Env,
             format!("env {name}"),
             "",
             None,

@@ -71,7 +71,7 @@ pub(super) fn compare_git(
     if o.present != n.present {
         out.push(Change::from_rule(
             &rules::GIT_PRESENCE,
-            "git",
+            Section::Git,
             "source control",
             "",
             Some(o.present.to_string()),
@@ -117,7 +117,7 @@ pub(super) fn compare_git(
                 summary = Some(s);
                 out.push(Change::from_rule(
                     rule,
-                    "git",
+                    Section::Git,
                     "commit",
                     lead,
                     short(&o.commit),
@@ -128,7 +128,7 @@ pub(super) fn compare_git(
                 notes.push("the files changed between the two commits could not be listed (run inside the repository or pass --repo)".into());
                 out.push(Change::from_rule(
                     &rules::GIT_UNLISTED,
-                    "git",
+                    Section::Git,
                     "commit",
                     "",
                     short(&o.commit),
@@ -159,7 +159,7 @@ pub(super) fn compare_git(
         let digest = |d: &Option<String>| Some(d.as_deref().map_or("clean".into(), digest_short));
         out.push(Change::from_rule(
             rule,
-            "git",
+            Section::Git,
             "uncommitted changes",
             lead,
             digest(&o.dirty_digest),
@@ -169,7 +169,7 @@ pub(super) fn compare_git(
     if o.branch != n.branch {
         out.push(Change::from_rule(
             &rules::GIT_BRANCH,
-            "git",
+            Section::Git,
             "branch",
             "",
             o.branch.clone(),
@@ -179,7 +179,7 @@ pub(super) fn compare_git(
     if o.remote != n.remote {
         out.push(Change::from_rule(
             &rules::GIT_REMOTE,
-            "git",
+            Section::Git,
             "remote",
             "",
             o.remote.clone(),
@@ -198,7 +198,7 @@ pub(super) fn compare_git(
         if a != b {
             out.push(Change::from_rule(
                 &rules::GIT_SUBMODULE,
-                "git",
+                Section::Git,
                 format!("submodule {path}"),
                 "",
                 short(&a),

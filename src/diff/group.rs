@@ -231,11 +231,12 @@ pub fn group(mut changes: Vec<Change>, edges: &Edges) -> Vec<Change> {
 mod tests {
     use super::*;
     use crate::diff::rules;
+    use crate::diff::Section;
 
     fn pkg(lockfile: &str, name: &str, rule: &'static rules::Rule, old: &str, new: &str) -> Change {
         let mut c = Change::from_rule(
             rule,
-            "lockfiles",
+            Section::Lockfiles,
             format!("{lockfile}: {name}"),
             "",
             Some(old.into()),
@@ -294,7 +295,7 @@ mod tests {
         ];
         let mut gpu = Change::from_rule(
             &rules::GPU_CUDNN,
-            "gpu",
+            Section::Gpu,
             "cudnn (nvidia-cudnn-cu12)",
             "",
             Some("9.1.0".into()),

@@ -7,7 +7,7 @@ pub(super) fn compare_cpu(old: &Content, new: &Content, out: &mut Vec<Change>) {
     if o.arch != n.arch {
         out.push(Change::from_rule(
             &rules::CPU_ARCH,
-            "cpu",
+            Section::Cpu,
             "cpu architecture",
             "",
             Some(o.arch.clone()),
@@ -26,7 +26,7 @@ pub(super) fn compare_cpu(old: &Content, new: &Content, out: &mut Vec<Change>) {
     if ident(o) != ident(n) {
         out.push(Change::from_rule(
             &rules::CPU_MODEL,
-            "cpu",
+            Section::Cpu,
             "cpu model",
             "",
             Some(opt(&o.model_name)),
@@ -59,7 +59,7 @@ pub(super) fn compare_cpu(old: &Content, new: &Content, out: &mut Vec<Change>) {
             .join(" ");
         out.push(Change::from_rule(
             &rules::CPU_FEATURES,
-            "cpu",
+            Section::Cpu,
             "cpu features",
             format!("the processor {}", parts.join(" and ")),
             Some(format!("{} features", of.len())),
@@ -78,7 +78,7 @@ pub(super) fn compare_cpu(old: &Content, new: &Content, out: &mut Vec<Change>) {
     if counts(o) != counts(n) {
         out.push(Change::from_rule(
             &rules::CPU_COUNT,
-            "cpu",
+            Section::Cpu,
             "cpu count",
             "",
             Some(fmt(o)),
@@ -87,7 +87,7 @@ pub(super) fn compare_cpu(old: &Content, new: &Content, out: &mut Vec<Change>) {
     } else if o.allowed_cpus != n.allowed_cpus {
         out.push(Change::from_rule(
             &rules::CPU_AFFINITY,
-            "cpu",
+            Section::Cpu,
             "cpu affinity",
             "",
             o.allowed_cpus.clone(),
@@ -102,7 +102,7 @@ pub(super) fn compare_run(old: &Manifest, new: &Manifest, out: &mut Vec<Change>)
         if a != b {
             out.push(Change::from_rule(
                 &rules::RUN_INFO,
-                "run",
+                Section::Run,
                 subject,
                 "",
                 a,
@@ -126,7 +126,7 @@ pub(super) fn compare_system(old: &Content, new: &Content, out: &mut Vec<Change>
             |s: &crate::manifest::SystemInfo| format!("{} {}", opt(&s.libc), opt(&s.libc_version));
         out.push(Change::from_rule(
             &rules::SYS_LIBC,
-            "system",
+            Section::System,
             "libc",
             "",
             Some(f(o)),
@@ -137,7 +137,7 @@ pub(super) fn compare_system(old: &Content, new: &Content, out: &mut Vec<Change>
         if a != b {
             out.push(Change::from_rule(
                 &rules::SYS_OTHER,
-                "system",
+                Section::System,
                 subject,
                 "",
                 a,

@@ -33,7 +33,7 @@ pub(super) fn compare_lockfiles(
                 };
                 out.push(Change::from_rule(
                     &rules::LOCK_UNRECORDED,
-                    "lockfiles",
+                    Section::Lockfiles,
                     format!("{} ({})", b.path, b.ecosystem),
                     "the lockfile changed, and its packages were left out of a manifest (over the package limit); compare the files themselves".to_string(),
                     count(a),
@@ -112,7 +112,7 @@ fn whole_lockfile(l: &Lockfile, added: bool, ctx: &Context<'_>) -> Change {
     let (old, new) = if added { (None, count) } else { (count, None) };
     Change::from_rule(
         rule,
-        "lockfiles",
+        Section::Lockfiles,
         format!("{} ({})", l.path, l.ecosystem),
         lead,
         old,
@@ -172,7 +172,7 @@ fn compare_packages(
         let pkg = |subject: String, change, values| {
             ctx.package_change(
                 Some(path),
-                "lockfiles",
+                Section::Lockfiles,
                 subject,
                 name,
                 dev,

@@ -27,7 +27,7 @@ use crate::policy::Policy;
 use rules::{PackageChange, Rule};
 pub use scope::ScopeView;
 
-pub use crate::classes::Impact;
+pub use crate::classes::{Impact, Section};
 
 /// Every key of two maps in order, with the value each side has: the outer join every section
 /// comparison walks (a merge of the two sorted key sequences, nothing collected).
@@ -80,7 +80,7 @@ pub struct Change {
     pub reason: String,
     /// Manifest section: `git`, `data`, `lockfiles`, `env`, `cpu`, `system`, `python`,
     /// `native`, `gpu`, `run`.
-    pub section: String,
+    pub section: Section,
     /// The old value, where there is one.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub old: Option<String>,
@@ -134,7 +134,7 @@ impl Change {
     /// reason is `lead: rule reason` (or the rule's reason alone when `lead` is empty).
     pub fn from_rule(
         rule: &Rule,
-        section: &str,
+        section: Section,
         subject: impl Into<String>,
         lead: impl Into<String>,
         old: Option<String>,
@@ -149,7 +149,7 @@ impl Change {
             } else {
                 format!("{lead}: {}", rule.reason)
             },
-            section: section.to_string(),
+            section,
             old,
             new,
             rule: rule.id.to_string(),
@@ -438,7 +438,7 @@ impl<'a> Context<'a> {
     pub fn package_change(
         &self,
         lockfile: Option<&str>,
-        section: &str,
+        section: Section,
         subject: String,
         name: &str,
         dev: bool,
@@ -691,7 +691,7 @@ pub fn sort_changes(changes: &mut [Change]) {
             .then_with(|| b.weight().cmp(&a.weight()))
             // A group's head before its members: it names the cause.
             .then_with(|| a.group.is_some().cmp(&b.group.is_some()))
-            .then_with(|| rank(&a.section).cmp(&rank(&b.section)))
+            .then_with(|| rank(a.section.as_str()).cmp(&rank(b.section.as_str())))
             .then_with(|| a.subject.cmp(&b.subject))
     });
 }

@@ -22,12 +22,12 @@
 use std::collections::{BTreeMap, BTreeSet};
 
 use super::rules::{self, PackageChange, Rule};
-use super::{Change, Context};
+use super::{Change, Context, Section};
 use crate::manifest::{Content, FrameworkBuild, GpuInfo, NativeLibrary, PythonEnv};
 
 fn change(
     rule: &Rule,
-    section: &str,
+    section: Section,
     subject: String,
     lead: String,
     old: Option<String>,
@@ -61,7 +61,7 @@ fn compare_python(old: &[PythonEnv], new: &[PythonEnv], ctx: &Context<'_>, out: 
             (Some(o), Some(n)) => compare_env(&label, o, n, ctx, out),
             (o, n) => out.push(change(
                 &rules::PY_ONE_SIDE,
-                "python",
+                Section::Python,
                 format!("{label} environment"),
                 String::new(),
                 o.map(|e| e.interpreter.clone()),
@@ -85,7 +85,7 @@ fn compare_env(
     if o.implementation != n.implementation {
         out.push(change(
             &rules::PY_IMPLEMENTATION,
-            "python",
+            Section::Python,
             format!("{label} implementation"),
             String::new(),
             o.implementation.clone(),
@@ -104,7 +104,7 @@ fn compare_env(
         };
         out.push(change(
             rule,
-            "python",
+            Section::Python,
             format!("{label} version"),
             String::new(),
             o.version.clone(),
@@ -114,7 +114,7 @@ fn compare_env(
     if o.interpreter != n.interpreter {
         out.push(change(
             &rules::PY_PATH,
-            "python",
+            Section::Python,
             format!("{label} interpreter path"),
             String::new(),
             Some(o.interpreter.clone()),
@@ -183,7 +183,7 @@ fn compare_distributions<'a>(
         };
         out.push(ctx.package_change(
             None,
-            "python",
+            Section::Python,
             format!("{label}: {name}"),
             name,
             false,
@@ -217,7 +217,7 @@ fn compare_conda(
         if matches!(name.as_str(), "libblas" | "libcblas" | "liblapack" | "blas") {
             out.push(change(
                 &rules::PY_CONDA_BLAS,
-                "python",
+                Section::Python,
                 subject,
                 String::new(),
                 show(a),
@@ -238,7 +238,7 @@ fn compare_conda(
         // conda packages are mostly compiled; the name heuristics decide for unknown ones.
         out.push(ctx.package_change(
             None,
-            "python",
+            Section::Python,
             subject,
             name,
             false,
@@ -278,7 +278,7 @@ fn compare_builds<'a>(
             };
             out.push(change(
                 rule,
-                "python",
+                Section::Python,
                 format!("{label}: {name} build"),
                 String::new(),
                 Some(show(a)),
@@ -288,7 +288,7 @@ fn compare_builds<'a>(
         if a.git_revision != b.git_revision && a.version == b.version {
             out.push(change(
                 &rules::BUILD_REVISION,
-                "python",
+                Section::Python,
                 format!("{label}: {name} source revision"),
                 String::new(),
                 a.git_revision.clone(),
@@ -298,7 +298,7 @@ fn compare_builds<'a>(
         if (&a.blas, &a.blas_config) != (&b.blas, &b.blas_config) {
             out.push(change(
                 &rules::BUILD_BLAS,
-                "python",
+                Section::Python,
                 format!("{label}: {name} BLAS build"),
                 String::new(),
                 a.blas.clone().or(a.blas_config.clone()),
@@ -408,7 +408,7 @@ fn compare_native<'a>(old: &'a Content, new: &'a Content, out: &mut Vec<Change>)
                 format!("{owner}'s {what} changed version or build"),
             )
         };
-        let mut c = change(rule, "native", subject, lead, show(&a), show(&b));
+        let mut c = change(rule, Section::Native, subject, lead, show(&a), show(&b));
         if owner != "system" {
             c.shipped_by = Some(owner.clone());
         }
@@ -426,7 +426,7 @@ fn compare_native<'a>(old: &'a Content, new: &'a Content, out: &mut Vec<Change>)
     for (owner, path) in nf.difference(&of) {
         out.push(change(
             &rules::FAST_MATH,
-            "native",
+            Section::Native,
             format!("fast-math module {path}"),
             format!("{owner} now ships a compiled module with fast-math start-up code"),
             None,
@@ -436,7 +436,7 @@ fn compare_native<'a>(old: &'a Content, new: &'a Content, out: &mut Vec<Change>)
     for (owner, path) in of.difference(&nf) {
         out.push(change(
             &rules::FAST_MATH,
-            "native",
+            Section::Native,
             format!("fast-math module {path}"),
             format!("the fast-math module of {owner} is gone, so subnormals are no longer flushed"),
             Some(owner.clone()),
@@ -449,7 +449,7 @@ fn compare_gpu(o: &GpuInfo, n: &GpuInfo, out: &mut Vec<Change>) {
     if o.nvidia_driver != n.nvidia_driver {
         out.push(change(
             &rules::GPU_DRIVER,
-            "gpu",
+            Section::Gpu,
             "NVIDIA driver".into(),
             String::new(),
             o.nvidia_driver.clone(),
@@ -470,7 +470,7 @@ fn compare_gpu(o: &GpuInfo, n: &GpuInfo, out: &mut Vec<Change>) {
     if tk(o) != tk(n) {
         out.push(change(
             &rules::GPU_TOOLKIT,
-            "gpu",
+            Section::Gpu,
             "CUDA toolkit".into(),
             String::new(),
             Some(tk(o).join(", ")),
@@ -502,7 +502,7 @@ fn compare_gpu(o: &GpuInfo, n: &GpuInfo, out: &mut Vec<Change>) {
         };
         let mut c = change(
             rule,
-            "gpu",
+            Section::Gpu,
             format!("{} ({})", k.0, k.1),
             String::new(),
             join(a),
@@ -525,7 +525,7 @@ fn compare_gpu(o: &GpuInfo, n: &GpuInfo, out: &mut Vec<Change>) {
         };
         out.push(change(
             rule,
-            "gpu",
+            Section::Gpu,
             "GPUs".into(),
             String::new(),
             Some(od.join(", ")).filter(|s| !s.is_empty()),
