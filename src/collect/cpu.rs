@@ -7,12 +7,6 @@
 
 use crate::manifest::CpuInfo;
 
-/// True when a flag from `/proc/cpuinfo` is one numerical kernels care about (the shared
-/// class, [`crate::classes::is_numeric_cpu_feature`]).
-pub fn is_numeric_feature(flag: &str) -> bool {
-    crate::classes::is_numeric_cpu_feature(flag)
-}
-
 /// Parses `/proc/cpuinfo` text. Only the first processor block is read for identity; features
 /// are the intersection over all blocks' flags would be stricter, but Linux reports the same
 /// set on every core of a homogeneous system, and hybrid systems expose the common subset.
@@ -47,7 +41,7 @@ pub fn parse_cpuinfo(text: &str) -> CpuInfo {
             "flags" | "Features" => {
                 let mut features: Vec<String> = value
                     .split_whitespace()
-                    .filter(|f| is_numeric_feature(f))
+                    .filter(|f| crate::classes::is_numeric_cpu_feature(f))
                     .map(str::to_string)
                     .collect();
                 features.sort();

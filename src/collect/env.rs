@@ -11,19 +11,13 @@ use std::collections::BTreeMap;
 use crate::manifest::EnvInfo;
 use crate::redact::{env_value, Recorded};
 
-/// True when a variable is recorded: it has a class in the one table of variables
-/// ([`crate::envvars`]).
-pub fn is_relevant(name: &str) -> bool {
-    crate::envvars::is_recorded(name)
-}
-
 /// Picks the relevant variables out of an environment snapshot. With `private`, values that
 /// contain absolute paths are replaced by a short digest so that two runs can still be compared
 /// without revealing folder or user names.
 pub fn collect(vars: &BTreeMap<String, String>, private: bool) -> EnvInfo {
     let mut info = EnvInfo::default();
     for (name, value) in vars {
-        if !is_relevant(name) {
+        if !crate::envvars::is_recorded(name) {
             continue;
         }
         let value = match env_value(name, value) {

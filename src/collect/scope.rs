@@ -213,6 +213,17 @@ impl Tree {
         tree
     }
 
+    /// Computes the blob id of every file the index does not give (changed files, or every
+    /// file outside git), once: the result key and the parser both use them.
+    fn fill_blobs(&mut self, root: &Path) {
+        for (path, blob) in self.files.iter_mut().filter(|(_, b)| b.is_none()) {
+            *blob = crate::limits::read_regular_file_nofollow(&root.join(path))
+                .ok()
+                .and_then(|bytes| git2::Oid::hash_object(git2::ObjectType::Blob, &bytes).ok())
+                .map(|id| id.to_string());
+        }
+    }
+
     fn has_file(&self, path: &str) -> bool {
         self.files.contains_key(path)
     }
@@ -424,7 +435,7 @@ const RESULT_PREFIX: &str = "scope-result-v1";
 /// What a scope depends on: the request, every Python file of the tree with its blob id, the
 /// stamped environments' distributions and the recorded lockfiles. Equal keys give equal
 /// scopes, so a warm stamp of an unchanged tree reads the last result instead of resolving.
-fn result_key(req: &Request, tree: &Tree, root: &Path, inputs: &Inputs<'_>) -> Option<String> {
+fn result_key(req: &Request, tree: &Tree, inputs: &Inputs<'_>) -> Option<String> {
     use sha2::{Digest, Sha256};
     let mut h = Sha256::new();
     let mut put = |s: &str| {
@@ -438,15 +449,8 @@ fn result_key(req: &Request, tree: &Tree, root: &Path, inputs: &Inputs<'_>) -> O
     }
     for (path, blob) in &tree.files {
         put(path);
-        match blob {
-            Some(b) => put(b),
-            None => {
-                let bytes = crate::limits::read_regular_file_nofollow(&root.join(path)).ok()?;
-                put(&git2::Oid::hash_object(git2::ObjectType::Blob, &bytes)
-                    .ok()?
-                    .to_string());
-            }
-        }
+        // A file whose id is unknown (it could not be read) makes the key unusable.
+        put(blob.as_deref()?);
     }
     tree.markers.iter().for_each(|m| put(m));
     for env in inputs.python {
@@ -481,13 +485,19 @@ impl Parser<'_> {
         }
         let bytes = crate::limits::read_regular_file_nofollow(&self.root.join(path))
             .map_err(|e| format!("{path}: cannot be read ({})", crate::limits::refusal(&e)))?;
-        let id = git2::Oid::hash_object(git2::ObjectType::Blob, &bytes)
-            .map_err(|e| format!("{path}: {e}"))?
-            .to_string();
-        if let Some(c) = self.cache.get(&id) {
-            self.used.insert(id.clone());
-            return Ok((id, c.clone()));
-        }
+        let id = match blob {
+            Some(id) => id.to_string(),
+            None => {
+                let id = git2::Oid::hash_object(git2::ObjectType::Blob, &bytes)
+                    .map_err(|e| format!("{path}: {e}"))?
+                    .to_string();
+                if let Some(c) = self.cache.get(&id) {
+                    self.used.insert(id.clone());
+                    return Ok((id, c.clone()));
+                }
+                id
+            }
+        };
         let text = String::from_utf8_lossy(&bytes);
         let parsed = if path.ends_with(".ipynb") {
             match imports::notebook_code(&text) {
@@ -522,13 +532,14 @@ fn load_cache(dir: Option<&Path>, root: &Path) -> BTreeMap<String, Cached> {
 /// Computes the scope. Never fails: what cannot be known is written in `notes` and makes the
 /// scope incomplete.
 pub fn collect(req: &Request, inputs: &Inputs<'_>) -> Scope {
-    let tree = inputs
+    let mut tree = inputs
         .index
         .and_then(|i| Tree::from_index(inputs.root, i, inputs.changed))
         .unwrap_or_else(|| Tree::walk(inputs.root));
-    let key = inputs
-        .cache_dir
-        .and_then(|_| result_key(req, &tree, inputs.root, inputs));
+    let key = inputs.cache_dir.and_then(|_| {
+        tree.fill_blobs(inputs.root);
+        result_key(req, &tree, inputs)
+    });
     let result_file = inputs
         .cache_dir
         .map(|d| crate::cache::per_repository_file(d, RESULT_PREFIX, inputs.root));

@@ -70,17 +70,14 @@ fn reach(edges: &Edges, from: &str) -> BTreeSet<String> {
     seen
 }
 
-/// The package name of a lockfile row's subject (`path: name` or `path: name 1.0 features`).
-fn lockfile_subject_name(c: &Change) -> String {
-    c.package.clone().unwrap_or_else(|| c.subject.clone())
-}
-
 /// Folds `changes` (see the module documentation). The order is not kept: sort afterwards
 /// with [`super::sort_changes`].
 pub fn group(mut changes: Vec<Change>, edges: &Edges) -> Vec<Change> {
     // 1. The same change in several lockfiles.
-    let mut first: BTreeMap<(String, String, Option<String>, Option<String>), usize> =
-        BTreeMap::new();
+    // Keyed by what follows the lockfile's path in the subject (`name`, or `name 1.0
+    // features`), the rule and the values.
+    type Key<'c> = (&'c str, &'c str, Option<&'c str>, Option<&'c str>);
+    let mut first: BTreeMap<Key<'_>, usize> = BTreeMap::new();
     let mut merged_into: Vec<Option<usize>> = vec![None; changes.len()];
     for i in 0..changes.len() {
         let c = &changes[i];
@@ -88,12 +85,10 @@ pub fn group(mut changes: Vec<Change>, edges: &Edges) -> Vec<Change> {
             continue;
         }
         let key = (
-            format!("{}\u{0}{}", lockfile_subject_name(c), c.rule),
-            c.subject
-                .split_once(": ")
-                .map_or(String::new(), |(_, rest)| rest.to_string()),
-            c.old.clone(),
-            c.new.clone(),
+            c.subject.split_once(": ").map_or("", |(_, rest)| rest),
+            c.rule.as_str(),
+            c.old.as_deref(),
+            c.new.as_deref(),
         );
         match first.get(&key) {
             Some(&j) => merged_into[i] = Some(j),

@@ -37,7 +37,7 @@ pub(super) fn compare_cpu(old: &Content, new: &Content, out: &mut Vec<Change>) {
     fn numeric(c: &crate::manifest::CpuInfo) -> BTreeSet<&String> {
         c.features
             .iter()
-            .filter(|f| crate::collect::cpu::is_numeric_feature(f))
+            .filter(|f| crate::classes::is_numeric_cpu_feature(f))
             .collect()
     }
     let (of, nf) = (numeric(o), numeric(n));

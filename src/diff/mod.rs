@@ -539,7 +539,7 @@ pub fn compare_with(
         notes.extend(s.notes.iter().cloned());
     }
     let expired_acceptances = apply_acceptances(policy, &mut changes, &mut notes);
-    let mut changes = group::group(changes, &group::edges(&old.content, &new.content));
+    let mut changes = group::group(changes, &ctx.edges);
     sort_changes(&mut changes);
     let verdict = changes
         .iter()
