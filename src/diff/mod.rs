@@ -480,7 +480,7 @@ impl<'a> Context<'a> {
         {
             class = rules::Classified {
                 class: crate::classes::PackageClass::OutOfScope,
-                how: "not imported by the training code, directly or through a dependency".into(),
+                how: "outside the training job's scope".into(),
             };
         }
         let (rule, lead) = rules::package_rule(name, &class, change);
