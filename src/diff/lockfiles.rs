@@ -140,12 +140,19 @@ fn highest<'a>(ecosystem: &str, vs: &BTreeSet<&'a String>) -> Option<&'a String>
     })
 }
 
-fn group_by_name(ps: &[Package]) -> BTreeMap<String, Vec<&Package>> {
-    let mut m: BTreeMap<String, Vec<&Package>> = BTreeMap::new();
-    for p in ps {
-        m.entry(p.name.clone()).or_default().push(p);
+/// The packages by name, in name order (a lockfile may hold several versions of one name).
+/// Collectors write packages sorted, so the sort only checks the order.
+fn group_by_name(ps: &[Package]) -> Vec<(&str, Vec<&Package>)> {
+    let mut refs: Vec<&Package> = ps.iter().collect();
+    refs.sort_by(|a, b| a.name.cmp(&b.name));
+    let mut out: Vec<(&str, Vec<&Package>)> = Vec::new();
+    for p in refs {
+        match out.last_mut() {
+            Some((name, group)) if *name == p.name => group.push(p),
+            _ => out.push((p.name.as_str(), vec![p])),
+        }
     }
-    m
+    out
 }
 
 fn compare_packages(
@@ -158,9 +165,17 @@ fn compare_packages(
 ) {
     let (og, ng) = (group_by_name(old), group_by_name(new));
     let empty = Vec::new();
-    for (name, a, b) in outer_join(&og, &ng) {
-        let subject = format!("{path}: {name}");
+    let (og, ng) = (
+        og.iter().map(|(n, ps)| (*n, ps)),
+        ng.iter().map(|(n, ps)| (*n, ps)),
+    );
+    for (name, a, b) in outer_join(og, ng) {
         let (a, b) = (a.unwrap_or(&empty), b.unwrap_or(&empty));
+        // Most packages of a bumped lockfile did not change: nothing to build for them.
+        if a.len() == b.len() && a.iter().zip(b).all(|(x, y)| x == y) {
+            continue;
+        }
+        let subject = format!("{path}: {name}");
         let dev = a.iter().chain(b.iter()).all(|p| p.dev);
         // The installed copy first, else the wheels the lockfile lists (PEP 427 tags).
         let compiled = ctx.compiled(name).or_else(|| {

@@ -29,13 +29,14 @@ pub use scope::ScopeView;
 
 pub use crate::classes::{Impact, Section};
 
-/// Every key of two maps in order, with the value each side has: the outer join every section
-/// comparison walks (a merge of the two sorted key sequences, nothing collected).
-pub fn outer_join<'a, K: Ord, A, B>(
-    old: &'a BTreeMap<K, A>,
-    new: &'a BTreeMap<K, B>,
-) -> impl Iterator<Item = (&'a K, Option<&'a A>, Option<&'a B>)> {
-    let (mut a, mut b) = (old.iter().peekable(), new.iter().peekable());
+/// Every key of two key-sorted sequences (maps, or vectors sorted by key with each key once)
+/// in order, with the value each side has: the outer join every section comparison walks (a
+/// merge of the two sequences, nothing collected).
+pub fn outer_join<K: Ord, A, B>(
+    old: impl IntoIterator<Item = (K, A)>,
+    new: impl IntoIterator<Item = (K, B)>,
+) -> impl Iterator<Item = (K, Option<A>, Option<B>)> {
+    let (mut a, mut b) = (old.into_iter().peekable(), new.into_iter().peekable());
     std::iter::from_fn(move || {
         use std::cmp::Ordering::*;
         match (a.peek(), b.peek()) {
@@ -502,39 +503,47 @@ pub fn compare_with(
     files: Option<&[FileStat]>,
     policy: &Policy,
 ) -> Report {
-    let mut notes = Vec::new();
-    // Checking a fingerprint serializes and hashes the whole content: both at once.
-    let (old_side, new_side) = rayon::join(|| Side::of(old_path, old), || Side::of(new_path, new));
-    for side in [&old_side, &new_side] {
-        if side.modified {
-            notes.push(format!(
+    // Checking a fingerprint serializes and hashes the whole content: both are checked while
+    // the sections are compared.
+    let ((old_side, new_side), (ctx, mut changes, code_change, compare_notes)) = rayon::join(
+        || rayon::join(|| Side::of(old_path, old), || Side::of(new_path, new)),
+        || {
+            let ctx = Context::new(&old.content, &new.content, policy);
+            let (mut changes, mut notes) = (Vec::new(), Vec::new());
+            let code_change = git::compare_git(
+                &old.content,
+                &new.content,
+                files,
+                &ctx,
+                &mut changes,
+                &mut notes,
+            );
+            lockfiles::compare_lockfiles(
+                &old.content.lockfiles,
+                &new.content.lockfiles,
+                &ctx,
+                &mut changes,
+            );
+            data::compare_data(&old.content, &new.content, &mut changes);
+            env::compare_env(&old.content, &new.content, &ctx, &mut changes);
+            host::compare_cpu(&old.content, &new.content, &mut changes);
+            host::compare_system(&old.content, &new.content, &mut changes);
+            host::compare_run(old, new, &mut changes);
+            stack::compare(&old.content, &new.content, &ctx, &mut changes);
+            (ctx, changes, code_change, notes)
+        },
+    );
+    let mut notes: Vec<String> = [&old_side, &new_side]
+        .into_iter()
+        .filter(|side| side.modified)
+        .map(|side| {
+            format!(
                 "`{}` was modified after stamping: its stored fingerprint does not match its content",
                 side.path
-            ));
-        }
-    }
-    let ctx = Context::new(&old.content, &new.content, policy);
-    let mut changes = Vec::new();
-    let code_change = git::compare_git(
-        &old.content,
-        &new.content,
-        files,
-        &ctx,
-        &mut changes,
-        &mut notes,
-    );
-    lockfiles::compare_lockfiles(
-        &old.content.lockfiles,
-        &new.content.lockfiles,
-        &ctx,
-        &mut changes,
-    );
-    data::compare_data(&old.content, &new.content, &mut changes);
-    env::compare_env(&old.content, &new.content, &ctx, &mut changes);
-    host::compare_cpu(&old.content, &new.content, &mut changes);
-    host::compare_system(&old.content, &new.content, &mut changes);
-    host::compare_run(old, new, &mut changes);
-    stack::compare(&old.content, &new.content, &ctx, &mut changes);
+            )
+        })
+        .collect();
+    notes.extend(compare_notes);
     if let Some(s) = &ctx.scope {
         notes.extend(s.notes.iter().cloned());
     }
@@ -879,5 +888,36 @@ mod tests {
             "{}",
             c.reason
         );
+    }
+
+    /// Package order in a lockfile carries no meaning (common practice: package managers sort
+    /// their lockfiles, but a hand-made manifest need not): the same packages in another order,
+    /// one name twice, compare equal; a version added to a name shows.
+    #[test]
+    fn package_order_does_not_matter_and_repeated_names_are_compared_as_a_set() {
+        let p = |name: &str, v: &str| Package {
+            name: name.into(),
+            version: v.into(),
+            ..Package::default()
+        };
+        let forward = vec![
+            p("kelp-a", "1.0.0"),
+            p("kelp-b", "2.0.0"),
+            p("kelp-b", "3.0.0"),
+        ];
+        let backward: Vec<Package> = forward.iter().rev().cloned().collect();
+        let r = compare(
+            "a",
+            &uv_lock("1", forward.clone()),
+            "b",
+            &uv_lock("2", backward),
+            None,
+        );
+        assert!(r.changes.is_empty(), "{:?}", r.changes);
+        let mut more = forward.clone();
+        more.insert(0, p("kelp-b", "3.1.0"));
+        let r = compare("a", &uv_lock("1", forward), "b", &uv_lock("2", more), None);
+        assert_eq!(r.changes.len(), 1, "{:?}", r.changes);
+        assert_eq!(r.changes[0].new.as_deref(), Some("3.1.0, 2.0.0, 3.0.0"));
     }
 }

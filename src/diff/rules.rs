@@ -895,31 +895,49 @@ pub struct Classified {
     pub how: String,
 }
 
+/// A name table as a set: a comparison looks up every changed package in three tables.
+struct NameSet(std::sync::LazyLock<std::collections::HashSet<&'static str>>);
+
+macro_rules! name_set {
+    ($table:expr) => {
+        NameSet(std::sync::LazyLock::new(|| {
+            $table.iter().copied().collect()
+        }))
+    };
+}
+
+impl NameSet {
+    fn contains(&self, name: &str) -> bool {
+        self.0.contains(name)
+    }
+}
+
+static NUMERIC_SET: NameSet = name_set!(NUMERIC_PACKAGES);
+static INFRASTRUCTURE_SET: NameSet = name_set!(INFRASTRUCTURE_PACKAGES);
+static TOOLING_SET: NameSet = name_set!(TOOLING_PACKAGES);
+
 /// True when the package does numerical work by the built-in tables.
 pub fn is_numeric_package(name: &str) -> bool {
     let n = name.to_ascii_lowercase();
     // A container image (`nvidia/cuda`, `pytorch/pytorch`) by its last path segment.
     let image = n.contains('/') && !n.starts_with('@') && {
         let last = n.rsplit('/').next().unwrap_or("");
-        NUMERIC_PACKAGES.contains(&last) || last.contains("cuda") || last.contains("rocm")
+        NUMERIC_SET.contains(last) || last.contains("cuda") || last.contains("rocm")
     };
     !is_infrastructure_package(&n)
-        && (image
-            || NUMERIC_PACKAGES.contains(&n.as_str())
-            || NUMERIC_PREFIXES.iter().any(|p| n.starts_with(p)))
+        && (image || NUMERIC_SET.contains(&n) || NUMERIC_PREFIXES.iter().any(|p| n.starts_with(p)))
 }
 
 /// True when the package is infrastructure by the built-in tables.
 pub fn is_infrastructure_package(name: &str) -> bool {
     let n = name.to_ascii_lowercase();
-    INFRASTRUCTURE_PACKAGES.contains(&n.as_str())
-        || INFRASTRUCTURE_PREFIXES.iter().any(|p| n.starts_with(p))
+    INFRASTRUCTURE_SET.contains(&n) || INFRASTRUCTURE_PREFIXES.iter().any(|p| n.starts_with(p))
 }
 
 /// True when the package is development tooling by the built-in tables.
 pub fn is_tooling_package(name: &str) -> bool {
     let n = name.to_ascii_lowercase();
-    TOOLING_PACKAGES.contains(&n.as_str()) || TOOLING_PREFIXES.iter().any(|p| n.starts_with(p))
+    TOOLING_SET.contains(&n) || TOOLING_PREFIXES.iter().any(|p| n.starts_with(p))
 }
 
 /// A local version label that marks a compiled build for a device or a framework ABI
