@@ -738,8 +738,27 @@ impl Content {
     /// `sha256:` + the hex SHA-256 of this content's canonical JSON: struct fields in declaration
     /// order, maps sorted by key, lists sorted by the collectors, no whitespace.
     pub fn fingerprint(&self) -> String {
-        let canonical = serde_json::to_vec(self).expect("manifest content always serializes");
-        format!("sha256:{}", hex(&Sha256::digest(&canonical)))
+        // Streamed into the hash through a small buffer: a large manifest's canonical JSON
+        // (megabytes) is never held whole.
+        let mut w = std::io::BufWriter::with_capacity(64 * 1024, HashWriter(Sha256::new()));
+        serde_json::to_writer(&mut w, self).expect("manifest content always serializes");
+        let h = w
+            .into_inner()
+            .unwrap_or_else(|_| unreachable!("writing to a hash cannot fail"));
+        format!("sha256:{}", hex(&h.0.finalize()))
+    }
+}
+
+/// An `io::Write` that feeds a SHA-256 hash.
+struct HashWriter(Sha256);
+
+impl std::io::Write for HashWriter {
+    fn write(&mut self, buf: &[u8]) -> std::io::Result<usize> {
+        self.0.update(buf);
+        Ok(buf.len())
+    }
+    fn flush(&mut self) -> std::io::Result<()> {
+        Ok(())
     }
 }
 
@@ -766,28 +785,45 @@ impl Prepared {
     /// none (it is collected after the rest was serialized). `false` when it cannot be
     /// spliced; the manifest is then rendered in full.
     pub fn append_scope(&mut self, scope: &Scope) -> bool {
-        #[derive(Serialize)]
-        struct Last<'a> {
-            scope: &'a Scope,
-        }
-        let (Ok(json), Ok(toml)) = (
-            serde_json::to_vec(scope),
-            toml::to_string_pretty(&Last { scope }),
-        ) else {
-            return false;
-        };
+        RenderedScope::of(scope).is_some_and(|r| self.append_rendered_scope(&r))
+    }
+
+    /// As [`Prepared::append_scope`], with the scope already rendered.
+    pub fn append_rendered_scope(&mut self, rendered: &RenderedScope) -> bool {
         if self.json_tail.pop() != Some(b'}') {
             return false;
         }
         self.json_tail.extend_from_slice(b",\"scope\":");
-        self.json_tail.extend_from_slice(&json);
+        self.json_tail.extend_from_slice(&rendered.json);
         self.json_tail.push(b'}');
         if !self.toml_tail.ends_with('\n') {
             self.toml_tail.push('\n');
         }
         self.toml_tail.push('\n');
-        self.toml_tail.push_str(&toml);
+        self.toml_tail.push_str(&rendered.toml);
         true
+    }
+}
+
+/// A scope's canonical JSON and its TOML table, as the last section of a manifest: a warm
+/// stamp renders the remembered scope while git's status runs.
+#[derive(Debug, Clone)]
+pub struct RenderedScope {
+    json: Vec<u8>,
+    toml: String,
+}
+
+impl RenderedScope {
+    /// Renders `scope`; `None` if it cannot be serialized.
+    pub fn of(scope: &Scope) -> Option<RenderedScope> {
+        #[derive(Serialize)]
+        struct Last<'a> {
+            scope: &'a Scope,
+        }
+        Some(RenderedScope {
+            json: serde_json::to_vec(scope).ok()?,
+            toml: toml::to_string_pretty(&Last { scope }).ok()?,
+        })
     }
 }
 

@@ -292,3 +292,80 @@ fn a_scope_from_the_policy_and_one_from_entry_points_agree() {
     assert_eq!(out.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&out.stderr).contains("entry point `nope.py` was not found"));
 }
+
+/// A warm stamp reuses the last scope only while the tree it was computed from is unchanged:
+/// each step below (an uncommitted edit, the same edit staged, a new untracked module, the
+/// edit reverted) gives the closure a cold stamp computes, and the blob ids `git hash-object`
+/// gives for the files as they are on disk.
+#[test]
+fn a_remembered_scope_follows_edits_staging_and_reverts() {
+    let repo = repo_with(&[
+        ("train.py", "from kelp import model\n"),
+        ("kelp/__init__.py", ""),
+        ("kelp/model.py", "import math\n"),
+        ("kelp/extra.py", "X = 1\n"),
+    ]);
+    let cache = tempfile::tempdir().unwrap();
+    let cache_arg = cache.path().to_str().unwrap();
+    let files = |warm: bool| -> serde_json::Map<String, serde_json::Value> {
+        let cold = tempfile::tempdir().unwrap();
+        let dir = if warm {
+            cache_arg
+        } else {
+            cold.path().to_str().unwrap()
+        };
+        let m = stamp_json(repo.path(), &["--entry", "train.py", "--cache", dir]);
+        m["scope"]["files"].as_object().unwrap().clone()
+    };
+    let check = |expected: &[&str]| {
+        // Twice warm (the second one takes the remembered result), once cold.
+        let (first, second, cold) = (files(true), files(true), files(false));
+        assert_eq!(first, cold);
+        assert_eq!(second, cold);
+        let names: Vec<&String> = cold.keys().collect();
+        assert_eq!(names, expected);
+        for (path, blob) in &cold {
+            let on_disk = git(repo.path(), &["hash-object", path]);
+            assert_eq!(blob.as_str(), Some(on_disk.trim()), "{path}");
+        }
+    };
+    check(&["kelp/__init__.py", "kelp/model.py", "train.py"]);
+    // Uncommitted: the model now imports another module.
+    write_files(
+        repo.path(),
+        &[("kelp/model.py", "import math\nfrom . import extra\n")],
+    );
+    check(&[
+        "kelp/__init__.py",
+        "kelp/extra.py",
+        "kelp/model.py",
+        "train.py",
+    ]);
+    // The same edit staged: the index changes, the tree does not.
+    git(repo.path(), &["add", "kelp/model.py"]);
+    check(&[
+        "kelp/__init__.py",
+        "kelp/extra.py",
+        "kelp/model.py",
+        "train.py",
+    ]);
+    // A new untracked module imported by the entry point.
+    write_files(
+        repo.path(),
+        &[
+            ("kelp/new.py", "Y = 2\n"),
+            ("train.py", "from kelp import model, new\n"),
+        ],
+    );
+    check(&[
+        "kelp/__init__.py",
+        "kelp/extra.py",
+        "kelp/model.py",
+        "kelp/new.py",
+        "train.py",
+    ]);
+    // Everything reverted.
+    git(repo.path(), &["reset", "-q", "--hard"]);
+    std::fs::remove_file(repo.path().join("kelp/new.py")).unwrap();
+    check(&["kelp/__init__.py", "kelp/model.py", "train.py"]);
+}

@@ -471,6 +471,13 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
                 timed(t, "prepare", || content.prepare(&texts))
             })
             .flatten();
+        // A warm stamp's scope: the index digest and the last result, read while git runs.
+        let ahead = opts.scope.as_ref().and_then(|_| {
+            let (root, index) = work_tree.as_ref()?;
+            timed(t, "scope read ahead", || {
+                scope::Ahead::read(root, Some(index), opts.data.cache_dir.as_deref())
+            })
+        });
         let git = git.wait();
         if t {
             eprintln!(
@@ -483,10 +490,10 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
             content,
             early,
             prepared,
-            (cpu_warning, data_warnings, stack_warnings),
+            (cpu_warning, data_warnings, stack_warnings, ahead),
         )
     });
-    let (cpu_warning, data_warnings, stack_warnings) = early_warnings;
+    let (cpu_warning, data_warnings, stack_warnings, ahead) = early_warnings;
     let (root, untracked) = match &git_result {
         Ok(facts) => (
             facts.workdir.clone().unwrap_or_else(|| opts.repo.clone()),
@@ -543,7 +550,7 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
             .as_ref()
             .filter(|_| content.git.present)
             .map(|(_, index)| index.as_path());
-        content.scope = Some(timed(t, "scope", || {
+        let collected = timed(t, "scope", || {
             scope::collect(
                 request,
                 &scope::Inputs {
@@ -554,8 +561,10 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
                     lockfiles: &content.lockfiles,
                     cache_dir: opts.data.cache_dir.as_deref(),
                 },
+                ahead,
             )
-        }));
+        });
+        content.scope = Some(collected.scope);
         if let Some(sc) = &content.scope {
             warnings.extend(
                 sc.notes
@@ -566,7 +575,11 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
         }
         // The scope comes after the ahead-of-time serialization: it is added to it.
         if let (Some(p), Some(sc)) = (prepared.as_mut(), content.scope.as_ref()) {
-            if !p.append_scope(sc) {
+            let appended = match &collected.rendered {
+                Some(r) => p.append_rendered_scope(r),
+                None => p.append_scope(sc),
+            };
+            if !appended {
                 prepared = None;
             }
         }

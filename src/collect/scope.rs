@@ -430,29 +430,16 @@ impl Cached {
 
 const CACHE_PREFIX: &str = "scope-imports-v1";
 /// The last scope computed for a repository, with the key it was computed for.
-const RESULT_PREFIX: &str = "scope-result-v1";
+const RESULT_PREFIX: &str = "scope-result-v2";
 
-/// What a scope depends on: the request, every Python file of the tree with its blob id, the
-/// stamped environments' distributions and the recorded lockfiles. Equal keys give equal
-/// scopes, so a warm stamp of an unchanged tree reads the last result instead of resolving.
-fn result_key(req: &Request, tree: &Tree, inputs: &Inputs<'_>) -> Option<String> {
-    use sha2::{Digest, Sha256};
-    let mut h = Sha256::new();
-    let mut put = |s: &str| {
-        h.update(s.as_bytes());
-        h.update([0]);
-    };
+/// What a scope depends on besides the tree: the request, the stamped environments'
+/// distributions and the recorded lockfiles.
+fn put_inputs(put: &mut dyn FnMut(&str), req: &Request, inputs: &Inputs<'_>) {
     put(RESULT_PREFIX);
     for list in [&req.entry, &req.lockfiles, &req.reads] {
         put(&list.len().to_string());
         list.iter().for_each(|x| put(x));
     }
-    for (path, blob) in &tree.files {
-        put(path);
-        // A file whose id is unknown (it could not be read) makes the key unusable.
-        put(blob.as_deref()?);
-    }
-    tree.markers.iter().for_each(|m| put(m));
     for env in inputs.python {
         env.site_packages.iter().for_each(|s| put(s));
         for d in &env.distributions {
@@ -465,13 +452,124 @@ fn result_key(req: &Request, tree: &Tree, inputs: &Inputs<'_>) -> Option<String>
         put(&l.path);
         put(&l.sha256);
     }
-    Some(crate::manifest::hex(&h.finalize()))
+}
+
+/// Hex SHA-256 of the strings `fill` puts, each ended by a NUL byte.
+fn key_of(fill: impl FnOnce(&mut dyn FnMut(&str))) -> String {
+    use sha2::{Digest, Sha256};
+    let mut h = Sha256::new();
+    fill(&mut |s: &str| {
+        h.update(s.as_bytes());
+        h.update([0]);
+    });
+    crate::manifest::hex(&h.finalize())
+}
+
+/// What a scope depends on: the request, every Python file of the tree with its blob id, the
+/// stamped environments' distributions and the recorded lockfiles. Equal keys give equal
+/// scopes, so a warm stamp of an unchanged tree reads the last result instead of resolving.
+fn result_key(req: &Request, tree: &Tree, inputs: &Inputs<'_>) -> Option<String> {
+    // A file whose id is unknown (it could not be read) makes the key unusable.
+    if tree.files.values().any(Option::is_none) {
+        return None;
+    }
+    Some(key_of(|put| {
+        put_inputs(put, req, inputs);
+        for (path, blob) in &tree.files {
+            put(path);
+            put(blob.as_deref().unwrap_or_default());
+        }
+        tree.markers.iter().for_each(|m| put(m));
+    }))
+}
+
+/// The same scope's key without building the tree: the git index's digest (equal bytes list
+/// the same files with the same blob ids) and the changed Python files and markers with
+/// their blob ids as on disk. A different index with the same Python files still finds the
+/// result by [`result_key`], after building the tree.
+fn quick_key(req: &Request, inputs: &Inputs<'_>, index_digest: &str) -> Option<String> {
+    let mut changed: Vec<(&str, Option<String>)> = Vec::new();
+    for path in inputs.changed {
+        if is_python(path) {
+            let on_disk = inputs.root.join(path);
+            let blob = if on_disk.is_file() {
+                let bytes = crate::limits::read_regular_file_nofollow(&on_disk).ok()?;
+                Some(
+                    git2::Oid::hash_object(git2::ObjectType::Blob, &bytes)
+                        .ok()?
+                        .to_string(),
+                )
+            } else {
+                None
+            };
+            changed.push((path, blob));
+        } else if PROJECT_MARKERS.contains(&file_name(path)) {
+            changed.push((path, inputs.root.join(path).is_file().then(String::new)));
+        }
+    }
+    changed.sort();
+    Some(key_of(|put| {
+        put_inputs(put, req, inputs);
+        put(index_digest);
+        for (path, blob) in &changed {
+            put(path);
+            put(blob.as_deref().unwrap_or("absent"));
+        }
+    }))
 }
 
 #[derive(serde::Serialize, serde::Deserialize)]
 struct Remembered {
     key: String,
+    /// [`quick_key`], when the tree came from a git index.
+    #[serde(default)]
+    quick: Option<String>,
     scope: Scope,
+}
+
+/// What a warm stamp reads for the scope while git's status is still running: the digest of
+/// the git index and the last result with its manifest sections already rendered.
+pub struct Ahead {
+    root: std::path::PathBuf,
+    index_digest: Option<String>,
+    remembered: Option<Remembered>,
+    rendered: Option<crate::manifest::RenderedScope>,
+}
+
+impl Ahead {
+    /// Reads ahead for the work tree `root` with the git index `index`; `None` without a
+    /// cache folder (nothing is remembered then).
+    pub fn read(root: &Path, index: Option<&Path>, cache_dir: Option<&Path>) -> Option<Ahead> {
+        use sha2::{Digest, Sha256};
+        let dir = cache_dir?;
+        let index_digest = index
+            .and_then(|i| crate::limits::read_regular_file_nofollow(i).ok())
+            .map(|bytes| crate::manifest::hex(&Sha256::digest(&bytes)));
+        let remembered = crate::cache::read_cache_file(&crate::cache::per_repository_file(
+            dir,
+            RESULT_PREFIX,
+            root,
+        ))
+        .ok()
+        .and_then(|b| serde_json::from_slice::<Remembered>(&b).ok());
+        let rendered = remembered
+            .as_ref()
+            .and_then(|r| crate::manifest::RenderedScope::of(&r.scope));
+        Some(Ahead {
+            root: root.to_path_buf(),
+            index_digest,
+            remembered,
+            rendered,
+        })
+    }
+}
+
+/// A computed scope, with its manifest sections when they were rendered ahead of time.
+pub struct Collected {
+    /// The scope.
+    pub scope: Scope,
+    /// Its sections as [`crate::manifest::Prepared::append_rendered_scope`] takes them.
+    pub rendered: Option<crate::manifest::RenderedScope>,
 }
 
 impl Parser<'_> {
@@ -530,8 +628,35 @@ fn load_cache(dir: Option<&Path>, root: &Path) -> BTreeMap<String, Cached> {
 }
 
 /// Computes the scope. Never fails: what cannot be known is written in `notes` and makes the
-/// scope incomplete.
-pub fn collect(req: &Request, inputs: &Inputs<'_>) -> Scope {
+/// scope incomplete. `ahead` is what [`Ahead::read`] found for the same work tree.
+pub fn collect(req: &Request, inputs: &Inputs<'_>, ahead: Option<Ahead>) -> Collected {
+    let ahead = ahead.filter(|a| a.root == inputs.root);
+    let quick = ahead.as_ref().and_then(|a| {
+        inputs.index?;
+        quick_key(req, inputs, a.index_digest.as_deref()?)
+    });
+    let (remembered, rendered) = match ahead {
+        Some(a) => (a.remembered, a.rendered),
+        None => {
+            let remembered = inputs.cache_dir.and_then(|d| {
+                crate::cache::read_cache_file(&crate::cache::per_repository_file(
+                    d,
+                    RESULT_PREFIX,
+                    inputs.root,
+                ))
+                .ok()
+                .and_then(|b| serde_json::from_slice::<Remembered>(&b).ok())
+            });
+            (remembered, None)
+        }
+    };
+    // An unchanged index and unchanged changed files: the last result, nothing built.
+    if let (Some(r), Some(q)) = (&remembered, &quick) {
+        if r.quick.as_ref() == Some(q) {
+            let scope = remembered.map(|r| r.scope).unwrap_or_default();
+            return Collected { scope, rendered };
+        }
+    }
     let mut tree = inputs
         .index
         .and_then(|i| Tree::from_index(inputs.root, i, inputs.changed))
@@ -543,25 +668,21 @@ pub fn collect(req: &Request, inputs: &Inputs<'_>) -> Scope {
     let result_file = inputs
         .cache_dir
         .map(|d| crate::cache::per_repository_file(d, RESULT_PREFIX, inputs.root));
-    if let (Some(file), Some(key)) = (&result_file, &key) {
-        let remembered = crate::cache::read_cache_file(file)
-            .ok()
-            .and_then(|b| serde_json::from_slice::<Remembered>(&b).ok());
-        if let Some(r) = remembered.filter(|r| &r.key == key) {
-            return r.scope;
-        }
-    }
-    let scope = compute(req, inputs, &tree);
+    let (scope, rendered) = match remembered {
+        Some(r) if key.as_ref() == Some(&r.key) => (r.scope, rendered),
+        _ => (compute(req, inputs, &tree), None),
+    };
     if let (Some(file), Some(key)) = (&result_file, key) {
-        let remembered = Remembered {
-            key,
-            scope: scope.clone(),
-        };
+        let remembered = Remembered { key, quick, scope };
         if let Ok(bytes) = serde_json::to_vec(&remembered) {
             crate::cache::write_cache_file(file, &bytes);
         }
+        return Collected {
+            scope: remembered.scope,
+            rendered,
+        };
     }
-    scope
+    Collected { scope, rendered }
 }
 
 /// Computes the scope of a tree (see [`collect`]).
