@@ -47,4 +47,5 @@ pub mod redact;
 pub mod report;
 pub mod stack;
 pub mod stdlib;
+pub mod toml_events;
 pub mod version;

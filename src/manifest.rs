@@ -1123,6 +1123,9 @@ impl Manifest {
                 line: Some(e.line()),
                 message: e.to_string(),
             })?
+        } else if let Some(m) = crate::toml_events::from_str::<Manifest>(text) {
+            // A manifest as runprint writes it, read without building the document first.
+            m
         } else {
             toml::from_str(text).map_err(|e| {
                 let line = e
@@ -1190,17 +1193,7 @@ mod tests {
     /// quotes, submodules, a section missing).
     #[test]
     fn prepared_parts_give_the_same_manifest_as_a_full_rendering() {
-        let root = Path::new(env!("CARGO_MANIFEST_DIR"));
-        let mut bases = vec![sample()];
-        for rel in [
-            "fixtures/demo/baseline.toml",
-            "fixtures/demo/candidate.toml",
-            "tests/corpus/manifest/good/seed",
-            "tests/corpus/manifest/good/crlf",
-            "tests/corpus/manifest/good/bom",
-        ] {
-            bases.push(Manifest::load(&root.join(rel)).unwrap());
-        }
+        let mut bases = written_samples();
         // Several lockfiles, one without packages, one whose path needs quoting.
         let mut many = bases[1].clone();
         let first = many.content.lockfiles[0].clone();
@@ -1284,6 +1277,52 @@ mod tests {
             }
         }
         assert_eq!(checked, bases.len() * 2 * 3);
+    }
+
+    /// Manifests as runprint writes them are read by the event reader (the fast path is
+    /// taken), and it gives what the `toml` crate gives: the demo manifests, the corpus seeds
+    /// and a sample with every section, a scope and keys that need quoting and escapes.
+    #[test]
+    fn written_manifests_take_the_event_reader_and_read_as_toml_reads_them() {
+        let mut all = written_samples();
+        let mut scoped = sample();
+        scoped.content.scope = Some(Scope {
+            entry: vec!["train.py".into()],
+            complete: true,
+            files: [
+                ("kelp/\"odd\" name.py".to_string(), "ab".to_string()),
+                ("train.py".to_string(), "cd".to_string()),
+            ]
+            .into_iter()
+            .collect(),
+            notes: vec!["tab\there, unicode é, newline\n".into()],
+            ..Scope::default()
+        });
+        all.push(scoped);
+        for m in all {
+            let text = m.render(ManifestFormat::Toml);
+            let fast: Manifest = crate::toml_events::from_str(&text)
+                .unwrap_or_else(|| panic!("the event reader gave up on\n{text}"));
+            let full: Manifest = toml::from_str(&text).unwrap();
+            assert_eq!(fast, full);
+            assert_eq!(fast, m);
+        }
+    }
+
+    /// [`sample`], the demo manifests and the corpus seeds.
+    fn written_samples() -> Vec<Manifest> {
+        let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+        let mut all = vec![sample()];
+        for rel in [
+            "fixtures/demo/baseline.toml",
+            "fixtures/demo/candidate.toml",
+            "tests/corpus/manifest/good/seed",
+            "tests/corpus/manifest/good/crlf",
+            "tests/corpus/manifest/good/bom",
+        ] {
+            all.push(Manifest::load(&root.join(rel)).unwrap());
+        }
+        all
     }
 
     fn sample() -> Manifest {

@@ -57,6 +57,24 @@ pub fn manifest(data: &[u8]) {
     let Ok(text) = std::str::from_utf8(data) else {
         return;
     };
+    // The event reader (the fast path for large manifests) answers as the `toml` crate
+    // does, or not at all: as a generic document and as a manifest.
+    if let Some(fast) = runprint::toml_events::from_str::<toml::Value>(text) {
+        let full: Result<toml::Value, _> = toml::from_str(text);
+        assert_eq!(
+            Some(&fast),
+            full.as_ref().ok(),
+            "the readers differ on:\n{text}"
+        );
+    }
+    if let Some(fast) = runprint::toml_events::from_str::<Manifest>(text) {
+        let full: Result<Manifest, _> = toml::from_str(text);
+        assert_eq!(
+            Some(&fast),
+            full.as_ref().ok(),
+            "the readers differ on:\n{text}"
+        );
+    }
     let path = Path::new("fuzz/m.toml");
     match Manifest::parse(text, path) {
         Ok(m) => {

@@ -1,0 +1,827 @@
+//! A TOML reader that deserializes straight from the parser's events, for large manifests.
+//!
+//! `toml::from_str` first builds the whole document as a tree of tables (every key with its
+//! span, every table a map) and then deserializes from the tree; for a manifest of 10,000
+//! packages that tree is most of the time and memory of reading it. This reader uses the same
+//! lexer, parser and string decoders (`toml_parser`, the `toml` crate's own), keeps the
+//! parser's events in a flat list, and hands keys and values to serde as it walks the list.
+//!
+//! It reads documents whose tables come in nesting order: every sub-table follows its parent
+//! table (or array-of-tables element) before any other table, as `toml`'s writer emits them.
+//! It gives up (returns `None`) on anything else: a dotted key, a table defined again or after
+//! one of its sub-tables, a date-time value, a duplicate key, a syntax error, a value of the
+//! wrong type. The caller then reads the text with `toml::from_str`, which handles all of TOML
+//! (v1.0.0, <https://toml.io/en/v1.0.0>) and names the line of an error; a test checks that
+//! both readers give the same value wherever this one answers.
+
+use std::borrow::Cow;
+use std::collections::HashSet;
+use std::fmt;
+
+use serde::de::{self, DeserializeSeed, IntoDeserializer, Visitor};
+use toml_parser::decoder::{Encoding, ScalarKind};
+use toml_parser::parser::{EventReceiver, RecursionGuard, ValidateWhitespace};
+use toml_parser::{ErrorSink, ParseError, Source, Span};
+
+/// Nesting the reader follows before giving up (the `toml` crate's own limit).
+const MAX_DEPTH: u32 = 80;
+
+/// Deserializes `text`, or `None` when this reader does not take it (see the module docs).
+pub fn from_str<'a, T: de::Deserialize<'a>>(text: &'a str) -> Option<T> {
+    let source = Source::new(text);
+    let tokens = source.lex().into_vec();
+    let mut failed = Failed(false);
+    let mut collect = Collect {
+        source,
+        events: Vec::with_capacity(tokens.len() / 2),
+        headers: Vec::new(),
+        header: None,
+        failed: false,
+    };
+    {
+        let mut validate = ValidateWhitespace::new(&mut collect, source);
+        let mut guard = RecursionGuard::new(&mut validate, MAX_DEPTH);
+        toml_parser::parser::parse_document(&tokens, &mut guard, &mut failed);
+    }
+    drop(tokens);
+    if failed.0 || collect.failed {
+        return None;
+    }
+    let mut reader = Reader {
+        source,
+        events: collect.events,
+        headers: collect.headers,
+        pos: 0,
+    };
+    let value = T::deserialize(TableDe {
+        reader: &mut reader,
+        kind: TableKind::Root,
+    })
+    .ok()?;
+    (reader.pos == reader.events.len()).then_some(value)
+}
+
+/// Records that the parser or a decoder reported an error.
+struct Failed(bool);
+
+impl ErrorSink for Failed {
+    fn report_error(&mut self, _error: ParseError) {
+        self.0 = true;
+    }
+}
+
+/// The events the reader walks: the parser's, less whitespace and comments, with table
+/// headers decoded.
+#[derive(Debug, Clone, Copy)]
+enum Ev {
+    /// A table header, by its index in [`Reader::headers`].
+    Header(usize),
+    /// A key of a key/value pair.
+    Key(Span, Option<Encoding>),
+    /// `=`.
+    KeyVal,
+    /// A string, number or boolean.
+    Scalar(Span, Option<Encoding>),
+    ArrayOpen,
+    ArrayClose,
+    InlineOpen,
+    InlineClose,
+    /// `,` in an array or inline table.
+    Comma,
+}
+
+/// A table header: `[a.b]` or `[[a.b]]`.
+struct Header<'a> {
+    array: bool,
+    path: Vec<Cow<'a, str>>,
+}
+
+struct Collect<'a> {
+    source: Source<'a>,
+    events: Vec<Ev>,
+    headers: Vec<Header<'a>>,
+    /// The header being read.
+    header: Option<Header<'a>>,
+    failed: bool,
+}
+
+/// A key as written at `span`, unquoted and unescaped; `None` if it does not decode.
+fn decode_key<'a>(
+    source: Source<'a>,
+    span: Span,
+    encoding: Option<Encoding>,
+) -> Option<Cow<'a, str>> {
+    let raw = source.get(span)?;
+    let raw = toml_parser::Raw::new_unchecked(raw.as_str(), encoding, span);
+    let mut out = Cow::Borrowed("");
+    let mut failed = Failed(false);
+    raw.decode_key(&mut out, &mut failed);
+    (!failed.0).then_some(out)
+}
+
+impl<'a> Collect<'a> {
+    fn open(&mut self, array: bool) {
+        if self.header.is_some() {
+            self.failed = true;
+        }
+        self.header = Some(Header {
+            array,
+            path: Vec::new(),
+        });
+    }
+
+    fn close(&mut self) {
+        match self.header.take() {
+            Some(h) if !h.path.is_empty() => {
+                self.events.push(Ev::Header(self.headers.len()));
+                self.headers.push(h);
+            }
+            _ => self.failed = true,
+        }
+    }
+}
+
+impl EventReceiver for Collect<'_> {
+    fn std_table_open(&mut self, _span: Span, _error: &mut dyn ErrorSink) {
+        self.open(false);
+    }
+    fn std_table_close(&mut self, _span: Span, _error: &mut dyn ErrorSink) {
+        self.close();
+    }
+    fn array_table_open(&mut self, _span: Span, _error: &mut dyn ErrorSink) {
+        self.open(true);
+    }
+    fn array_table_close(&mut self, _span: Span, _error: &mut dyn ErrorSink) {
+        self.close();
+    }
+    fn inline_table_open(&mut self, _span: Span, _error: &mut dyn ErrorSink) -> bool {
+        self.events.push(Ev::InlineOpen);
+        true
+    }
+    fn inline_table_close(&mut self, _span: Span, _error: &mut dyn ErrorSink) {
+        self.events.push(Ev::InlineClose);
+    }
+    fn array_open(&mut self, _span: Span, _error: &mut dyn ErrorSink) -> bool {
+        self.events.push(Ev::ArrayOpen);
+        true
+    }
+    fn array_close(&mut self, _span: Span, _error: &mut dyn ErrorSink) {
+        self.events.push(Ev::ArrayClose);
+    }
+    fn simple_key(&mut self, span: Span, kind: Option<Encoding>, _error: &mut dyn ErrorSink) {
+        if self.header.is_some() {
+            match decode_key(self.source, span, kind) {
+                Some(k) => {
+                    if let Some(h) = self.header.as_mut() {
+                        h.path.push(k);
+                    }
+                }
+                None => self.failed = true,
+            }
+        } else {
+            self.events.push(Ev::Key(span, kind));
+        }
+    }
+    fn key_sep(&mut self, _span: Span, _error: &mut dyn ErrorSink) {
+        // A dotted key outside a header: the caller's reader handles those.
+        if self.header.is_none() {
+            self.failed = true;
+        }
+    }
+    fn key_val_sep(&mut self, _span: Span, _error: &mut dyn ErrorSink) {
+        self.events.push(Ev::KeyVal);
+    }
+    fn scalar(&mut self, span: Span, kind: Option<Encoding>, _error: &mut dyn ErrorSink) {
+        self.events.push(Ev::Scalar(span, kind));
+    }
+    fn value_sep(&mut self, _span: Span, _error: &mut dyn ErrorSink) {
+        self.events.push(Ev::Comma);
+    }
+    fn comment(&mut self, span: Span, error: &mut dyn ErrorSink) {
+        if let Some(raw) = self.source.get(span) {
+            raw.decode_comment(error);
+        }
+    }
+    fn newline(&mut self, span: Span, error: &mut dyn ErrorSink) {
+        if let Some(raw) = self.source.get(span) {
+            raw.decode_newline(error);
+        }
+    }
+    fn error(&mut self, _span: Span, _error: &mut dyn ErrorSink) {
+        self.failed = true;
+    }
+}
+
+/// The reader gave up; the caller reads the text with the full parser.
+#[derive(Debug)]
+pub struct GiveUp;
+
+impl fmt::Display for GiveUp {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str("not read by the event reader")
+    }
+}
+
+impl std::error::Error for GiveUp {}
+
+impl de::Error for GiveUp {
+    fn custom<T: fmt::Display>(_msg: T) -> Self {
+        GiveUp
+    }
+}
+
+struct Reader<'a> {
+    source: Source<'a>,
+    events: Vec<Ev>,
+    headers: Vec<Header<'a>>,
+    pos: usize,
+}
+
+impl<'a> Reader<'a> {
+    fn peek(&self) -> Option<Ev> {
+        self.events.get(self.pos).copied()
+    }
+
+    /// Steps over the `,` between values of an array or an inline table.
+    fn skip_comma(&mut self) {
+        if matches!(self.peek(), Some(Ev::Comma)) {
+            self.pos += 1;
+        }
+    }
+
+    fn next(&mut self) -> Result<Ev, GiveUp> {
+        let ev = self.peek().ok_or(GiveUp)?;
+        self.pos += 1;
+        Ok(ev)
+    }
+
+    fn key(&self, span: Span, encoding: Option<Encoding>) -> Result<Cow<'a, str>, GiveUp> {
+        decode_key(self.source, span, encoding).ok_or(GiveUp)
+    }
+
+    /// The path of the table `(header, depth)`: the first `depth` keys of that header.
+    fn path(&self, header: usize, depth: usize) -> &[Cow<'a, str>] {
+        &self.headers[header].path[..depth]
+    }
+
+    /// True when header `g` names a table below the table `at` (`None`: the root).
+    fn is_below(&self, g: usize, at: Option<(usize, usize)>) -> bool {
+        match at {
+            None => true,
+            Some((h, d)) => {
+                let p = &self.headers[g].path;
+                p.len() > d && p[..d] == *self.path(h, d)
+            }
+        }
+    }
+}
+
+/// Keys a table has given, to refuse a duplicate as TOML does.
+#[derive(Default)]
+struct Seen<'a> {
+    few: Vec<Cow<'a, str>>,
+    many: Option<HashSet<Cow<'a, str>>>,
+}
+
+impl<'a> Seen<'a> {
+    /// False when `key` was seen before.
+    fn insert(&mut self, key: Cow<'a, str>) -> bool {
+        if let Some(set) = &mut self.many {
+            return set.insert(key);
+        }
+        if self.few.contains(&key) {
+            return false;
+        }
+        self.few.push(key);
+        if self.few.len() > 16 {
+            self.many = Some(self.few.drain(..).collect());
+        }
+        true
+    }
+}
+
+#[derive(Clone, Copy)]
+enum TableKind {
+    /// The document.
+    Root,
+    /// The table a header opens; the header is at the reader's position.
+    Header(usize),
+    /// A table only named as part of a longer header's path: `(header, depth)`.
+    Implicit(usize, usize),
+    /// An array of tables: the elements' headers, the first at the reader's position.
+    Array(usize),
+}
+
+struct TableDe<'r, 'a> {
+    reader: &'r mut Reader<'a>,
+    kind: TableKind,
+}
+
+impl<'de, 'r> de::Deserializer<'de> for TableDe<'r, 'de> {
+    type Error = GiveUp;
+
+    fn deserialize_any<V: Visitor<'de>>(self, visitor: V) -> Result<V::Value, GiveUp> {
+        let at = match self.kind {
+            TableKind::Root => None,
+            TableKind::Header(h) => {
+                self.reader.next()?;
+                Some((h, self.reader.headers[h].path.len()))
+            }
+            TableKind::Implicit(h, d) => Some((h, d)),
+            TableKind::Array(first) => {
+                let mut seq = ArrayOfTables {
+                    reader: self.reader,
+                    first,
+                    done: false,
+                };
+                let value = visitor.visit_seq(&mut seq)?;
+                return if seq.done { Ok(value) } else { Err(GiveUp) };
+            }
+        };
+        let mut map = TableAccess {
+            reader: self.reader,
+            at,
+            seen: Seen::default(),
+            pending: None,
+            done: false,
+        };
+        let value = visitor.visit_map(&mut map)?;
+        if map.done {
+            Ok(value)
+        } else {
+            Err(GiveUp)
+        }
+    }
+
+    fn deserialize_option<V: Visitor<'de>>(self, visitor: V) -> Result<V::Value, GiveUp> {
+        visitor.visit_some(self)
+    }
+
+    fn deserialize_newtype_struct<V: Visitor<'de>>(
+        self,
+        _name: &'static str,
+        visitor: V,
+    ) -> Result<V::Value, GiveUp> {
+        visitor.visit_newtype_struct(self)
+    }
+
+    serde::forward_to_deserialize_any! {
+        bool i8 i16 i32 i64 i128 u8 u16 u32 u64 u128 f32 f64 char str string
+        bytes byte_buf unit unit_struct seq tuple tuple_struct map struct enum
+        identifier ignored_any
+    }
+}
+
+/// What the last key of a table holds.
+enum Pending {
+    /// A value after `=`, at the reader's position.
+    Inline,
+    /// A table or array of tables from headers.
+    Table(TableKind),
+}
+
+struct TableAccess<'r, 'a> {
+    reader: &'r mut Reader<'a>,
+    /// `(header, depth)` of this table; `None` for the root.
+    at: Option<(usize, usize)>,
+    seen: Seen<'a>,
+    pending: Option<Pending>,
+    done: bool,
+}
+
+impl<'de> de::MapAccess<'de> for TableAccess<'_, 'de> {
+    type Error = GiveUp;
+
+    fn next_key_seed<K: DeserializeSeed<'de>>(
+        &mut self,
+        seed: K,
+    ) -> Result<Option<K::Value>, GiveUp> {
+        let Some(ev) = self.reader.peek() else {
+            self.done = true;
+            return Ok(None);
+        };
+        let key = match ev {
+            Ev::Key(span, enc) => {
+                self.reader.pos += 1;
+                self.pending = Some(Pending::Inline);
+                self.reader.key(span, enc)?
+            }
+            Ev::Header(g) if self.reader.is_below(g, self.at) => {
+                let depth = self.at.map_or(0, |(_, d)| d);
+                let header = &self.reader.headers[g];
+                let key = header.path[depth].clone();
+                self.pending = Some(Pending::Table(if header.path.len() > depth + 1 {
+                    TableKind::Implicit(g, depth + 1)
+                } else if header.array {
+                    TableKind::Array(g)
+                } else {
+                    TableKind::Header(g)
+                }));
+                key
+            }
+            Ev::Header(_) => {
+                self.done = true;
+                return Ok(None);
+            }
+            _ => return Err(GiveUp),
+        };
+        if !self.seen.insert(key.clone()) {
+            return Err(GiveUp);
+        }
+        seed.deserialize(CowKey(key)).map(Some)
+    }
+
+    fn next_value_seed<V: DeserializeSeed<'de>>(&mut self, seed: V) -> Result<V::Value, GiveUp> {
+        match self.pending.take().ok_or(GiveUp)? {
+            Pending::Inline => {
+                if !matches!(self.reader.next()?, Ev::KeyVal) {
+                    return Err(GiveUp);
+                }
+                seed.deserialize(ValueDe {
+                    reader: &mut *self.reader,
+                })
+            }
+            Pending::Table(kind) => seed.deserialize(TableDe {
+                reader: &mut *self.reader,
+                kind,
+            }),
+        }
+    }
+}
+
+struct ArrayOfTables<'r, 'a> {
+    reader: &'r mut Reader<'a>,
+    first: usize,
+    done: bool,
+}
+
+impl<'de> de::SeqAccess<'de> for ArrayOfTables<'_, 'de> {
+    type Error = GiveUp;
+
+    fn next_element_seed<T: DeserializeSeed<'de>>(
+        &mut self,
+        seed: T,
+    ) -> Result<Option<T::Value>, GiveUp> {
+        match self.reader.peek() {
+            Some(Ev::Header(g))
+                if self.reader.headers[g].array
+                    && self.reader.headers[g].path == self.reader.headers[self.first].path =>
+            {
+                seed.deserialize(TableDe {
+                    reader: &mut *self.reader,
+                    kind: TableKind::Header(g),
+                })
+                .map(Some)
+            }
+            _ => {
+                self.done = true;
+                Ok(None)
+            }
+        }
+    }
+}
+
+/// A key, borrowed from the text unless it had escapes.
+struct CowKey<'a>(Cow<'a, str>);
+
+impl<'de> de::Deserializer<'de> for CowKey<'de> {
+    type Error = GiveUp;
+
+    fn deserialize_any<V: Visitor<'de>>(self, visitor: V) -> Result<V::Value, GiveUp> {
+        match self.0 {
+            Cow::Borrowed(s) => visitor.visit_borrowed_str(s),
+            Cow::Owned(s) => visitor.visit_string(s),
+        }
+    }
+
+    serde::forward_to_deserialize_any! {
+        bool i8 i16 i32 i64 i128 u8 u16 u32 u64 u128 f32 f64 char str string
+        bytes byte_buf option unit unit_struct newtype_struct seq tuple
+        tuple_struct map struct enum identifier ignored_any
+    }
+}
+
+/// The value after `=` or in an array, at the reader's position.
+struct ValueDe<'r, 'a> {
+    reader: &'r mut Reader<'a>,
+}
+
+enum Scalar<'a> {
+    Str(Cow<'a, str>),
+    Bool(bool),
+    Int(i64),
+    UInt(u64),
+    Float(f64),
+}
+
+impl<'a> ValueDe<'_, 'a> {
+    fn scalar(&self, span: Span, encoding: Option<Encoding>) -> Result<Scalar<'a>, GiveUp> {
+        let raw = self.reader.source.get(span).ok_or(GiveUp)?;
+        let raw = toml_parser::Raw::new_unchecked(raw.as_str(), encoding, span);
+        let mut out = Cow::Borrowed("");
+        let mut failed = Failed(false);
+        let kind = raw.decode_scalar(&mut out, &mut failed);
+        if failed.0 {
+            return Err(GiveUp);
+        }
+        Ok(match kind {
+            ScalarKind::String => Scalar::Str(out),
+            ScalarKind::Boolean(b) => Scalar::Bool(b),
+            ScalarKind::Integer(radix) => match i64::from_str_radix(&out, radix.value()) {
+                Ok(n) => Scalar::Int(n),
+                Err(_) => {
+                    Scalar::UInt(u64::from_str_radix(&out, radix.value()).map_err(|_| GiveUp)?)
+                }
+            },
+            ScalarKind::Float => {
+                let f: f64 = out.parse().map_err(|_| GiveUp)?;
+                // An overflowing literal is an error in TOML, not infinity.
+                if f.is_infinite() && !out.contains("inf") {
+                    return Err(GiveUp);
+                }
+                Scalar::Float(f)
+            }
+            ScalarKind::DateTime => return Err(GiveUp),
+        })
+    }
+}
+
+impl<'de> de::Deserializer<'de> for ValueDe<'_, 'de> {
+    type Error = GiveUp;
+
+    fn deserialize_any<V: Visitor<'de>>(self, visitor: V) -> Result<V::Value, GiveUp> {
+        match self.reader.next()? {
+            Ev::Scalar(span, enc) => match self.scalar(span, enc)? {
+                Scalar::Str(Cow::Borrowed(s)) => visitor.visit_borrowed_str(s),
+                Scalar::Str(Cow::Owned(s)) => visitor.visit_string(s),
+                Scalar::Bool(b) => visitor.visit_bool(b),
+                Scalar::Int(n) => visitor.visit_i64(n),
+                Scalar::UInt(n) => visitor.visit_u64(n),
+                Scalar::Float(f) => visitor.visit_f64(f),
+            },
+            Ev::ArrayOpen => {
+                let mut seq = ArrayAccess {
+                    reader: self.reader,
+                    done: false,
+                };
+                let value = visitor.visit_seq(&mut seq)?;
+                if seq.done {
+                    Ok(value)
+                } else {
+                    Err(GiveUp)
+                }
+            }
+            Ev::InlineOpen => {
+                let mut map = InlineAccess {
+                    reader: self.reader,
+                    seen: Seen::default(),
+                    done: false,
+                };
+                let value = visitor.visit_map(&mut map)?;
+                if map.done {
+                    Ok(value)
+                } else {
+                    Err(GiveUp)
+                }
+            }
+            _ => Err(GiveUp),
+        }
+    }
+
+    fn deserialize_option<V: Visitor<'de>>(self, visitor: V) -> Result<V::Value, GiveUp> {
+        visitor.visit_some(self)
+    }
+
+    fn deserialize_newtype_struct<V: Visitor<'de>>(
+        self,
+        _name: &'static str,
+        visitor: V,
+    ) -> Result<V::Value, GiveUp> {
+        visitor.visit_newtype_struct(self)
+    }
+
+    fn deserialize_enum<V: Visitor<'de>>(
+        self,
+        _name: &'static str,
+        _variants: &'static [&'static str],
+        visitor: V,
+    ) -> Result<V::Value, GiveUp> {
+        // A unit variant written as its name; any other form goes to the full reader.
+        match self.reader.next()? {
+            Ev::Scalar(span, enc) => match self.scalar(span, enc)? {
+                Scalar::Str(s) => visitor.visit_enum(s.into_deserializer()),
+                _ => Err(GiveUp),
+            },
+            _ => Err(GiveUp),
+        }
+    }
+
+    serde::forward_to_deserialize_any! {
+        bool i8 i16 i32 i64 i128 u8 u16 u32 u64 u128 f32 f64 char str string
+        bytes byte_buf unit unit_struct seq tuple tuple_struct map struct
+        identifier ignored_any
+    }
+}
+
+struct ArrayAccess<'r, 'a> {
+    reader: &'r mut Reader<'a>,
+    done: bool,
+}
+
+impl<'de> de::SeqAccess<'de> for ArrayAccess<'_, 'de> {
+    type Error = GiveUp;
+
+    fn next_element_seed<T: DeserializeSeed<'de>>(
+        &mut self,
+        seed: T,
+    ) -> Result<Option<T::Value>, GiveUp> {
+        self.reader.skip_comma();
+        if matches!(self.reader.peek(), Some(Ev::ArrayClose)) {
+            self.reader.pos += 1;
+            self.done = true;
+            return Ok(None);
+        }
+        seed.deserialize(ValueDe {
+            reader: &mut *self.reader,
+        })
+        .map(Some)
+    }
+}
+
+struct InlineAccess<'r, 'a> {
+    reader: &'r mut Reader<'a>,
+    seen: Seen<'a>,
+    done: bool,
+}
+
+impl<'de> de::MapAccess<'de> for InlineAccess<'_, 'de> {
+    type Error = GiveUp;
+
+    fn next_key_seed<K: DeserializeSeed<'de>>(
+        &mut self,
+        seed: K,
+    ) -> Result<Option<K::Value>, GiveUp> {
+        self.reader.skip_comma();
+        match self.reader.next()? {
+            Ev::InlineClose => {
+                self.done = true;
+                Ok(None)
+            }
+            Ev::Key(span, enc) => {
+                let key = self.reader.key(span, enc)?;
+                if !self.seen.insert(key.clone()) {
+                    return Err(GiveUp);
+                }
+                seed.deserialize(CowKey(key)).map(Some)
+            }
+            _ => Err(GiveUp),
+        }
+    }
+
+    fn next_value_seed<V: DeserializeSeed<'de>>(&mut self, seed: V) -> Result<V::Value, GiveUp> {
+        if !matches!(self.reader.next()?, Ev::KeyVal) {
+            return Err(GiveUp);
+        }
+        seed.deserialize(ValueDe {
+            reader: &mut *self.reader,
+        })
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use std::collections::BTreeMap;
+
+    /// Both readers on one text: this one answers the same as `toml`, or not at all.
+    fn same(text: &str) -> Option<toml::Value> {
+        let full: Result<toml::Value, _> = toml::from_str(text);
+        let fast: Option<toml::Value> = from_str(text);
+        if let Some(v) = &fast {
+            assert_eq!(Some(v), full.as_ref().ok(), "{text}");
+        }
+        fast
+    }
+
+    /// Worked examples from the TOML v1.0.0 specification (<https://toml.io/en/v1.0.0>):
+    /// tables, arrays of tables, inline tables, strings with escapes, literal and multi-line
+    /// strings, integers in every radix, floats, booleans.
+    #[test]
+    fn reads_the_specification_examples_in_nesting_order() {
+        let doc = r#"
+# This is a TOML document
+title = "TOML Example"
+str = "I'm a string. \"You can quote me\". Name\tJos\u00E9\nLocation\tSF."
+winpath = 'C:\Users\nodejs\templates'
+lines = """
+Roses are red
+Violets are blue"""
+int1 = +99
+hex1 = 0xDEADBEEF
+oct1 = 0o755
+bin1 = 0b11010110
+big = 5_349_221
+flt1 = +1.0
+flt2 = 3.1415
+flt3 = -0.01
+flt4 = 5e+22
+sf1 = inf
+bool1 = true
+integers = [ 1, 2, 3 ]
+nested_mixed_array = [ [ 1, 2 ], ["a", "b", "c"] ]
+points = [ { x = 1, y = 2, z = 3 },
+           { x = 7, y = 8, z = 9 } ]
+"key with spaces" = 1
+'quoted "value"' = "value"
+
+[owner]
+name = "Tom Preston-Werner"
+
+[servers]
+
+[servers.alpha]
+ip = "10.0.0.1"
+role = "frontend"
+
+[servers.beta]
+ip = "10.0.0.2"
+role = "backend"
+
+[[products]]
+name = "Hammer"
+sku = 738594937
+
+[[products]]  # empty table within the array
+
+[[products]]
+name = "Nail"
+sku = 284758393
+color = "gray"
+
+[[fruits]]
+name = "apple"
+
+[fruits.physical]  # subtable
+color = "red"
+shape = "round"
+
+[[fruits.varieties]]  # nested array of tables
+name = "red delicious"
+
+[[fruits.varieties]]
+name = "granny smith"
+
+[[fruits]]
+name = "banana"
+
+[[fruits.varieties]]
+name = "plantain"
+
+[x.y.z.w] # implicit super-tables
+a = 1
+"#;
+        assert!(same(doc).is_some());
+    }
+
+    /// What this reader leaves to `toml` (each valid or not, per the specification): it must
+    /// answer nothing, never something else.
+    #[test]
+    fn gives_up_on_what_it_does_not_read() {
+        for doc in [
+            "a.b = 1\n",                       // dotted key
+            "[a.b]\nx = 1\n[a]\ny = 2\n",      // super-table after its sub-table (valid)
+            "[a]\nx = 1\n[b]\n[a.c]\ny = 2\n", // table continued after another (valid)
+            "d = 1979-05-27T07:32:00Z\n",      // date-time
+            "a = 1\na = 2\n",                  // duplicate key (invalid)
+            "[a]\n[a]\n",                      // table defined twice (invalid)
+            "a = \"\\q\"\n",                   // invalid escape
+            "a = 99999999999999999999999\n",   // integer overflow
+            "a = [1,\n",                       // syntax error
+            "a = { b = 1, b = 2 }\n",          // duplicate key in an inline table
+        ] {
+            assert!(same(doc).is_none(), "{doc}");
+        }
+    }
+
+    /// The manifest's own types, through both readers.
+    #[test]
+    fn typed_values_agree() {
+        #[derive(Debug, PartialEq, serde::Deserialize)]
+        struct T {
+            n: u32,
+            o: Option<String>,
+            #[serde(default)]
+            v: Vec<String>,
+            m: BTreeMap<String, String>,
+            t: Vec<BTreeMap<String, i64>>,
+        }
+        let doc =
+            "n = 7\nv = [\"a\", 'b']\n[m]\n\"x/y.py\" = \"1\"\nk = \"2\"\n[[t]]\na = 1\n[[t]]\n";
+        let full: T = toml::from_str(doc).unwrap();
+        let fast: T = from_str(doc).unwrap();
+        assert_eq!(full, fast);
+        // A field of the wrong type: no answer (the full reader names the line).
+        assert!(from_str::<T>("n = \"seven\"\n[m]\n").is_none());
+        assert!(from_str::<T>("n = -1\n[m]\n").is_none());
+    }
+}
