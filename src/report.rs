@@ -103,8 +103,7 @@ fn none_summary(report: &Report) -> Vec<(usize, String)> {
         let what = if c.accepted.is_some() {
             "accepted by the policy file".to_string()
         } else {
-            crate::diff::rules::by_id(&c.rule)
-                .map_or_else(|| c.rule.clone(), |r| r.title.to_string())
+            c.rule.title.to_string()
         };
         *by.entry(what).or_default() += 1;
     }
@@ -160,9 +159,7 @@ fn text(report: &Report, color: bool) -> String {
                 let _ = writeln!(out, "         in {}", p(&c.lockfiles.join(", ")));
             }
             if report.verbose {
-                if !c.rule.is_empty() {
-                    let _ = writeln!(out, "         rule {}; source: {}", c.rule, p(&c.source));
-                }
+                let _ = writeln!(out, "         rule {}; source: {}", c.rule.id, p(c.source));
                 if let Some(d) = &c.value_diff {
                     let _ = writeln!(out, "         diff: {}", p(d));
                 }
@@ -223,8 +220,8 @@ fn md_row(report: &Report, c: &Change) -> String {
                 .join(", ")
         ));
     }
-    if report.verbose && !c.rule.is_empty() {
-        reason.push_str(&format!(" <br>rule `{}`; source: {}", c.rule, p(&c.source)));
+    if report.verbose {
+        reason.push_str(&format!(" <br>rule `{}`; source: {}", c.rule.id, p(c.source)));
         if let Some(d) = &c.value_diff {
             reason.push_str(&format!(" <br>diff: {}", md_code(d)));
         }

@@ -73,7 +73,7 @@ impl Lab {
         let top = report
             .changes
             .first()
-            .map(|c| format!("{} [{}] {}", c.subject, c.rule, c.impact))
+            .map(|c| format!("{} [{}] {}", c.subject, c.rule.id, c.impact))
             .unwrap_or_default();
         self.results
             .push((name.into(), expected, Some(report.verdict), top));

@@ -86,7 +86,7 @@ pub fn group(mut changes: Vec<Change>, edges: &Edges) -> Vec<Change> {
         }
         let key = (
             c.subject.split_once(": ").map_or("", |(_, rest)| rest),
-            c.rule.as_str(),
+            c.rule.id,
             c.old.as_deref(),
             c.new.as_deref(),
         );

@@ -71,7 +71,7 @@ pub struct FileStat {
 }
 
 /// One difference between two manifests.
-#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
 pub struct Change {
     /// How much it matters.
     pub impact: Impact,
@@ -88,12 +88,11 @@ pub struct Change {
     /// The new value, where there is one.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub new: Option<String>,
-    /// The id of the rule that decided it (see `runprint rules`).
-    #[serde(default, skip_serializing_if = "String::is_empty")]
-    pub rule: String,
-    /// Where the rule's behaviour is documented.
-    #[serde(default, skip_serializing_if = "String::is_empty")]
-    pub source: String,
+    /// The rule that decided it (see `runprint rules`), written as its id.
+    #[serde(serialize_with = "rule_id")]
+    pub rule: &'static Rule,
+    /// Where the rule's behaviour is documented (the rule's source).
+    pub source: &'static str,
     /// Set when the policy file accepted this change: it then has impact `none`.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub accepted: Option<Accepted>,
@@ -130,11 +129,15 @@ pub struct Accepted {
     pub expires: String,
 }
 
+fn rule_id<S: serde::Serializer>(rule: &&'static Rule, s: S) -> Result<S::Ok, S::Error> {
+    s.serialize_str(rule.id)
+}
+
 impl Change {
     /// A change decided by `rule`: the impact, rule id and source come from the rule, and the
     /// reason is `lead: rule reason` (or the rule's reason alone when `lead` is empty).
     pub fn from_rule(
-        rule: &Rule,
+        rule: &'static Rule,
         section: Section,
         subject: impl Into<String>,
         lead: impl Into<String>,
@@ -153,8 +156,8 @@ impl Change {
             section,
             old,
             new,
-            rule: rule.id.to_string(),
-            source: rule.source.to_string(),
+            rule,
+            source: rule.source,
             accepted: None,
             value_diff: None,
             lockfiles: Vec::new(),
@@ -170,7 +173,7 @@ impl Change {
         if self.accepted.is_some() {
             return 0;
         }
-        let own = rules::by_id(&self.rule).map_or(0, |r| r.weight);
+        let own = self.rule.weight;
         self.group_weight.map_or(own, |g| g.max(own))
     }
 }
@@ -205,7 +208,7 @@ impl Side {
 }
 
 /// The result of a comparison.
-#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
 pub struct Report {
     /// The highest impact found (`none` when nothing differs).
     pub verdict: Impact,
@@ -585,7 +588,7 @@ fn apply_acceptances(
             .enumerate()
             .filter(|(_, c)| {
                 c.impact > Impact::None
-                    && a.matches(&c.subject, &c.rule, c.old.as_deref(), c.new.as_deref())
+                    && a.matches(&c.subject, c.rule.id, c.old.as_deref(), c.new.as_deref())
             })
             .map(|(i, _)| i)
             .collect();
@@ -637,7 +640,7 @@ fn most_likely_cause(sorted: &[Change], verdict: Impact) -> Option<String> {
         return None;
     }
     let top = sorted.first()?;
-    let title = rules::by_id(&top.rule).map_or("", |r| r.title);
+    let title = top.rule.title;
     let values = |c: &Change| match (&c.old, &c.new) {
         (Some(a), Some(b)) => format!(" {a} → {b}"),
         (None, Some(b)) => format!(" (absent) → {b}"),
@@ -831,7 +834,7 @@ mod tests {
                 .find(|c| c.subject.contains(s))
                 .unwrap()
                 .rule
-                .clone()
+                .id
         };
         assert_eq!(rule("ndarray"), "pkg.numeric.major");
         assert_eq!(rule("fastapi"), "pkg.out-of-scope");
@@ -854,9 +857,9 @@ mod tests {
             )
         };
         let r = compare("a", &side("1.0.0", true), "b", &side("1.0.1", true), None);
-        assert_eq!(r.changes[0].rule, "pkg.compiled");
+        assert_eq!(r.changes[0].rule.id, "pkg.compiled");
         let r = compare("a", &side("1.0.0", false), "b", &side("1.0.1", false), None);
-        assert_eq!(r.changes[0].rule, "pkg.pure.patch");
+        assert_eq!(r.changes[0].rule.id, "pkg.pure.patch");
     }
 
     /// A package the tables do not know that depends on a numerical library (the edges a
@@ -882,7 +885,7 @@ mod tests {
         };
         let r = compare("a", &side("0.4.0"), "b", &side("0.5.0"), None);
         let c = &r.changes[0];
-        assert_eq!(c.rule, "pkg.compiled", "{c:?}");
+        assert_eq!(c.rule.id, "pkg.compiled", "{c:?}");
         assert!(
             c.reason.contains("depends on the numerical library numpy"),
             "{}",

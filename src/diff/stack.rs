@@ -26,7 +26,7 @@ use super::{Change, Context, Section};
 use crate::manifest::{Content, FrameworkBuild, GpuInfo, NativeLibrary, PythonEnv};
 
 fn change(
-    rule: &Rule,
+    rule: &'static Rule,
     section: Section,
     subject: String,
     lead: String,
