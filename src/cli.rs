@@ -416,9 +416,14 @@ fn fit_for_reading(
     fitted
 }
 
+/// A policy whose acceptances name only built-in rules (see [`crate::diff::rules::check_policy`]).
+fn known_rules(p: Policy) -> Result<Policy, crate::policy::PolicyError> {
+    crate::diff::rules::check_policy(&p).map(|()| p)
+}
+
 fn run_policy_check(file: Option<PathBuf>) -> ExitStatus {
     let policy = match &file {
-        Some(path) => Policy::load(path),
+        Some(path) => Policy::load(path).and_then(known_rules),
         None => {
             let cwd = std::env::current_dir().unwrap_or_else(|_| PathBuf::from("."));
             match Policy::discover(None, &cwd) {
@@ -427,7 +432,7 @@ fn run_policy_check(file: Option<PathBuf>) -> ExitStatus {
                         "no {POLICY_FILE} at the repository root; name a file to check"
                     ))
                 }
-                other => other,
+                other => other.and_then(known_rules),
             }
         }
     };
@@ -463,7 +468,9 @@ fn run_diff(args: DiffArgs) -> ExitStatus {
     let policy = match Policy::discover(
         args.policy.as_deref(),
         args.repo.as_deref().unwrap_or(&here),
-    ) {
+    )
+    .and_then(known_rules)
+    {
         Ok(p) => p,
         Err(e) => return fail(e),
     };
@@ -525,10 +532,11 @@ fn run_check(args: CheckArgs) -> ExitStatus {
         Ok(m) => m,
         Err(e) => return fail(e),
     };
-    let policy = match Policy::discover(args.policy.as_deref(), &args.collect.repo) {
-        Ok(p) => p,
-        Err(e) => return fail(e),
-    };
+    let policy =
+        match Policy::discover(args.policy.as_deref(), &args.collect.repo).and_then(known_rules) {
+            Ok(p) => p,
+            Err(e) => return fail(e),
+        };
     let baseline_name = args.baseline.display().to_string();
     let mut report = if let Some(rev) = &args.rev {
         match crate::check::against_revision(

@@ -1,5 +1,6 @@
 //! A repository's policy file, `runprint.toml` at the repository root (or `--policy FILE`):
-//! how a team adjusts the built-in rules ([`crate::diff::rules`]).
+//! how a team adjusts the built-in rules (the comparison checks that the rule ids an acceptance
+//! names exist: `diff::rules::check_policy`).
 //!
 //! Grammar as implemented (TOML, kebab-case keys, every key optional, unknown keys rejected):
 //!
@@ -131,6 +132,8 @@ pub struct Acceptance {
     pub expires: String,
     /// Line in the policy file.
     pub line: usize,
+    /// Line of its `rule` key, when it has one.
+    pub rule_line: Option<usize>,
     matcher: globset::GlobMatcher,
 }
 
@@ -482,18 +485,6 @@ impl Policy {
                     "an acceptance needs a reason".into(),
                 ));
             }
-            if let Some(rule) = &a.rule {
-                if crate::diff::rules::by_id(rule.get_ref()).is_none() {
-                    return Err(invalid(
-                        Some(rule.span().start),
-                        key("rule"),
-                        format!(
-                            "unknown rule `{}` (`runprint rules` lists them)",
-                            rule.get_ref()
-                        ),
-                    ));
-                }
-            }
             let date_text = match a.expires.get_ref() {
                 toml::Value::Datetime(d) if d.time.is_none() && d.offset.is_none() => d.to_string(),
                 toml::Value::String(s) => s.clone(),
@@ -509,6 +500,7 @@ impl Policy {
             policy.accept.push(Acceptance {
                 subject: a.subject.get_ref().clone(),
                 rule: a.rule.as_ref().map(|r| r.get_ref().clone()),
+                rule_line: a.rule.as_ref().map(|r| lines.line(r.span().start)),
                 old: a.old.clone(),
                 new: a.new.clone(),
                 reason: a.reason.get_ref().trim().to_string(),

@@ -221,7 +221,11 @@ fn md_row(report: &Report, c: &Change) -> String {
         ));
     }
     if report.verbose {
-        reason.push_str(&format!(" <br>rule `{}`; source: {}", c.rule.id, p(c.source)));
+        reason.push_str(&format!(
+            " <br>rule `{}`; source: {}",
+            c.rule.id,
+            p(c.source)
+        ));
         if let Some(d) = &c.value_diff {
             reason.push_str(&format!(" <br>diff: {}", md_code(d)));
         }

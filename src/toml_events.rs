@@ -33,7 +33,8 @@ pub fn from_str<'a, T: de::Deserialize<'a>>(text: &'a str) -> Option<T> {
     let mut failed = Failed(false);
     let mut collect = Collect {
         source,
-        events: Vec::with_capacity(tokens.len() / 2),
+        // About one event for every two tokens; never grown (and copied) for a large file.
+        events: Vec::with_capacity(tokens.len()),
         headers: Vec::new(),
         header: None,
         failed: false,

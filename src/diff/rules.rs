@@ -479,6 +479,26 @@ pub fn by_id(id: &str) -> Option<&'static Rule> {
     RULES.iter().copied().find(|r| r.id == id)
 }
 
+/// Checks that every rule id the policy's acceptances name is a built-in rule: an unknown
+/// id (a typo) would otherwise accept nothing, silently. The error names the file, the line
+/// and the key, as the policy reader's own errors do.
+pub fn check_policy(policy: &Policy) -> Result<(), crate::policy::PolicyError> {
+    for (i, a) in policy.accept.iter().enumerate() {
+        if let Some(rule) = a.rule.as_deref().filter(|r| by_id(r).is_none()) {
+            return Err(crate::policy::PolicyError::Invalid {
+                path: policy
+                    .path
+                    .clone()
+                    .unwrap_or_else(|| crate::policy::POLICY_FILE.into()),
+                line: a.rule_line,
+                key: Some(format!("accept[{i}].rule")),
+                message: format!("unknown rule `{rule}` (`runprint rules` lists them)"),
+            });
+        }
+    }
+    Ok(())
+}
+
 // ------------------------------------------------------------------------------------------------
 // Packages
 
