@@ -57,7 +57,7 @@ fn rules_lists_every_rule_as_json_with_a_source() {
         .output()
         .unwrap();
     let rows: Vec<serde_json::Value> = serde_json::from_slice(&out.stdout).unwrap();
-    assert_eq!(rows.len(), runprint::diff::rules::RULES.len());
+    assert_eq!(rows.len(), runprint::diff::rules::all().count());
     assert!(rows.len() >= 60);
     for r in &rows {
         for key in ["id", "impact", "reason", "source", "title"] {

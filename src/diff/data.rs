@@ -2,6 +2,20 @@
 
 use super::*;
 
+rule_group! {
+    /// The rules of declared data inputs (the conditions: `compare_data` below).
+    DATA_RULES;
+    DATA_CHANGED = "data.changed", "data", Retrain, 100,
+        "declared data input changed",
+        "the training data changed, and a model trained on different data is a different model",
+        "common practice";
+    DATA_ONE_SIDE = "data.one-side", "data", Verify, 45,
+        "data input declared on one side only",
+        "its content cannot be compared, so the same data cannot be confirmed",
+        "common practice";
+
+}
+
 pub(super) fn compare_data(old: &Content, new: &Content, out: &mut Vec<Change>) {
     let index = |c: &Content| -> BTreeMap<String, DataInput> {
         c.data.iter().map(|d| (d.path.clone(), d.clone())).collect()
@@ -13,7 +27,7 @@ pub(super) fn compare_data(old: &Content, new: &Content, out: &mut Vec<Change>) 
             (Some(a), Some(b)) if a.sha256 != b.sha256 => {
                 let lead = changed_files(a, b).map_or_else(String::new, |d| format!("files {d}"));
                 out.push(Change::from_rule(
-                    &rules::DATA_CHANGED,
+                    &DATA_CHANGED,
                     Section::Data,
                     subject,
                     lead,
@@ -33,7 +47,7 @@ pub(super) fn compare_data(old: &Content, new: &Content, out: &mut Vec<Change>) 
             }
             (Some(_), Some(_)) => {}
             (a, b) => out.push(Change::from_rule(
-                &rules::DATA_ONE_SIDE,
+                &DATA_ONE_SIDE,
                 Section::Data,
                 subject,
                 "",

@@ -289,7 +289,7 @@ mod tests {
             ),
         ];
         let mut gpu = Change::from_rule(
-            &rules::GPU_CUDNN,
+            &crate::diff::stack::GPU_CUDNN,
             Section::Gpu,
             "cudnn (nvidia-cudnn-cu12)",
             "",

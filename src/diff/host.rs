@@ -2,11 +2,48 @@
 
 use super::*;
 
+rule_group! {
+    /// The rules of the processor, the system and the run (the conditions: the comparisons below).
+    HOST_RULES;
+    CPU_ARCH = "cpu.arch", "cpu", Retrain, 80,
+        "CPU architecture",
+        "another instruction-set architecture uses other kernels, fused multiply-add contraction and math libraries",
+        "https://github.com/llvm/llvm-project/issues/91824; https://github.com/microsoft/onnxruntime/issues/13638";
+    CPU_FEATURES = "cpu.features", "cpu", Verify, 50,
+        "CPU instruction-set features (AVX2, AVX-512, FMA, AMX, SVE...)",
+        "libraries dispatch to other code paths on other features (NumPy's AVX-512 math, PyTorch and oneDNN kernels), which changes the last digits",
+        "https://github.com/pytorch/pytorch/issues/155423; https://github.com/numpy/numpy/issues/23523";
+    CPU_MODEL = "cpu.model", "cpu", Verify, 45,
+        "CPU model",
+        "BLAS and frameworks pick kernels for the processor they find (OpenBLAS core types), and different kernels round differently",
+        "https://github.com/OpenMathLib/OpenBLAS/issues/4510";
+    CPU_COUNT = "cpu.count", "cpu", Verify, 42,
+        "CPU core or allowed-CPU count",
+        "libraries size their thread pools from the CPU count unless told otherwise, and another thread count splits reductions differently",
+        "https://github.com/scikit-learn/scikit-learn/issues/18790; https://github.com/pytorch/pytorch/issues/88718";
+    CPU_AFFINITY = "cpu.affinity", "cpu", None, 5,
+        "same number of allowed CPUs in another placement",
+        "the thread count, and so the order of reductions, stays the same; only where threads run changes",
+        "common practice";
+    SYS_LIBC = "system.libc", "system", Verify, 38,
+        "C library or its version",
+        "libm's exp, log, pow and sin can differ in the last bit between versions (glibc 2.28 rewrote them)",
+        "https://github.com/openmc-dev/openmc/issues/1214";
+    SYS_OTHER = "system.other", "system", None, 0,
+        "OS release, kernel or memory",
+        "it does not do the arithmetic (the C library and drivers are compared separately)",
+        "common practice";
+    RUN_INFO = "run.info", "run", None, 0,
+        "host name, label or runprint version",
+        "it describes the stamping, not the computation (the host's processor and libraries are compared separately)",
+        "common practice";
+}
+
 pub(super) fn compare_cpu(old: &Content, new: &Content, out: &mut Vec<Change>) {
     let (o, n) = (&old.cpu, &new.cpu);
     if o.arch != n.arch {
         out.push(Change::from_rule(
-            &rules::CPU_ARCH,
+            &CPU_ARCH,
             Section::Cpu,
             "cpu architecture",
             "",
@@ -25,7 +62,7 @@ pub(super) fn compare_cpu(old: &Content, new: &Content, out: &mut Vec<Change>) {
     };
     if ident(o) != ident(n) {
         out.push(Change::from_rule(
-            &rules::CPU_MODEL,
+            &CPU_MODEL,
             Section::Cpu,
             "cpu model",
             "",
@@ -58,7 +95,7 @@ pub(super) fn compare_cpu(old: &Content, new: &Content, out: &mut Vec<Change>) {
             .collect::<Vec<_>>()
             .join(" ");
         out.push(Change::from_rule(
-            &rules::CPU_FEATURES,
+            &CPU_FEATURES,
             Section::Cpu,
             "cpu features",
             format!("the processor {}", parts.join(" and ")),
@@ -77,7 +114,7 @@ pub(super) fn compare_cpu(old: &Content, new: &Content, out: &mut Vec<Change>) {
     };
     if counts(o) != counts(n) {
         out.push(Change::from_rule(
-            &rules::CPU_COUNT,
+            &CPU_COUNT,
             Section::Cpu,
             "cpu count",
             "",
@@ -86,7 +123,7 @@ pub(super) fn compare_cpu(old: &Content, new: &Content, out: &mut Vec<Change>) {
         ));
     } else if o.allowed_cpus != n.allowed_cpus {
         out.push(Change::from_rule(
-            &rules::CPU_AFFINITY,
+            &CPU_AFFINITY,
             Section::Cpu,
             "cpu affinity",
             "",
@@ -101,7 +138,7 @@ pub(super) fn compare_run(old: &Manifest, new: &Manifest, out: &mut Vec<Change>)
     let mut push = |subject: &str, a: Option<String>, b: Option<String>| {
         if a != b {
             out.push(Change::from_rule(
-                &rules::RUN_INFO,
+                &RUN_INFO,
                 Section::Run,
                 subject,
                 "",
@@ -125,7 +162,7 @@ pub(super) fn compare_system(old: &Content, new: &Content, out: &mut Vec<Change>
         let f =
             |s: &crate::manifest::SystemInfo| format!("{} {}", opt(&s.libc), opt(&s.libc_version));
         out.push(Change::from_rule(
-            &rules::SYS_LIBC,
+            &SYS_LIBC,
             Section::System,
             "libc",
             "",
@@ -136,7 +173,7 @@ pub(super) fn compare_system(old: &Content, new: &Content, out: &mut Vec<Change>
     let mut push = |subject: &str, a: Option<String>, b: Option<String>| {
         if a != b {
             out.push(Change::from_rule(
-                &rules::SYS_OTHER,
+                &SYS_OTHER,
                 Section::System,
                 subject,
                 "",

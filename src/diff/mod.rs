@@ -1,11 +1,34 @@
 //! Comparing two manifests: every difference becomes a [`Change`] decided by one rule of the
-//! built-in table ([`rules::RULES`]), adjusted by the repository's policy
+//! built-in table ([`rules::all`]), adjusted by the repository's policy
 //! ([`crate::policy::Policy`]); the [`Report`]'s verdict is the highest impact found, and its
 //! "most likely cause" the change most likely to explain a difference in results.
 //!
 //! The comparison is pure: the files changed between the two commits, which it classes so that
 //! a documentation-only commit does not ask for a retrain, are passed in ([`FileStat`], listed
 //! by [`crate::check::commit_files`]); nothing here reads a file or runs a program.
+
+/// Defines rules as statics, each beside the conditions that fire it, and `$group`, the list
+/// of them in order ([`rules::RULE_GROUPS`] lists the groups).
+macro_rules! rule_group {
+    ($(#[$meta:meta])* $group:ident;
+     $( $name:ident = $id:literal, $sec:literal, $imp:ident, $w:literal,
+        $title:literal, $reason:literal, $source:literal; )*) => {
+        $(
+            #[doc = $title]
+            pub static $name: $crate::diff::rules::Rule = $crate::diff::rules::Rule {
+                id: $id,
+                section: $sec,
+                title: $title,
+                impact: $crate::classes::Impact::$imp,
+                weight: $w,
+                reason: $reason,
+                source: $source,
+            };
+        )*
+        $(#[$meta])*
+        pub static $group: &[&$crate::diff::rules::Rule] = &[$(&$name),*];
+    };
+}
 
 mod data;
 mod env;

@@ -1,10 +1,13 @@
-//! The built-in rule set: one table of rules, each with what it matches, the impact, how
-//! likely it is to explain a difference in results, a one-sentence reason written for
-//! practitioners, and its source.
+//! The built-in rule set: rules, each with what it matches, the impact, how likely it is to
+//! explain a difference in results, a one-sentence reason written for practitioners, and its
+//! source.
 //!
 //! Every [`Change`](super::Change) the comparison produces names the rule that decided it
-//! (`rule`, `source`), so a verdict can always be traced to a documented fact. The table is
-//! [`RULES`]; `runprint rules` prints it and `docs/rules.md` is generated from it.
+//! (`rule`, `source`), so a verdict can always be traced to a documented fact. Each group of
+//! rules is defined beside the conditions that fire it (packages, variables and paths here;
+//! data in `diff/data.rs`; processor, system and run in `diff/host.rs`; interpreter, native
+//! libraries and GPU in `diff/stack.rs`); [`RULE_GROUPS`] lists the groups and [`all`] every
+//! rule; `runprint rules` prints them and `docs/rules.md` is generated from them.
 //!
 //! Matching is done by small functions below ([`package_rule`], [`env_rule`], [`path_class`]
 //! and [`git_rule`]) and, for the fixed facts of the CPU, system, stack and GPU, by the
@@ -40,114 +43,55 @@ pub struct Rule {
     pub source: &'static str,
 }
 
-macro_rules! rules {
-    ($( $name:ident = $id:literal, $sec:literal, $imp:ident, $w:literal,
-        $title:literal, $reason:literal, $source:literal; )*) => {
-        $(
-            #[doc = $title]
-            pub static $name: Rule = Rule {
-                id: $id,
-                section: $sec,
-                title: $title,
-                impact: Impact::$imp,
-                weight: $w,
-                reason: $reason,
-                source: $source,
-            };
-        )*
-        /// Every built-in rule, in the order of `docs/rules.md`.
-        pub static RULES: &[&Rule] = &[$(&$name),*];
-    };
+/// Every built-in rule by group, in the order of `docs/rules.md`. Each group is defined beside
+/// the conditions that fire its rules.
+pub static RULE_GROUPS: &[&[&Rule]] = &[
+    GIT_RULES,
+    super::data::DATA_RULES,
+    PACKAGE_RULES,
+    ENV_RULES,
+    super::host::HOST_RULES,
+    super::stack::PYTHON_RULES,
+    super::stack::NATIVE_RULES,
+    super::stack::GPU_RULES,
+];
+
+/// Every built-in rule, in the order of `docs/rules.md`.
+pub fn all() -> impl Iterator<Item = &'static Rule> {
+    RULE_GROUPS.iter().flat_map(|g| g.iter().copied())
 }
 
-rules! {
-    // --- source code, configuration and data -------------------------------------------------
-    GIT_DATA = "git.data", "git", Retrain, 98,
-        "data files tracked in the repository changed",
-        "the training data changed, and a model trained on different data is a different model",
-        "common practice";
-    GIT_CODE = "git.code", "git", Retrain, 95,
-        "training code changed",
-        "the program that computes the model changed",
-        "common practice";
-    GIT_CONFIG = "git.config", "git", Retrain, 93,
-        "training configuration changed",
-        "configuration files set hyperparameters, seeds and data splits, so the computation changed",
-        "common practice";
-    GIT_UNLISTED = "git.unlisted", "git", Retrain, 90,
-        "commit changed and the changed files cannot be listed",
-        "without the list of changed files a change to training code cannot be ruled out",
-        "common practice";
-    GIT_SUBMODULE = "git.submodule", "git", Retrain, 80,
-        "submodule commit changed",
-        "a submodule holds vendored code built or imported by training, so other code runs",
-        "common practice";
-    GIT_PRESENCE = "git.presence", "git", Verify, 40,
-        "source control recorded on one side only",
-        "only one side was stamped inside a git repository, so the code cannot be compared",
-        "common practice";
-    GIT_DEPENDENCIES = "git.dependencies", "git", None, 4,
-        "only lockfiles, dependency manifests and dependency inputs changed in the code",
-        "what they resolve to is compared package by package under `lockfiles` and `python`, which decides the impact",
-        "common practice";
-    GIT_OUT_OF_SCOPE = "git.out-of-scope", "git", None, 3,
-        "only files outside the training job's scope changed",
-        "they are not imported by the training entry points and are not configuration or data the job reads",
-        "runprint.toml or --entry of the repository";
-    GIT_BUILD = "git.build", "git", None, 3,
-        "only container, build or environment recipes changed (Dockerfile, Makefile, Nix)",
-        "they install and launch the job: what they install is compared as packages, base images and the numerical stack, and the variables they set under `env`",
-        "common practice";
-    GIT_TESTS = "git.tests", "git", None, 3,
-        "only tests or benchmarks changed",
-        "the training job does not import its test suite or benchmarks",
-        "https://docs.pytest.org/en/stable/explanation/goodpractices.html#conventions-for-python-test-discovery; https://pkg.go.dev/cmd/go#hdr-Test_packages";
-    GIT_CI = "git.ci", "git", None, 3,
-        "only continuous-integration workflows changed",
-        "workflows run checks on the repository; the training job does not read them",
-        "https://docs.github.com/en/actions/writing-workflows/workflow-syntax-for-github-actions";
-    GIT_NOTEBOOKS = "git.notebooks", "git", None, 2,
-        "only notebooks changed",
-        "notebooks are run by hand and not imported by the training job (name one as an entry point or under paths.code when it is)",
-        "common practice";
-    GIT_METADATA = "git.metadata", "git", None, 2,
-        "only repository metadata or developer-tool settings changed",
-        "attributes, editor, linter, ownership and template files do not change what the job computes",
-        "https://git-scm.com/docs/gitattributes; https://editorconfig.org/";
-    GIT_UNCHANGED = "git.unchanged", "git", None, 1,
-        "only renames or mode changes with identical content",
-        "the same bytes under another name or mode compute the same thing",
-        "https://git-scm.com/docs/git-diff#Documentation/git-diff.txt---find-renamesltngt";
-    GIT_DOCS = "git.docs", "git", None, 2,
-        "only documentation changed",
-        "training does not read documentation, licences or changelogs",
-        "common practice";
-    GIT_IRRELEVANT = "git.irrelevant", "git", None, 1,
-        "only paths the policy marks irrelevant changed",
-        "the repository's policy file says training does not read these paths",
-        "runprint.toml of the repository";
-    GIT_EMPTY = "git.empty", "git", None, 0,
-        "commit changed without changing any file",
-        "the two commits hold the same files, so the same code runs",
-        "common practice";
-    GIT_BRANCH = "git.branch", "git", None, 0,
-        "branch name changed",
-        "a branch name does not change the code that runs; the commit does",
-        "common practice";
-    GIT_REMOTE = "git.remote", "git", None, 0,
-        "remote URL changed",
-        "where the repository was cloned from does not change the code that runs",
-        "common practice";
-    DATA_CHANGED = "data.changed", "data", Retrain, 100,
-        "declared data input changed",
-        "the training data changed, and a model trained on different data is a different model",
-        "common practice";
-    DATA_ONE_SIDE = "data.one-side", "data", Verify, 45,
-        "data input declared on one side only",
-        "its content cannot be compared, so the same data cannot be confirmed",
-        "common practice";
+/// The rule with this id.
+pub fn by_id(id: &str) -> Option<&'static Rule> {
+    all().find(|r| r.id == id)
+}
 
-    // --- packages ------------------------------------------------------------------------------
+/// Checks that every rule id the policy's acceptances name is a built-in rule: an unknown
+/// id (a typo) would otherwise accept nothing, silently. The error names the file, the line
+/// and the key, as the policy reader's own errors do.
+pub fn check_policy(policy: &Policy) -> Result<(), crate::policy::PolicyError> {
+    for (i, a) in policy.accept.iter().enumerate() {
+        if let Some(rule) = a.rule.as_deref().filter(|r| by_id(r).is_none()) {
+            return Err(crate::policy::PolicyError::Invalid {
+                path: policy
+                    .path
+                    .clone()
+                    .unwrap_or_else(|| crate::policy::POLICY_FILE.into()),
+                line: a.rule_line,
+                key: Some(format!("accept[{i}].rule")),
+                message: format!("unknown rule `{rule}` (`runprint rules` lists them)"),
+            });
+        }
+    }
+    Ok(())
+}
+
+// ------------------------------------------------------------------------------------------------
+// Packages
+
+rule_group! {
+    /// The rules of packages and lockfiles (the conditions: [`classify_package`], [`package_rule`] and `diff/lockfiles.rs`).
+    PACKAGE_RULES;
     PKG_NUMPY_NEP50 = "pkg.numpy.nep50", "lockfiles", Retrain, 92,
         "numpy across 2.0 (NEP 50 promotion rules)",
         "NumPy 2.0 dropped value-based casting, so float32 arithmetic with Python scalars stays float32 and sums lose precision",
@@ -273,234 +217,7 @@ rules! {
         "it lists no packages",
         "common practice";
 
-    // --- environment variables -------------------------------------------------------------------
-    ENV_PRECISION = "env.precision", "env", Retrain, 90,
-        "precision-mode variable (TF32, bf16 math, XLA fast-math, JAX x64)",
-        "it changes the floating-point precision of the arithmetic (TF32 keeps 10 mantissa bits, about 1e-3 relative error)",
-        "https://pytorch.org/docs/stable/notes/cuda.html; https://github.com/pytorch/pytorch/pull/77114; https://github.com/jax-ml/jax/issues/276";
-    ENV_THREADS = "env.threads", "env", Verify, 62,
-        "thread-count and thread-placement variable",
-        "the number of threads changes how reductions are split, so sums differ in the last digits and iterative training can drift",
-        "https://github.com/pytorch/pytorch/issues/88718; https://github.com/numpy/numpy/issues/25100; https://github.com/scikit-learn/scikit-learn/issues/18790";
-    ENV_COLLECTIVES = "env.collectives", "env", Verify, 58,
-        "NCCL algorithm, protocol or channel variable",
-        "all-reduce algorithms and channel counts sum in another order, which has changed convergence",
-        "https://github.com/NVIDIA/nccl/issues/1055";
-    ENV_DETERMINISM = "env.determinism", "env", Verify, 55,
-        "determinism and autotuning variable",
-        "it switches deterministic algorithms or autotuning on or off, so run-to-run agreement changes",
-        "https://github.com/pytorch/pytorch/pull/41377; https://github.com/NVIDIA/framework-reproducibility; https://docs.nvidia.com/cuda/cublas/index.html#results-reproducibility";
-    ENV_KERNELS = "env.kernels", "env", Verify, 52,
-        "kernel-choice variable (CPU ISA caps, core types, oneDNN)",
-        "it selects which CPU kernels BLAS or the framework dispatch to, and different kernels round differently",
-        "https://github.com/OpenMathLib/OpenBLAS/issues/4510; https://github.com/pytorch/pytorch/issues/155423; https://github.com/tensorflow/tensorflow/issues/56697";
-    ENV_HASHSEED = "env.hash-seed", "env", Verify, 50,
-        "PYTHONHASHSEED",
-        "it fixes or randomizes string hashing, which decides the iteration order of sets that code may turn into vocabularies or label orders",
-        "https://docs.python.org/3/using/cmdline.html#envvar-PYTHONHASHSEED";
-    ENV_LOADER = "env.loader", "env", Verify, 45,
-        "library and package search path variable",
-        "it changes which libraries or packages are loaded, which can swap a numerical library without any lockfile change",
-        "common practice";
-    ENV_DEVICES = "env.devices", "env", Verify, 45,
-        "visible GPU selection",
-        "another GPU or GPU count changes kernels and the split of work",
-        "https://docs.nvidia.com/cuda/cublas/index.html#results-reproducibility";
-    ENV_CODEGEN = "env.codegen", "env", Verify, 40,
-        "code-generation flags (RUSTFLAGS)",
-        "target-CPU flags change which SIMD code paths are compiled in, which rounds differently",
-        "https://github.com/llvm/llvm-project/issues/91824";
-    ENV_OTHER = "env.other", "env", Verify, 30,
-        "other variable of a numerical library or framework",
-        "it configures a library that takes part in the arithmetic",
-        "common practice";
-    ENV_LOCATION = "env.location", "env", None, 3,
-        "location of the active environment or toolkit (VIRTUAL_ENV, CONDA_PREFIX, CUDA_HOME)",
-        "a folder name does not compute; the interpreter, its packages and the CUDA stack are compared in their own sections",
-        "https://docs.python.org/3/library/venv.html";
-    ENV_CACHE = "env.cache", "env", None, 2,
-        "cache or download folder (TORCH_HOME, HF_HOME, XDG_CACHE_HOME...)",
-        "where downloads and compiled kernels are kept does not change them; the data and packages themselves are compared",
-        "https://pytorch.org/docs/stable/hub.html#where-are-my-downloaded-models-saved; https://specifications.freedesktop.org/basedir-spec/latest/";
-    ENV_NOT_NUMERIC = "env.not-numerical", "env", None, 1,
-        "variable no numerical library reads (recorded by an older runprint)",
-        "runprint records only variables of numerical libraries; this one (Terraform's TF_CLI_*, for one) is not",
-        "https://developer.hashicorp.com/terraform/cli/config/environment-variables";
-    ENV_LOGGING = "env.logging", "env", None, 2,
-        "logging and verbosity variable",
-        "it only changes messages",
-        "common practice";
-    ENV_IRRELEVANT = "env.irrelevant", "env", None, 1,
-        "variable the policy marks irrelevant",
-        "the repository's policy file says it does not affect results",
-        "runprint.toml of the repository";
-    ENV_CREDENTIAL = "env.credential", "env", None, 0,
-        "credential variable set or unset",
-        "a credential's presence does not change results (its value is never recorded)",
-        "common practice";
-
-    // --- processor, system, interpreter ------------------------------------------------------------
-    CPU_ARCH = "cpu.arch", "cpu", Retrain, 80,
-        "CPU architecture",
-        "another instruction-set architecture uses other kernels, fused multiply-add contraction and math libraries",
-        "https://github.com/llvm/llvm-project/issues/91824; https://github.com/microsoft/onnxruntime/issues/13638";
-    CPU_FEATURES = "cpu.features", "cpu", Verify, 50,
-        "CPU instruction-set features (AVX2, AVX-512, FMA, AMX, SVE...)",
-        "libraries dispatch to other code paths on other features (NumPy's AVX-512 math, PyTorch and oneDNN kernels), which changes the last digits",
-        "https://github.com/pytorch/pytorch/issues/155423; https://github.com/numpy/numpy/issues/23523";
-    CPU_MODEL = "cpu.model", "cpu", Verify, 45,
-        "CPU model",
-        "BLAS and frameworks pick kernels for the processor they find (OpenBLAS core types), and different kernels round differently",
-        "https://github.com/OpenMathLib/OpenBLAS/issues/4510";
-    CPU_COUNT = "cpu.count", "cpu", Verify, 42,
-        "CPU core or allowed-CPU count",
-        "libraries size their thread pools from the CPU count unless told otherwise, and another thread count splits reductions differently",
-        "https://github.com/scikit-learn/scikit-learn/issues/18790; https://github.com/pytorch/pytorch/issues/88718";
-    CPU_AFFINITY = "cpu.affinity", "cpu", None, 5,
-        "same number of allowed CPUs in another placement",
-        "the thread count, and so the order of reductions, stays the same; only where threads run changes",
-        "common practice";
-    SYS_LIBC = "system.libc", "system", Verify, 38,
-        "C library or its version",
-        "libm's exp, log, pow and sin can differ in the last bit between versions (glibc 2.28 rewrote them)",
-        "https://github.com/openmc-dev/openmc/issues/1214";
-    SYS_OTHER = "system.other", "system", None, 0,
-        "OS release, kernel or memory",
-        "it does not do the arithmetic (the C library and drivers are compared separately)",
-        "common practice";
-    RUN_INFO = "run.info", "run", None, 0,
-        "host name, label or runprint version",
-        "it describes the stamping, not the computation (the host's processor and libraries are compared separately)",
-        "common practice";
-    PY_IMPLEMENTATION = "python.implementation", "python", Retrain, 72,
-        "Python implementation",
-        "another implementation runs the code with its own numeric built-ins, hashing and random streams",
-        "https://docs.python.org/3/library/random.html#notes-on-reproducibility";
-    PY_MINOR = "python.minor", "python", Retrain, 70,
-        "Python minor version",
-        "a new minor release may change the streams of random's shuffle, sample and choice (only random() is kept stable), so data order changes",
-        "https://docs.python.org/3/library/random.html#notes-on-reproducibility";
-    PY_MICRO = "python.micro", "python", Verify, 30,
-        "Python bug-fix version",
-        "bug-fix releases keep random streams stable but can fix numeric code in the standard library",
-        "https://docs.python.org/3/library/random.html#notes-on-reproducibility";
-    PY_ONE_SIDE = "python.one-side", "python", Verify, 40,
-        "Python environment recorded on one side only",
-        "its packages cannot be compared",
-        "common practice";
-    PY_PATH = "python.path", "python", None, 0,
-        "interpreter location",
-        "the location does not change results; its version and packages are compared separately",
-        "common practice";
-    PY_CONDA_BLAS = "python.conda-blas", "python", Verify, 58,
-        "conda BLAS selector package (libblas, blas)",
-        "its build names the BLAS every package in the environment uses, and vendors order floating-point operations differently",
-        "https://github.com/mne-tools/mne-python/issues/4922";
-
-    // --- numerical stack -----------------------------------------------------------------------
-    BLAS_KNOWN_BAD = "native.blas.known-bad", "native", Retrain, 95,
-        "BLAS release known to compute wrong results",
-        "the new BLAS is a release with a documented wrong-result bug",
-        "https://github.com/OpenMathLib/OpenBLAS/issues/2182; https://github.com/OpenMathLib/OpenBLAS/issues/2914; https://github.com/numpy/numpy/issues/29391";
-    BLAS_VENDOR = "native.blas.vendor", "native", Verify, 62,
-        "BLAS/LAPACK vendor",
-        "vendors order floating-point operations differently, and iterative algorithms amplify that (ICA components flipped between MKL and OpenBLAS)",
-        "https://github.com/mne-tools/mne-python/issues/4922; https://github.com/JuliaLinearAlgebra/MKL.jl/issues/141";
-    BLAS_VERSION = "native.blas.version", "native", Verify, 56,
-        "BLAS version or build (threading layer, integer width, thread limit, kernels)",
-        "each changes blocking, kernels or how reductions are split (an ILP64 build gave other float32 results than LP64)",
-        "https://github.com/OpenMathLib/OpenBLAS/issues/2779; https://github.com/OpenMathLib/OpenBLAS/issues/5735";
-    BLAS_ONE_SIDE = "native.blas.one-side", "native", Verify, 50,
-        "BLAS or OpenMP runtime present on one side only",
-        "the code that does linear algebra or runs threads differs",
-        "https://github.com/mne-tools/mne-python/issues/4922";
-    OPENMP_RUNTIME = "native.openmp", "native", Verify, 46,
-        "OpenMP runtime or its version",
-        "each runtime reads its own variables, sizes its thread pool and splits parallel reductions its own way",
-        "https://github.com/numpy/numpy/issues/25100";
-    FAST_MATH = "native.fast-math", "native", Retrain, 88,
-        "compiled module with fast-math start-up code appeared or disappeared",
-        "loading it turns on flush-to-zero for the whole process, so numbers below 1.2e-38 (float32) become zero in every library",
-        "https://github.com/llvm/llvm-project/issues/57589; https://github.com/numpy/numpy/issues/20895";
-    BUILD_DEVICE = "build.device", "python", Retrain, 85,
-        "framework built for another device family (CPU-only against CUDA)",
-        "training runs on other kernels with other precision defaults",
-        "https://pytorch.org/docs/stable/notes/randomness.html; https://github.com/pytorch/pytorch/issues/67384";
-    BUILD_REVISION = "build.revision", "python", Retrain, 75,
-        "framework built from another source revision under the same version",
-        "different code computes under the same version number",
-        "https://pytorch.org/docs/stable/notes/randomness.html";
-    BUILD_GPU = "build.gpu-libraries", "python", Verify, 56,
-        "framework built against another CUDA, cuDNN or ROCm",
-        "it brings other GPU kernels, and cuBLAS and cuDNN promise identical bits only within one version",
-        "https://docs.nvidia.com/cuda/cublas/index.html#results-reproducibility; https://github.com/pytorch/pytorch/issues/28197";
-    BUILD_BLAS = "build.blas", "python", Verify, 52,
-        "framework built against another BLAS or BLAS configuration",
-        "BLAS vendors and builds order floating-point operations differently",
-        "https://github.com/mne-tools/mne-python/issues/4922";
-
-    // --- GPU stack --------------------------------------------------------------------------------
-    GPU_PRESENCE = "gpu.presence", "gpu", Retrain, 88,
-        "GPUs present on one side only",
-        "training runs on other kernels with other precision defaults (TF32 on Ampere and later, nondeterministic atomics)",
-        "https://pytorch.org/docs/stable/notes/randomness.html; https://github.com/pytorch/pytorch/issues/67384";
-    GPU_TOOLKIT = "gpu.toolkit", "gpu", Verify, 56,
-        "CUDA toolkit or runtime version",
-        "another toolkit brings other compilers and libraries; cuBLAS promises identical bits only within one toolkit version",
-        "https://docs.nvidia.com/cuda/cublas/index.html#results-reproducibility; https://github.com/E3SM-Project/E3SM/issues/5314";
-    GPU_CUDNN = "gpu.cudnn", "gpu", Verify, 56,
-        "cuDNN version",
-        "cuDNN picks convolution algorithms by version and heuristics; identical bits are promised only for one version on one architecture",
-        "https://github.com/davidsandberg/facenet/issues/3; https://github.com/allenai/allennlp/issues/387";
-    GPU_CUBLAS = "gpu.cublas", "gpu", Verify, 55,
-        "cuBLAS version",
-        "cuBLAS promises identical bits only for one version on GPUs of one architecture and SM count",
-        "https://docs.nvidia.com/cuda/cublas/index.html#results-reproducibility";
-    GPU_NCCL = "gpu.nccl", "gpu", Verify, 52,
-        "NCCL version",
-        "NCCL's choice of all-reduce algorithm, protocol and channels depends on its version, and each sums in another order",
-        "https://github.com/NVIDIA/nccl/issues/1055; https://github.com/NVIDIA/nccl/issues/1304";
-    GPU_MODEL = "gpu.model", "gpu", Verify, 50,
-        "GPU model",
-        "another architecture or SM count changes kernels and their order of operations",
-        "https://docs.nvidia.com/cuda/cublas/index.html#results-reproducibility";
-    GPU_COUNT = "gpu.count", "gpu", Verify, 50,
-        "number of GPUs",
-        "the split of work, the collective algorithms and the order of sums change with the GPU count",
-        "https://github.com/NVIDIA/nccl/issues/1304";
-    GPU_DRIVER = "gpu.driver", "gpu", Verify, 40,
-        "NVIDIA driver version",
-        "the driver compiles and schedules GPU kernels, and a driver upgrade alone has changed solver convergence",
-        "https://github.com/NVIDIA/AMGX/issues/60";
 }
-
-/// The rule with this id.
-pub fn by_id(id: &str) -> Option<&'static Rule> {
-    RULES.iter().copied().find(|r| r.id == id)
-}
-
-/// Checks that every rule id the policy's acceptances name is a built-in rule: an unknown
-/// id (a typo) would otherwise accept nothing, silently. The error names the file, the line
-/// and the key, as the policy reader's own errors do.
-pub fn check_policy(policy: &Policy) -> Result<(), crate::policy::PolicyError> {
-    for (i, a) in policy.accept.iter().enumerate() {
-        if let Some(rule) = a.rule.as_deref().filter(|r| by_id(r).is_none()) {
-            return Err(crate::policy::PolicyError::Invalid {
-                path: policy
-                    .path
-                    .clone()
-                    .unwrap_or_else(|| crate::policy::POLICY_FILE.into()),
-                line: a.rule_line,
-                key: Some(format!("accept[{i}].rule")),
-                message: format!("unknown rule `{rule}` (`runprint rules` lists them)"),
-            });
-        }
-    }
-    Ok(())
-}
-
-// ------------------------------------------------------------------------------------------------
-// Packages
 
 /// Packages whose code does the arithmetic of training or preprocessing, by lower-case name in
 /// each ecosystem (PEP 503 for Python). Matching is exact after lower-casing.
@@ -1161,8 +878,8 @@ pub fn package_rule(
             && matches!(class.class, PackageClass::Pure | PackageClass::Compiled)
         {
             let rule = match version::classify("oci", old, new) {
-                VersionChange::Patch => &PY_MICRO,
-                _ => &PY_MINOR,
+                VersionChange::Patch => &super::stack::PY_MICRO,
+                _ => &super::stack::PY_MINOR,
             };
             return (rule, format!("{name} ({what}) is the base image's Python"));
         }
@@ -1263,6 +980,76 @@ pub fn package_rule(
 // ------------------------------------------------------------------------------------------------
 // Environment variables
 
+rule_group! {
+    /// The rules of environment variables (the conditions: [`env_rule`] over the classes of `crate::envvars`).
+    ENV_RULES;
+    ENV_PRECISION = "env.precision", "env", Retrain, 90,
+        "precision-mode variable (TF32, bf16 math, XLA fast-math, JAX x64)",
+        "it changes the floating-point precision of the arithmetic (TF32 keeps 10 mantissa bits, about 1e-3 relative error)",
+        "https://pytorch.org/docs/stable/notes/cuda.html; https://github.com/pytorch/pytorch/pull/77114; https://github.com/jax-ml/jax/issues/276";
+    ENV_THREADS = "env.threads", "env", Verify, 62,
+        "thread-count and thread-placement variable",
+        "the number of threads changes how reductions are split, so sums differ in the last digits and iterative training can drift",
+        "https://github.com/pytorch/pytorch/issues/88718; https://github.com/numpy/numpy/issues/25100; https://github.com/scikit-learn/scikit-learn/issues/18790";
+    ENV_COLLECTIVES = "env.collectives", "env", Verify, 58,
+        "NCCL algorithm, protocol or channel variable",
+        "all-reduce algorithms and channel counts sum in another order, which has changed convergence",
+        "https://github.com/NVIDIA/nccl/issues/1055";
+    ENV_DETERMINISM = "env.determinism", "env", Verify, 55,
+        "determinism and autotuning variable",
+        "it switches deterministic algorithms or autotuning on or off, so run-to-run agreement changes",
+        "https://github.com/pytorch/pytorch/pull/41377; https://github.com/NVIDIA/framework-reproducibility; https://docs.nvidia.com/cuda/cublas/index.html#results-reproducibility";
+    ENV_KERNELS = "env.kernels", "env", Verify, 52,
+        "kernel-choice variable (CPU ISA caps, core types, oneDNN)",
+        "it selects which CPU kernels BLAS or the framework dispatch to, and different kernels round differently",
+        "https://github.com/OpenMathLib/OpenBLAS/issues/4510; https://github.com/pytorch/pytorch/issues/155423; https://github.com/tensorflow/tensorflow/issues/56697";
+    ENV_HASHSEED = "env.hash-seed", "env", Verify, 50,
+        "PYTHONHASHSEED",
+        "it fixes or randomizes string hashing, which decides the iteration order of sets that code may turn into vocabularies or label orders",
+        "https://docs.python.org/3/using/cmdline.html#envvar-PYTHONHASHSEED";
+    ENV_LOADER = "env.loader", "env", Verify, 45,
+        "library and package search path variable",
+        "it changes which libraries or packages are loaded, which can swap a numerical library without any lockfile change",
+        "common practice";
+    ENV_DEVICES = "env.devices", "env", Verify, 45,
+        "visible GPU selection",
+        "another GPU or GPU count changes kernels and the split of work",
+        "https://docs.nvidia.com/cuda/cublas/index.html#results-reproducibility";
+    ENV_CODEGEN = "env.codegen", "env", Verify, 40,
+        "code-generation flags (RUSTFLAGS)",
+        "target-CPU flags change which SIMD code paths are compiled in, which rounds differently",
+        "https://github.com/llvm/llvm-project/issues/91824";
+    ENV_OTHER = "env.other", "env", Verify, 30,
+        "other variable of a numerical library or framework",
+        "it configures a library that takes part in the arithmetic",
+        "common practice";
+    ENV_LOCATION = "env.location", "env", None, 3,
+        "location of the active environment or toolkit (VIRTUAL_ENV, CONDA_PREFIX, CUDA_HOME)",
+        "a folder name does not compute; the interpreter, its packages and the CUDA stack are compared in their own sections",
+        "https://docs.python.org/3/library/venv.html";
+    ENV_CACHE = "env.cache", "env", None, 2,
+        "cache or download folder (TORCH_HOME, HF_HOME, XDG_CACHE_HOME...)",
+        "where downloads and compiled kernels are kept does not change them; the data and packages themselves are compared",
+        "https://pytorch.org/docs/stable/hub.html#where-are-my-downloaded-models-saved; https://specifications.freedesktop.org/basedir-spec/latest/";
+    ENV_NOT_NUMERIC = "env.not-numerical", "env", None, 1,
+        "variable no numerical library reads (recorded by an older runprint)",
+        "runprint records only variables of numerical libraries; this one (Terraform's TF_CLI_*, for one) is not",
+        "https://developer.hashicorp.com/terraform/cli/config/environment-variables";
+    ENV_LOGGING = "env.logging", "env", None, 2,
+        "logging and verbosity variable",
+        "it only changes messages",
+        "common practice";
+    ENV_IRRELEVANT = "env.irrelevant", "env", None, 1,
+        "variable the policy marks irrelevant",
+        "the repository's policy file says it does not affect results",
+        "runprint.toml of the repository";
+    ENV_CREDENTIAL = "env.credential", "env", None, 0,
+        "credential variable set or unset",
+        "a credential's presence does not change results (its value is never recorded)",
+        "common practice";
+
+}
+
 /// The rule for a variable of a class.
 pub fn env_class_rule(class: EnvClass) -> &'static Rule {
     match class {
@@ -1299,6 +1086,87 @@ pub fn env_rule(name: &str, policy: &Policy) -> &'static Rule {
 
 // ------------------------------------------------------------------------------------------------
 // Paths
+
+rule_group! {
+    /// The rules of changed files and the commit (the conditions: [`path_class`], [`git_rule`] and `diff/git.rs`).
+    GIT_RULES;
+    GIT_DATA = "git.data", "git", Retrain, 98,
+        "data files tracked in the repository changed",
+        "the training data changed, and a model trained on different data is a different model",
+        "common practice";
+    GIT_CODE = "git.code", "git", Retrain, 95,
+        "training code changed",
+        "the program that computes the model changed",
+        "common practice";
+    GIT_CONFIG = "git.config", "git", Retrain, 93,
+        "training configuration changed",
+        "configuration files set hyperparameters, seeds and data splits, so the computation changed",
+        "common practice";
+    GIT_UNLISTED = "git.unlisted", "git", Retrain, 90,
+        "commit changed and the changed files cannot be listed",
+        "without the list of changed files a change to training code cannot be ruled out",
+        "common practice";
+    GIT_SUBMODULE = "git.submodule", "git", Retrain, 80,
+        "submodule commit changed",
+        "a submodule holds vendored code built or imported by training, so other code runs",
+        "common practice";
+    GIT_PRESENCE = "git.presence", "git", Verify, 40,
+        "source control recorded on one side only",
+        "only one side was stamped inside a git repository, so the code cannot be compared",
+        "common practice";
+    GIT_DEPENDENCIES = "git.dependencies", "git", None, 4,
+        "only lockfiles, dependency manifests and dependency inputs changed in the code",
+        "what they resolve to is compared package by package under `lockfiles` and `python`, which decides the impact",
+        "common practice";
+    GIT_OUT_OF_SCOPE = "git.out-of-scope", "git", None, 3,
+        "only files outside the training job's scope changed",
+        "they are not imported by the training entry points and are not configuration or data the job reads",
+        "runprint.toml or --entry of the repository";
+    GIT_BUILD = "git.build", "git", None, 3,
+        "only container, build or environment recipes changed (Dockerfile, Makefile, Nix)",
+        "they install and launch the job: what they install is compared as packages, base images and the numerical stack, and the variables they set under `env`",
+        "common practice";
+    GIT_TESTS = "git.tests", "git", None, 3,
+        "only tests or benchmarks changed",
+        "the training job does not import its test suite or benchmarks",
+        "https://docs.pytest.org/en/stable/explanation/goodpractices.html#conventions-for-python-test-discovery; https://pkg.go.dev/cmd/go#hdr-Test_packages";
+    GIT_CI = "git.ci", "git", None, 3,
+        "only continuous-integration workflows changed",
+        "workflows run checks on the repository; the training job does not read them",
+        "https://docs.github.com/en/actions/writing-workflows/workflow-syntax-for-github-actions";
+    GIT_NOTEBOOKS = "git.notebooks", "git", None, 2,
+        "only notebooks changed",
+        "notebooks are run by hand and not imported by the training job (name one as an entry point or under paths.code when it is)",
+        "common practice";
+    GIT_METADATA = "git.metadata", "git", None, 2,
+        "only repository metadata or developer-tool settings changed",
+        "attributes, editor, linter, ownership and template files do not change what the job computes",
+        "https://git-scm.com/docs/gitattributes; https://editorconfig.org/";
+    GIT_UNCHANGED = "git.unchanged", "git", None, 1,
+        "only renames or mode changes with identical content",
+        "the same bytes under another name or mode compute the same thing",
+        "https://git-scm.com/docs/git-diff#Documentation/git-diff.txt---find-renamesltngt";
+    GIT_DOCS = "git.docs", "git", None, 2,
+        "only documentation changed",
+        "training does not read documentation, licences or changelogs",
+        "common practice";
+    GIT_IRRELEVANT = "git.irrelevant", "git", None, 1,
+        "only paths the policy marks irrelevant changed",
+        "the repository's policy file says training does not read these paths",
+        "runprint.toml of the repository";
+    GIT_EMPTY = "git.empty", "git", None, 0,
+        "commit changed without changing any file",
+        "the two commits hold the same files, so the same code runs",
+        "common practice";
+    GIT_BRANCH = "git.branch", "git", None, 0,
+        "branch name changed",
+        "a branch name does not change the code that runs; the commit does",
+        "common practice";
+    GIT_REMOTE = "git.remote", "git", None, 0,
+        "remote URL changed",
+        "where the repository was cloned from does not change the code that runs",
+        "common practice";
+}
 
 /// Paths whose change cannot alter training: documentation and licences. Common practice.
 pub fn is_documentation_path(path: &str) -> bool {
@@ -1632,15 +1500,14 @@ pub fn render_table(format: TableFormat) -> String {
     let mut out = String::new();
     match format {
         TableFormat::Text => {
-            for r in RULES {
+            for r in all() {
                 let _ = writeln!(out, "{:<7}  {}  ({})", r.impact.as_str(), r.id, r.title);
                 let _ = writeln!(out, "         {}", r.reason);
                 let _ = writeln!(out, "         source: {}", r.source);
             }
         }
         TableFormat::Json => {
-            let rows: Vec<serde_json::Value> = RULES
-                .iter()
+            let rows: Vec<serde_json::Value> = all()
                 .map(|r| {
                     serde_json::json!({
                         "id": r.id, "section": r.section, "title": r.title,
@@ -1656,7 +1523,7 @@ pub fn render_table(format: TableFormat) -> String {
             out.push_str(MARKDOWN_HEAD);
             out.push_str("\n| rule | what changed | impact | weight | why | source |\n|---|---|---|---|---|---|\n");
             let cell = |s: &str| s.replace('|', "\\|");
-            for r in RULES {
+            for r in all() {
                 let sources = r
                     .source
                     .split("; ")
@@ -1724,12 +1591,12 @@ mod tests {
 
     #[test]
     fn ids_are_unique_and_every_rule_has_a_source_and_a_sentence() {
-        let mut ids: Vec<&str> = RULES.iter().map(|r| r.id).collect();
+        let mut ids: Vec<&str> = all().map(|r| r.id).collect();
         ids.sort_unstable();
         let before = ids.len();
         ids.dedup();
         assert_eq!(before, ids.len(), "duplicate rule ids");
-        for r in RULES {
+        for r in all() {
             assert!(!r.reason.is_empty() && !r.source.is_empty() && !r.title.is_empty());
             assert!(r.weight <= 100, "{}", r.id);
             assert!(

@@ -25,6 +25,119 @@ use super::rules::{self, PackageChange, Rule};
 use super::{Change, Context, Section};
 use crate::manifest::{Content, FrameworkBuild, GpuInfo, NativeLibrary, PythonEnv};
 
+rule_group! {
+    /// The rules of the Python interpreter (the conditions: `compare_python` below).
+    PYTHON_RULES;
+    PY_IMPLEMENTATION = "python.implementation", "python", Retrain, 72,
+        "Python implementation",
+        "another implementation runs the code with its own numeric built-ins, hashing and random streams",
+        "https://docs.python.org/3/library/random.html#notes-on-reproducibility";
+    PY_MINOR = "python.minor", "python", Retrain, 70,
+        "Python minor version",
+        "a new minor release may change the streams of random's shuffle, sample and choice (only random() is kept stable), so data order changes",
+        "https://docs.python.org/3/library/random.html#notes-on-reproducibility";
+    PY_MICRO = "python.micro", "python", Verify, 30,
+        "Python bug-fix version",
+        "bug-fix releases keep random streams stable but can fix numeric code in the standard library",
+        "https://docs.python.org/3/library/random.html#notes-on-reproducibility";
+    PY_ONE_SIDE = "python.one-side", "python", Verify, 40,
+        "Python environment recorded on one side only",
+        "its packages cannot be compared",
+        "common practice";
+    PY_PATH = "python.path", "python", None, 0,
+        "interpreter location",
+        "the location does not change results; its version and packages are compared separately",
+        "common practice";
+    PY_CONDA_BLAS = "python.conda-blas", "python", Verify, 58,
+        "conda BLAS selector package (libblas, blas)",
+        "its build names the BLAS every package in the environment uses, and vendors order floating-point operations differently",
+        "https://github.com/mne-tools/mne-python/issues/4922";
+
+}
+
+rule_group! {
+    /// The rules of native libraries and framework builds (the conditions: the comparisons below).
+    NATIVE_RULES;
+    BLAS_KNOWN_BAD = "native.blas.known-bad", "native", Retrain, 95,
+        "BLAS release known to compute wrong results",
+        "the new BLAS is a release with a documented wrong-result bug",
+        "https://github.com/OpenMathLib/OpenBLAS/issues/2182; https://github.com/OpenMathLib/OpenBLAS/issues/2914; https://github.com/numpy/numpy/issues/29391";
+    BLAS_VENDOR = "native.blas.vendor", "native", Verify, 62,
+        "BLAS/LAPACK vendor",
+        "vendors order floating-point operations differently, and iterative algorithms amplify that (ICA components flipped between MKL and OpenBLAS)",
+        "https://github.com/mne-tools/mne-python/issues/4922; https://github.com/JuliaLinearAlgebra/MKL.jl/issues/141";
+    BLAS_VERSION = "native.blas.version", "native", Verify, 56,
+        "BLAS version or build (threading layer, integer width, thread limit, kernels)",
+        "each changes blocking, kernels or how reductions are split (an ILP64 build gave other float32 results than LP64)",
+        "https://github.com/OpenMathLib/OpenBLAS/issues/2779; https://github.com/OpenMathLib/OpenBLAS/issues/5735";
+    BLAS_ONE_SIDE = "native.blas.one-side", "native", Verify, 50,
+        "BLAS or OpenMP runtime present on one side only",
+        "the code that does linear algebra or runs threads differs",
+        "https://github.com/mne-tools/mne-python/issues/4922";
+    OPENMP_RUNTIME = "native.openmp", "native", Verify, 46,
+        "OpenMP runtime or its version",
+        "each runtime reads its own variables, sizes its thread pool and splits parallel reductions its own way",
+        "https://github.com/numpy/numpy/issues/25100";
+    FAST_MATH = "native.fast-math", "native", Retrain, 88,
+        "compiled module with fast-math start-up code appeared or disappeared",
+        "loading it turns on flush-to-zero for the whole process, so numbers below 1.2e-38 (float32) become zero in every library",
+        "https://github.com/llvm/llvm-project/issues/57589; https://github.com/numpy/numpy/issues/20895";
+    BUILD_DEVICE = "build.device", "python", Retrain, 85,
+        "framework built for another device family (CPU-only against CUDA)",
+        "training runs on other kernels with other precision defaults",
+        "https://pytorch.org/docs/stable/notes/randomness.html; https://github.com/pytorch/pytorch/issues/67384";
+    BUILD_REVISION = "build.revision", "python", Retrain, 75,
+        "framework built from another source revision under the same version",
+        "different code computes under the same version number",
+        "https://pytorch.org/docs/stable/notes/randomness.html";
+    BUILD_GPU = "build.gpu-libraries", "python", Verify, 56,
+        "framework built against another CUDA, cuDNN or ROCm",
+        "it brings other GPU kernels, and cuBLAS and cuDNN promise identical bits only within one version",
+        "https://docs.nvidia.com/cuda/cublas/index.html#results-reproducibility; https://github.com/pytorch/pytorch/issues/28197";
+    BUILD_BLAS = "build.blas", "python", Verify, 52,
+        "framework built against another BLAS or BLAS configuration",
+        "BLAS vendors and builds order floating-point operations differently",
+        "https://github.com/mne-tools/mne-python/issues/4922";
+
+}
+
+rule_group! {
+    /// The rules of the GPU stack (the conditions: `compare_gpu` below).
+    GPU_RULES;
+    GPU_PRESENCE = "gpu.presence", "gpu", Retrain, 88,
+        "GPUs present on one side only",
+        "training runs on other kernels with other precision defaults (TF32 on Ampere and later, nondeterministic atomics)",
+        "https://pytorch.org/docs/stable/notes/randomness.html; https://github.com/pytorch/pytorch/issues/67384";
+    GPU_TOOLKIT = "gpu.toolkit", "gpu", Verify, 56,
+        "CUDA toolkit or runtime version",
+        "another toolkit brings other compilers and libraries; cuBLAS promises identical bits only within one toolkit version",
+        "https://docs.nvidia.com/cuda/cublas/index.html#results-reproducibility; https://github.com/E3SM-Project/E3SM/issues/5314";
+    GPU_CUDNN = "gpu.cudnn", "gpu", Verify, 56,
+        "cuDNN version",
+        "cuDNN picks convolution algorithms by version and heuristics; identical bits are promised only for one version on one architecture",
+        "https://github.com/davidsandberg/facenet/issues/3; https://github.com/allenai/allennlp/issues/387";
+    GPU_CUBLAS = "gpu.cublas", "gpu", Verify, 55,
+        "cuBLAS version",
+        "cuBLAS promises identical bits only for one version on GPUs of one architecture and SM count",
+        "https://docs.nvidia.com/cuda/cublas/index.html#results-reproducibility";
+    GPU_NCCL = "gpu.nccl", "gpu", Verify, 52,
+        "NCCL version",
+        "NCCL's choice of all-reduce algorithm, protocol and channels depends on its version, and each sums in another order",
+        "https://github.com/NVIDIA/nccl/issues/1055; https://github.com/NVIDIA/nccl/issues/1304";
+    GPU_MODEL = "gpu.model", "gpu", Verify, 50,
+        "GPU model",
+        "another architecture or SM count changes kernels and their order of operations",
+        "https://docs.nvidia.com/cuda/cublas/index.html#results-reproducibility";
+    GPU_COUNT = "gpu.count", "gpu", Verify, 50,
+        "number of GPUs",
+        "the split of work, the collective algorithms and the order of sums change with the GPU count",
+        "https://github.com/NVIDIA/nccl/issues/1304";
+    GPU_DRIVER = "gpu.driver", "gpu", Verify, 40,
+        "NVIDIA driver version",
+        "the driver compiles and schedules GPU kernels, and a driver upgrade alone has changed solver convergence",
+        "https://github.com/NVIDIA/AMGX/issues/60";
+}
+
 fn change(
     rule: &'static Rule,
     section: Section,
@@ -60,7 +173,7 @@ fn compare_python(old: &[PythonEnv], new: &[PythonEnv], ctx: &Context<'_>, out: 
         match (old.get(i), new.get(i)) {
             (Some(o), Some(n)) => compare_env(&label, o, n, ctx, out),
             (o, n) => out.push(change(
-                &rules::PY_ONE_SIDE,
+                &PY_ONE_SIDE,
                 Section::Python,
                 format!("{label} environment"),
                 String::new(),
@@ -84,7 +197,7 @@ fn compare_env(
 ) {
     if o.implementation != n.implementation {
         out.push(change(
-            &rules::PY_IMPLEMENTATION,
+            &PY_IMPLEMENTATION,
             Section::Python,
             format!("{label} implementation"),
             String::new(),
@@ -98,9 +211,9 @@ fn compare_env(
             n.version.as_deref().unwrap_or(""),
         );
         let rule = if minor(a) != minor(b) {
-            &rules::PY_MINOR
+            &PY_MINOR
         } else {
-            &rules::PY_MICRO
+            &PY_MICRO
         };
         out.push(change(
             rule,
@@ -113,7 +226,7 @@ fn compare_env(
     }
     if o.interpreter != n.interpreter {
         out.push(change(
-            &rules::PY_PATH,
+            &PY_PATH,
             Section::Python,
             format!("{label} interpreter path"),
             String::new(),
@@ -216,7 +329,7 @@ fn compare_conda(
         let subject = format!("{label}: conda {name}");
         if matches!(name.as_str(), "libblas" | "libcblas" | "liblapack" | "blas") {
             out.push(change(
-                &rules::PY_CONDA_BLAS,
+                &PY_CONDA_BLAS,
                 Section::Python,
                 subject,
                 String::new(),
@@ -272,9 +385,9 @@ fn compare_builds<'a>(
                 )
             };
             let rule = if a.cuda.is_some() != b.cuda.is_some() {
-                &rules::BUILD_DEVICE
+                &BUILD_DEVICE
             } else {
-                &rules::BUILD_GPU
+                &BUILD_GPU
             };
             out.push(change(
                 rule,
@@ -287,7 +400,7 @@ fn compare_builds<'a>(
         }
         if a.git_revision != b.git_revision && a.version == b.version {
             out.push(change(
-                &rules::BUILD_REVISION,
+                &BUILD_REVISION,
                 Section::Python,
                 format!("{label}: {name} source revision"),
                 String::new(),
@@ -297,7 +410,7 @@ fn compare_builds<'a>(
         }
         if (&a.blas, &a.blas_config) != (&b.blas, &b.blas_config) {
             out.push(change(
-                &rules::BUILD_BLAS,
+                &BUILD_BLAS,
                 Section::Python,
                 format!("{label}: {name} BLAS build"),
                 String::new(),
@@ -390,21 +503,18 @@ fn compare_native<'a>(old: &'a Content, new: &'a Content, out: &mut Vec<Change>)
             .filter(|l| l.implementation == "openblas")
             .find_map(|l| rules::known_bad_openblas(l.version.as_deref()?));
         let (rule, lead) = if let Some(bad) = bad {
-            (&rules::BLAS_KNOWN_BAD, bad.to_string())
+            (&BLAS_KNOWN_BAD, bad.to_string())
         } else if a.is_empty() || b.is_empty() {
-            (&rules::BLAS_ONE_SIDE, format!("{what} of {owner}"))
+            (&BLAS_ONE_SIDE, format!("{what} of {owner}"))
         } else if role != "blas" {
-            (&rules::OPENMP_RUNTIME, format!("{what} of {owner}"))
+            (&OPENMP_RUNTIME, format!("{what} of {owner}"))
         } else if a.iter().map(|l| &l.implementation).collect::<Vec<_>>()
             != b.iter().map(|l| &l.implementation).collect::<Vec<_>>()
         {
-            (
-                &rules::BLAS_VENDOR,
-                format!("{owner} uses another BLAS vendor"),
-            )
+            (&BLAS_VENDOR, format!("{owner} uses another BLAS vendor"))
         } else {
             (
-                &rules::BLAS_VERSION,
+                &BLAS_VERSION,
                 format!("{owner}'s {what} changed version or build"),
             )
         };
@@ -425,7 +535,7 @@ fn compare_native<'a>(old: &'a Content, new: &'a Content, out: &mut Vec<Change>)
     let (of, nf) = (fm(old), fm(new));
     for (owner, path) in nf.difference(&of) {
         out.push(change(
-            &rules::FAST_MATH,
+            &FAST_MATH,
             Section::Native,
             format!("fast-math module {path}"),
             format!("{owner} now ships a compiled module with fast-math start-up code"),
@@ -435,7 +545,7 @@ fn compare_native<'a>(old: &'a Content, new: &'a Content, out: &mut Vec<Change>)
     }
     for (owner, path) in of.difference(&nf) {
         out.push(change(
-            &rules::FAST_MATH,
+            &FAST_MATH,
             Section::Native,
             format!("fast-math module {path}"),
             format!("the fast-math module of {owner} is gone, so subnormals are no longer flushed"),
@@ -448,7 +558,7 @@ fn compare_native<'a>(old: &'a Content, new: &'a Content, out: &mut Vec<Change>)
 fn compare_gpu(o: &GpuInfo, n: &GpuInfo, out: &mut Vec<Change>) {
     if o.nvidia_driver != n.nvidia_driver {
         out.push(change(
-            &rules::GPU_DRIVER,
+            &GPU_DRIVER,
             Section::Gpu,
             "NVIDIA driver".into(),
             String::new(),
@@ -469,7 +579,7 @@ fn compare_gpu(o: &GpuInfo, n: &GpuInfo, out: &mut Vec<Change>) {
     };
     if tk(o) != tk(n) {
         out.push(change(
-            &rules::GPU_TOOLKIT,
+            &GPU_TOOLKIT,
             Section::Gpu,
             "CUDA toolkit".into(),
             String::new(),
@@ -492,10 +602,10 @@ fn compare_gpu(o: &GpuInfo, n: &GpuInfo, out: &mut Vec<Change>) {
             continue;
         }
         let rule = match k.0.as_str() {
-            "cudnn" => &rules::GPU_CUDNN,
-            "cublas" => &rules::GPU_CUBLAS,
-            "nccl" => &rules::GPU_NCCL,
-            _ => &rules::GPU_TOOLKIT,
+            "cudnn" => &GPU_CUDNN,
+            "cublas" => &GPU_CUBLAS,
+            "nccl" => &GPU_NCCL,
+            _ => &GPU_TOOLKIT,
         };
         let join = |s: Option<&BTreeSet<String>>| {
             s.map(|s| s.iter().cloned().collect::<Vec<_>>().join(", "))
@@ -517,11 +627,11 @@ fn compare_gpu(o: &GpuInfo, n: &GpuInfo, out: &mut Vec<Change>) {
     let (od, nd) = (devs(o), devs(n));
     if od != nd {
         let rule = if od.is_empty() || nd.is_empty() {
-            &rules::GPU_PRESENCE
+            &GPU_PRESENCE
         } else if od.len() != nd.len() {
-            &rules::GPU_COUNT
+            &GPU_COUNT
         } else {
-            &rules::GPU_MODEL
+            &GPU_MODEL
         };
         out.push(change(
             rule,
