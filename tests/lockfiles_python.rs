@@ -543,3 +543,117 @@ fn requirement_lines_are_accepted_as_pips_parser_accepts_them() {
         assert!(parsed.packages.iter().any(|p| p.name == "kept"), "{line}");
     }
 }
+
+/// Lines pip reads that are not `NAME SPECIFIER` (local projects with and without extras, a
+/// bare VCS URL with `@ref`, a VCS URL with `#egg=` and `#subdirectory=`, a percent-encoded
+/// wheel URL, `-e`): pip's own requirement-line reader (`install_req_from_line` and
+/// `install_req_from_editable` of pip 26.3, the version `.ci/run` installs) is the reference.
+/// Every line pip accepts keeps the file; where pip knows the name runprint records the same
+/// (PEP 503 normalized), the version of a wheel is the one pip reads from its file name
+/// (`Wheel(link.filename).version`), and the source is the location as written.
+#[test]
+fn lines_pip_reads_keep_the_file_and_agree_with_pip() {
+    let Some(python) = tool("python") else {
+        return;
+    };
+    let dir = tempfile::tempdir().unwrap();
+    // Local projects, as pip requires them to exist (a `pyproject.toml` each).
+    for project in ["", "libs/mylib", "libs/gpu_ops"] {
+        let folder = dir.path().join(project);
+        std::fs::create_dir_all(&folder).unwrap();
+        std::fs::write(
+            folder.join("pyproject.toml"),
+            "[project]\nname = \"kelp-local\"\nversion = \"0.1\"\n",
+        )
+        .unwrap();
+    }
+    let lines = [
+        ".",
+        ".[ci]",
+        "./libs/mylib",
+        "./libs/gpu_ops[cuda]",
+        "-e ./libs/mylib",
+        "git+https://git.invalid/org/transformers@v4.40.0",
+        "git+https://git.invalid/org/kernels.git@0123abc#egg=kelp-kernels&subdirectory=py",
+        "https://files.invalid/whl/torch-2.3.1%2Bcpu-cp311-cp311-linux_x86_64.whl",
+        "kelp-tools @ git+https://git.invalid/org/tools@v2 ; python_version >= \"3.10\"",
+    ];
+    let script = r#"
+import json, sys
+from pip._internal.req.constructors import install_req_from_line, install_req_from_editable
+from pip._internal.models.wheel import Wheel
+out = []
+for line in json.load(sys.stdin):
+    if line.startswith("-e "):
+        r = install_req_from_editable(line[3:])
+    else:
+        r = install_req_from_line(line)
+    name = r.name
+    version = None
+    if r.link is not None and r.link.filename.endswith(".whl"):
+        w = Wheel(r.link.filename)
+        name, version = w.name, str(w.version)
+    out.append({"name": name, "version": version})
+print(json.dumps(out))
+"#;
+    let mut child = Command::new(&python)
+        .args(["-c", script])
+        .current_dir(dir.path())
+        .stdin(std::process::Stdio::piped())
+        .stdout(std::process::Stdio::piped())
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    use std::io::Write;
+    child
+        .stdin
+        .take()
+        .unwrap()
+        .write_all(serde_json::to_string(&lines).unwrap().as_bytes())
+        .unwrap();
+    let out = child.wait_with_output().unwrap();
+    assert!(
+        out.status.success(),
+        "pip refused a line: {}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let pip: Vec<serde_json::Value> = serde_json::from_slice(&out.stdout).unwrap();
+    let normalize = runprint::lockfile::requirements::normalize_name;
+    for (line, pip) in lines.iter().zip(&pip) {
+        let text = format!("{line}\nkept==1.0\n");
+        let parsed = Format::Requirements
+            .parse(&text, "requirements.txt")
+            .unwrap_or_else(|e| panic!("{line}: the whole file was refused: {e}"));
+        assert!(parsed.packages.iter().any(|p| p.name == "kept"), "{line}");
+        let mine: Vec<_> = parsed
+            .packages
+            .iter()
+            .filter(|p| p.name != "kept")
+            .collect();
+        match pip["name"].as_str() {
+            Some(name) => {
+                assert_eq!(mine.len(), 1, "{line}: {:?}", parsed.warnings);
+                assert_eq!(mine[0].name, normalize(name), "{line}");
+                if let Some(v) = pip["version"].as_str() {
+                    assert_eq!(mine[0].version, v, "{line}");
+                }
+            }
+            // pip reads the name from the project's metadata: runprint records the location
+            // under the name it suggests, or warns for that line when it suggests none (`.`).
+            // The file's own folder (`.`, `.[ci]`) is the repository's code, which the git
+            // section records: nothing is added for it, and nothing is warned.
+            None => {
+                let written = line.trim_start_matches("-e ");
+                if written == "." || written.starts_with(".[") {
+                    assert!(mine.is_empty() && parsed.warnings.is_empty(), "{line}");
+                    continue;
+                }
+                assert!(mine.len() == 1 || parsed.warnings.len() == 1, "{line}");
+                if let Some(p) = mine.first() {
+                    let source = p.source.as_deref().unwrap_or_default();
+                    assert!(source.ends_with(written), "{line}: {source}");
+                }
+            }
+        }
+    }
+}

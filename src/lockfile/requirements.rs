@@ -7,18 +7,24 @@
 //! * a requirement is `NAME[EXTRAS] SPECIFIER ; MARKER --hash=ALGO:DIGEST ...`, or
 //!   `NAME[EXTRAS] @ URL ; MARKER`; the marker is recorded as the entry's `platform`;
 //! * a bare URL or path (`git+https://host/repo@REV#egg=NAME`, `https://…/pkg-1.0-py3-none-any.whl`,
-//!   `./dist/pkg-1.0.tar.gz`) is a direct reference: the name comes from `#egg=` or the archive's
-//!   file name, the version from the archive's file name where it has one, and the URL
-//!   (credentials removed) becomes the source;
-//! * `-e`/`--editable` lines name a local path or VCS URL (`#egg=NAME` gives the name, else the
-//!   last path segment); an editable `.` has no name in the file and is reported as a warning;
+//!   `./dist/pkg-1.0.tar.gz`, `./libs/mylib[extra]`, `.`) is a direct reference: the name comes
+//!   from `#egg=`, else the archive's file name (percent-decoded), else the repository or folder
+//!   it names (`…/transformers@v4.40.0` → `transformers`); the version from the archive's file
+//!   name where it has one, and the URL (credentials removed) becomes the source. `.` and
+//!   `.[extras]` install the project of the file's own folder, repository code that the git
+//!   section records, and add nothing; another location that names nothing (`..`, a plain
+//!   download URL) is a warning for its line;
+//! * `-e`/`--editable` lines name a local path or VCS URL, named the same way;
 //! * `-r FILE`/`--requirement FILE` and `-c FILE`/`--constraint FILE` are returned in
 //!   [`Parsed::includes`] for the caller to read (pip resolves them relative to this file);
 //! * other option lines (`-i`, `--index-url`, `--find-links`…) are not packages and are skipped;
 //!   their values may hold credentials and are never recorded.
 //!
-//! Not supported: `${VAR}` expansion (the parser is pure and never reads the environment), and
-//! PEP 263 encodings other than UTF-8.
+//! A line pip would refuse, or that is cut short, is a warning naming the file and the line;
+//! the file's other lines are kept.
+//!
+//! Not supported: `${VAR}` expansion (the parser is pure and never reads the environment: the
+//! reference itself is recorded, never a value), and PEP 263 encodings other than UTF-8.
 //!
 //! Names are normalized as PEP 503 says: lower case, runs of `-`, `_`, `.` become one `-`.
 
@@ -69,13 +75,16 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
         if line.is_empty() {
             continue;
         }
+        let refused = |why: &str| {
+            format!("`{path}`, line {line_no}: not a requirement pip reads: {why}; not recorded")
+        };
         if let Some(rest) = option_value(line, "-e", "--editable") {
-            match editable(rest, path, line_no)? {
-                Some(p) => packages.push(p),
-                None => warnings.push(format!(
-                    "`{path}`, line {line_no}: editable `{}` names no package (no `#egg=`); not recorded",
-                    scrub_url_credentials(rest)
-                )),
+            if strip_trailing_extras(rest) == "." {
+                continue; // the repository's own project, as below
+            }
+            match editable(rest) {
+                Ok(p) => packages.push(p),
+                Err(why) => warnings.push(format!("`{path}`, line {line_no}: {why}; not recorded")),
             }
             continue;
         }
@@ -84,11 +93,8 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
         {
             if let Some(target) = option_value(line, short, long) {
                 if target.is_empty() {
-                    return Err(LockfileError::at(
-                        path,
-                        Some(line_no),
-                        format!("`{short}` without a file name"),
-                    ));
+                    warnings.push(refused(&format!("`{short}` without a file name")));
+                    continue;
                 }
                 includes.push(Include {
                     target: target.to_string(),
@@ -99,13 +105,19 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
         if line.starts_with('-') {
             continue;
         }
-        match requirement(line, path, line_no)? {
-            Line::Package(p) => packages.push(p),
-            // A specifier pip would refuse (two requirements on one line, a stray word) is
-            // that line's problem alone: the file's other pins are kept.
-            Line::Refused(why) => warnings.push(format!(
-                "`{path}`, line {line_no}: not a requirement pip reads: {why}; not recorded"
-            )),
+        // A line that cannot be read (a specifier pip would refuse, a cut line, a malformed
+        // hash) is that line's problem alone: the file's other pins are kept.
+        // `.` (with extras or not) installs the project of the file's own folder: code of
+        // the repository, which the manifest records through git; nothing to add here.
+        if strip_trailing_extras(line.split_whitespace().next().unwrap_or_default()) == "." {
+            continue;
+        }
+        match requirement(line) {
+            Ok(Line::Package(p)) => packages.push(p),
+            Ok(Line::Unnamed(why)) => {
+                warnings.push(format!("`{path}`, line {line_no}: {why}; not recorded"))
+            }
+            Err(why) => warnings.push(refused(&why)),
         }
     }
     crate::lockfile::python::sort_packages(&mut packages);
@@ -178,10 +190,14 @@ fn strip_comment(line: &str) -> &str {
 /// `NAME SPECIFIER` requirement?
 fn is_direct_reference(req: &str) -> bool {
     let lower = req.to_ascii_lowercase();
+    let local = strip_trailing_extras(&lower);
     lower.contains("://")
-        || ["git+", "hg+", "svn+", "bzr+", "./", "../", "/", "~/"]
-            .iter()
-            .any(|p| lower.starts_with(p))
+        || matches!(local, "." | ".." | "~")
+        || [
+            "git+", "hg+", "svn+", "bzr+", "file:", "./", "../", "/", "~/", ".\\", "..\\",
+        ]
+        .iter()
+        .any(|p| lower.starts_with(p))
         || [".whl", ".tar.gz", ".zip", ".tar.bz2", ".tgz"]
             .iter()
             .any(|s| lower.split('#').next().unwrap_or("").ends_with(s))
@@ -204,15 +220,15 @@ fn split_marker(req: &str) -> (&str, Option<&str>) {
     }
 }
 
-/// What a requirement line gives: a package, or a refusal of that line alone (a specifier pip
-/// would refuse) with its reason. Damage that makes the file unreadable is an error.
+/// What a requirement line gives: a package, or a line pip reads that names no package in
+/// the file (a local project such as `.`, whose name is in its own metadata), with why.
 enum Line {
     Package(Package),
-    Refused(String),
+    Unnamed(String),
 }
 
-fn requirement(line: &str, path: &str, line_no: usize) -> Result<Line, LockfileError> {
-    let err = |m: String| LockfileError::at(path, Some(line_no), m);
+/// Reads one requirement line; `Err` says why pip would refuse it.
+fn requirement(line: &str) -> Result<Line, String> {
     // Split off `--hash` options, which pip allows after the requirement.
     let mut hashes = Vec::new();
     let mut req_part = String::new();
@@ -223,7 +239,7 @@ fn requirement(line: &str, path: &str, line_no: usize) -> Result<Line, LockfileE
         } else if tok == "--hash" {
             tokens
                 .next()
-                .ok_or_else(|| err("`--hash` without a value".into()))?
+                .ok_or_else(|| "`--hash` without a value".to_string())?
         } else if tok.starts_with("--") {
             // Per-requirement options such as --config-settings: not part of the identity.
             continue;
@@ -232,11 +248,8 @@ fn requirement(line: &str, path: &str, line_no: usize) -> Result<Line, LockfileE
             req_part.push(' ');
             continue;
         };
-        let h = normalize_hash(raw_hash).ok_or_else(|| {
-            err(format!(
-                "malformed hash `{raw_hash}` (expected ALGORITHM:HEXDIGEST)"
-            ))
-        })?;
+        let h = normalize_hash(raw_hash)
+            .ok_or_else(|| format!("malformed hash `{raw_hash}` (expected ALGORITHM:HEXDIGEST)"))?;
         hashes.push(h);
     }
     tidy_hashes(&mut hashes);
@@ -250,11 +263,11 @@ fn requirement(line: &str, path: &str, line_no: usize) -> Result<Line, LockfileE
     }) {
         let name = strip_extras(name.trim());
         if !is_valid_name(name) {
-            return Err(err(format!("`{name}` is not a valid package name")));
+            return Err(format!("`{name}` is not a valid package name"));
         }
         let url = url.trim();
         if url.is_empty() {
-            return Err(err(format!("`{name} @` has no URL")));
+            return Err(format!("`{name} @` has no URL"));
         }
         return Ok(Line::Package(Package {
             name: normalize_name(name),
@@ -268,18 +281,19 @@ fn requirement(line: &str, path: &str, line_no: usize) -> Result<Line, LockfileE
         }));
     }
 
-    // A bare URL, VCS URL or path.
+    // A bare URL, VCS URL or local path.
     if is_direct_reference(req) {
         let from_file = archive_name_version(req);
-        let name = egg_name(req)
+        let Some(name) = egg_name(req)
             .map(str::to_string)
             .or_else(|| from_file.as_ref().map(|(n, _)| n.clone()))
-            .ok_or_else(|| {
-                err(format!(
-                    "cannot tell the package name of `{}` (add `#egg=NAME` or write `NAME @ URL`)",
-                    scrub_url_credentials(req)
-                ))
-            })?;
+            .or_else(|| project_name_from_location(req))
+        else {
+            return Ok(Line::Unnamed(format!(
+                "`{}` is a local project whose name is in its own metadata, not in the file",
+                scrub_url_credentials(req)
+            )));
+        };
         return Ok(Line::Package(Package {
             name: normalize_name(&name),
             version: from_file.map(|(_, v)| v).unwrap_or_default(),
@@ -295,16 +309,16 @@ fn requirement(line: &str, path: &str, line_no: usize) -> Result<Line, LockfileE
         .unwrap_or(req.len());
     let name = &req[..name_end];
     if !is_valid_name(name) {
-        return Err(err(format!(
+        return Err(format!(
             "`{}` does not start with a valid package name",
             req.chars().take(40).collect::<String>()
-        )));
+        ));
     }
     let mut rest = req[name_end..].trim_start();
     if rest.starts_with('[') {
         let close = rest
             .find(']')
-            .ok_or_else(|| err("unclosed `[` in extras".into()))?;
+            .ok_or_else(|| "unclosed `[` in extras".to_string())?;
         rest = rest[close + 1..].trim_start();
     }
     // Whitespace may stand around operators and commas, never inside a version: two words
@@ -322,18 +336,18 @@ fn requirement(line: &str, path: &str, line_no: usize) -> Result<Line, LockfileE
     if let Some(inner) = spec.strip_prefix('(').and_then(|s| s.strip_suffix(')')) {
         spec = inner.to_string();
     }
-    // A bare `==` is a line cut short (a truncated file), not a specifier to skip.
+    // A bare `==` is a line cut short (a truncated file).
     if spec == "==" {
-        return Err(err(format!("`{name}==` has no version")));
+        return Err(format!("`{name}==` has no version (a line cut short?)"));
     }
     if split_word || !is_specifier_list(&spec) {
-        return Ok(Line::Refused(
+        return Err(
             if rest.split_whitespace().nth(1).is_some_and(starts_with_name) {
                 "more than one requirement on the line (pip reads one per line)".to_string()
             } else {
                 format!("the version specifier of `{name}` is not PEP 440")
             },
-        ));
+        );
     }
     let version = if let Some(v) = spec.strip_prefix("===") {
         v.to_string()
@@ -351,6 +365,49 @@ fn requirement(line: &str, path: &str, line_no: usize) -> Result<Line, LockfileE
         platform,
         ..Package::default()
     }))
+}
+
+/// The project name a location suggests when the file gives none: the repository of a VCS
+/// URL (`git+https://host/org/transformers@v4.40.0` → `transformers`, without `.git`) or the
+/// folder of a local path (`./libs/mylib[gpu]` → `mylib`). pip itself reads the name from
+/// the project's metadata; the last segment is what a project is commonly named after
+/// (common practice), and both sides of a comparison use the same guess. `.`, `..` and `~`
+/// name nothing, nor does a plain download URL.
+fn project_name_from_location(target: &str) -> Option<String> {
+    let before_fragment = target.split('#').next()?;
+    let before_query = before_fragment.split('?').next()?;
+    let is_url = before_query.contains("://");
+    let lower = before_query.to_ascii_lowercase();
+    let vcs = ["git+", "hg+", "svn+", "bzr+"]
+        .iter()
+        .any(|p| lower.starts_with(p));
+    // A plain download URL names a file, not a project (its archive name is read elsewhere).
+    if is_url && !vcs && !lower.starts_with("file:") {
+        return None;
+    }
+    let mut location = strip_trailing_extras(before_query).trim_end_matches(['/', '\\']);
+    if is_url {
+        // `@REF` after the repository path (not the `user@` of the host).
+        let path_start = location.find("://").map_or(0, |i| i + 3);
+        if let Some(at) = location[path_start..].rfind('@') {
+            let at = path_start + at;
+            if location[..at].contains('/') && location[at..].find('/').is_none() {
+                location = &location[..at];
+            }
+        }
+        location = location.trim_end_matches(['/', '\\']);
+    }
+    let last = location.rsplit(['/', '\\']).next()?;
+    let last = last.strip_suffix(".git").unwrap_or(last);
+    (is_valid_name(last) && !matches!(last, "." | ".." | "~")).then(|| last.to_string())
+}
+
+/// `./path[extra1,extra2]` → `./path` (pip allows extras after a local path).
+fn strip_trailing_extras(target: &str) -> &str {
+    match (target.ends_with(']'), target.rfind('[')) {
+        (true, Some(i)) => &target[..i],
+        _ => target,
+    }
 }
 
 /// Does a word start like a distribution name (a letter or digit)?
@@ -389,13 +446,14 @@ fn strip_extras(name: &str) -> &str {
     name.split_once('[').map_or(name, |(n, _)| n).trim()
 }
 
-/// The `egg=NAME` part of a URL fragment (pip's "VCS Support": `#egg=NAME&subdirectory=…`).
+/// The `egg=NAME` part of a URL fragment (pip's "VCS Support": `#egg=NAME&subdirectory=…`);
+/// the whole value is the project name (pip reads `#egg=kelp-kernels` as `kelp-kernels`).
 fn egg_name(target: &str) -> Option<&str> {
     let (_, fragment) = target.split_once('#')?;
     fragment
         .split('&')
         .find_map(|kv| kv.strip_prefix("egg="))
-        .map(|egg| strip_extras(egg.split('-').next().unwrap_or(egg)))
+        .map(strip_extras)
         .filter(|n| is_valid_name(n))
 }
 
@@ -406,6 +464,11 @@ pub(crate) fn archive_name_version(url: &str) -> Option<(String, String)> {
     let before_fragment = url.split('#').next()?;
     let before_query = before_fragment.split('?').next()?;
     let file = before_query.rsplit('/').next()?;
+    // A URL's file name is percent-encoded (`torch-2.3.1%2Bcpu-…whl` is version `2.3.1+cpu`).
+    let file = percent_encoding::percent_decode_str(file)
+        .decode_utf8()
+        .ok()?;
+    let file = file.as_ref();
     if let Some(stem) = file.strip_suffix(".whl") {
         let mut parts = stem.split('-');
         let name = parts.next()?;
@@ -422,35 +485,26 @@ pub(crate) fn archive_name_version(url: &str) -> Option<(String, String)> {
         .then(|| (name.to_string(), version.to_string()))
 }
 
-fn editable(target: &str, path: &str, line_no: usize) -> Result<Option<Package>, LockfileError> {
+/// An editable install (`-e PATH_OR_URL`): named by `#egg=`, else by its location.
+fn editable(target: &str) -> Result<Package, String> {
     if target.is_empty() {
-        return Err(LockfileError::at(
-            path,
-            Some(line_no),
-            "`-e` without a path or URL",
-        ));
+        return Err("`-e` without a path or URL".to_string());
     }
-    // A local path's last segment (the project folder) is taken as the name; a URL without
-    // `#egg=` names nothing, so it is reported rather than guessed.
-    let name = egg_name(target).map(str::to_string).or_else(|| {
-        (!target.contains("://"))
-            .then(|| {
-                target
-                    .trim_end_matches(['/', '\\'])
-                    .rsplit(['/', '\\'])
-                    .next()
-            })
-            .flatten()
-            .map(strip_extras)
-            .filter(|n| is_valid_name(n))
-            .map(str::to_string)
-    });
-    Ok(name.map(|name| Package {
+    let name = egg_name(target)
+        .map(str::to_string)
+        .or_else(|| project_name_from_location(target))
+        .ok_or_else(|| {
+            format!(
+                "editable `{}` is a project whose name is in its own metadata, not in the file",
+                scrub_url_credentials(target)
+            )
+        })?;
+    Ok(Package {
         name: normalize_name(&name),
         version: String::new(),
         source: Some(format!("editable+{}", scrub_url_credentials(target))),
         ..Package::default()
-    }))
+    })
 }
 
 #[cfg(test)]
@@ -503,13 +557,20 @@ mod tests {
         );
     }
 
+    /// A line pip would refuse is a warning naming the file and the line; the file's other
+    /// pins are kept.
     #[test]
-    fn errors_name_line() {
-        let err = parse("numpy==1.0\n\n!!bad\n", "reqs/requirements.txt").unwrap_err();
-        assert_eq!(err.line, Some(3));
-        assert!(err.to_string().contains("`reqs/requirements.txt`, line 3"));
-        let err = parse("numpy==1.0 --hash=sha256\n", "r.txt").unwrap_err();
-        assert_eq!(err.line, Some(1));
+    fn a_bad_line_is_a_warning_naming_its_line() {
+        let parsed = parse("numpy==1.0\n\n!!bad\n", "reqs/requirements.txt").unwrap();
+        assert_eq!(parsed.packages.len(), 1);
+        assert!(parsed.warnings[0].contains("`reqs/requirements.txt`, line 3"));
+        let parsed = parse("numpy==1.0 --hash=sha256\nscipy==1.11.0\n", "r.txt").unwrap();
+        assert_eq!(parsed.packages.len(), 1);
+        assert!(
+            parsed.warnings[0].contains("line 1"),
+            "{:?}",
+            parsed.warnings
+        );
     }
 
     #[test]
@@ -566,8 +627,13 @@ mod tests {
             parsed.packages[1].platform.as_deref(),
             Some("python_version >= \"3.10\"")
         );
-        let err = parse("https://files.invalid/download?id=3\n", "requirements.txt").unwrap_err();
-        assert!(err.message.contains("#egg="), "{err}");
+        let parsed = parse("https://files.invalid/download?id=3\n", "requirements.txt").unwrap();
+        assert!(parsed.packages.is_empty());
+        assert!(
+            parsed.warnings[0].contains("line 1"),
+            "{:?}",
+            parsed.warnings
+        );
     }
 
     #[test]
@@ -590,15 +656,8 @@ mod tests {
             ]
         );
         assert_eq!(parsed.packages.len(), 1);
-        let err = parse("-r\n", "requirements.txt").unwrap_err();
-        assert_eq!(err.line, Some(1));
-    }
-
-    #[test]
-    fn nameless_editable_is_a_warning() {
-        let parsed = parse("-e .\n-e ./libs/demo_core\n", "requirements.txt").unwrap();
+        let parsed = parse("-r\nnumpy==2.0\n", "requirements.txt").unwrap();
         assert_eq!(parsed.packages.len(), 1);
-        assert_eq!(parsed.packages[0].name, "demo-core");
         assert!(
             parsed.warnings[0].contains("line 1"),
             "{:?}",
@@ -607,16 +666,80 @@ mod tests {
     }
 
     #[test]
+    fn nameless_editable_is_a_warning() {
+        let parsed = parse("-e .\n-e ./libs/demo_core\n-e ..\n", "requirements.txt").unwrap();
+        assert_eq!(parsed.packages.len(), 1);
+        assert_eq!(parsed.packages[0].name, "demo-core");
+        // `-e .` is the repository's own project; `..` names nothing the file can tell.
+        assert_eq!(parsed.warnings.len(), 1, "{:?}", parsed.warnings);
+        assert!(
+            parsed.warnings[0].contains("line 3"),
+            "{:?}",
+            parsed.warnings
+        );
+    }
+
+    /// A line cut short (a truncated file) is a warning for that line.
+    #[test]
     fn truncated_lines() {
-        for (text, line) in [
-            ("numpy==1.0\nscipy==\n", 2),
-            ("numpy==1.0 \\\n  --hash=sha256:", 1),
-            ("numpy==1.0\ntorch[cpu\n", 2),
-            ("numpy==1.0\ntorch @\n", 2),
+        for (text, line, kept) in [
+            ("numpy==1.0\nscipy==\n", 2, 1),
+            ("numpy==1.0 \\\n  --hash=sha256:", 1, 0),
+            ("numpy==1.0\ntorch[cpu\n", 2, 1),
+            ("numpy==1.0\ntorch @\n", 2, 1),
         ] {
-            let err = parse(text, "requirements.txt").unwrap_err();
-            assert_eq!(err.line, Some(line), "{text:?}: {err}");
+            let parsed = parse(text, "requirements.txt").unwrap();
+            assert_eq!(parsed.packages.len(), kept, "{text:?}");
+            let w = &parsed.warnings;
+            assert!(
+                w.len() == 1 && w[0].contains(&format!("line {line}")),
+                "{text:?}: {w:?}"
+            );
         }
+    }
+
+    /// Lines pip reads that are not `NAME SPECIFIER` (pip's "Requirements File Format" and
+    /// "VCS Support" pages; the binary distribution format for wheel file names, whose URL is
+    /// percent-encoded, RFC 3986): none of them drops the file.
+    #[test]
+    fn local_projects_vcs_urls_and_encoded_wheel_names() {
+        let text = ".\n.[ci]\n./libs/mylib\n./libs/gpu_ops[cuda]\n\
+                    git+https://git.invalid/org/transformers@v4.40.0\n\
+                    git+https://git.invalid/org/kernels.git@0123abc#subdirectory=py\n\
+                    https://files.invalid/whl/torch-2.3.1%2Bcpu-cp311-cp311-linux_x86_64.whl\n\
+                    numpy==1.26.4\n";
+        let parsed = parse(text, "requirements.txt").unwrap();
+        let got: Vec<(&str, &str)> = parsed
+            .packages
+            .iter()
+            .map(|p| (p.name.as_str(), p.version.as_str()))
+            .collect();
+        assert_eq!(
+            got,
+            [
+                ("gpu-ops", ""),
+                ("kernels", ""),
+                ("mylib", ""),
+                ("numpy", "1.26.4"),
+                ("torch", "2.3.1+cpu"),
+                ("transformers", ""),
+            ]
+        );
+        let transformers = parsed.packages.iter().find(|p| p.name == "transformers");
+        assert_eq!(
+            transformers.and_then(|p| p.source.as_deref()),
+            Some("git+https://git.invalid/org/transformers@v4.40.0")
+        );
+        // `.` and `.[ci]` are the repository's own project: no package, no warning (a stamp
+        // with --strict of such a file succeeds).
+        assert!(parsed.warnings.is_empty(), "{:?}", parsed.warnings);
+        let parsed = parse("..\nnumpy==1.26.4\n", "requirements.txt").unwrap();
+        assert_eq!(parsed.packages.len(), 1);
+        assert!(
+            parsed.warnings[0].contains("line 1"),
+            "{:?}",
+            parsed.warnings
+        );
     }
 
     #[test]
