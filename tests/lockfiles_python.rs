@@ -484,6 +484,38 @@ fn conda_fixtures_are_found_and_read() {
     );
 }
 
+/// Runs a Python `script` that reads `input` as JSON on its standard input and prints JSON.
+fn python_json<T: serde::de::DeserializeOwned>(
+    python: &Path,
+    script: &str,
+    input: &[&str],
+    cwd: Option<&Path>,
+) -> T {
+    use std::io::Write;
+    let mut cmd = Command::new(python);
+    cmd.args(["-c", script])
+        .stdin(std::process::Stdio::piped())
+        .stdout(std::process::Stdio::piped())
+        .stderr(std::process::Stdio::piped());
+    if let Some(dir) = cwd {
+        cmd.current_dir(dir);
+    }
+    let mut child = cmd.spawn().unwrap();
+    child
+        .stdin
+        .take()
+        .unwrap()
+        .write_all(serde_json::to_string(input).unwrap().as_bytes())
+        .unwrap();
+    let out = child.wait_with_output().unwrap();
+    assert!(
+        out.status.success(),
+        "the Python reference failed: {}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    serde_json::from_slice(&out.stdout).unwrap()
+}
+
 /// Which requirement lines are whole requirements is decided as pip decides it: pip's own copy
 /// of the `packaging` library (`pip._vendor.packaging.requirements.Requirement`, the PEP 508
 /// parser pip uses for requirements files) is the reference. A line it refuses is a warning
@@ -514,22 +546,7 @@ fn requirement_lines_are_accepted_as_pips_parser_accepts_them() {
                   \x20   except Exception:\n\
                   \x20       out.append(False)\n\
                   print(json.dumps(out))\n";
-    let mut child = Command::new(&python)
-        .args(["-c", script])
-        .stdin(std::process::Stdio::piped())
-        .stdout(std::process::Stdio::piped())
-        .spawn()
-        .unwrap();
-    use std::io::Write;
-    child
-        .stdin
-        .take()
-        .unwrap()
-        .write_all(serde_json::to_string(&lines).unwrap().as_bytes())
-        .unwrap();
-    let out = child.wait_with_output().unwrap();
-    assert!(out.status.success());
-    let pip_accepts: Vec<bool> = serde_json::from_slice(&out.stdout).unwrap();
+    let pip_accepts: Vec<bool> = python_json(&python, script, &lines, None);
     // Both kinds occur, so the comparison is not trivial.
     assert!(pip_accepts.contains(&true) && pip_accepts.contains(&false));
     for (line, accepted) in lines.iter().zip(pip_accepts) {
@@ -596,28 +613,7 @@ for line in json.load(sys.stdin):
     out.append({"name": name, "version": version})
 print(json.dumps(out))
 "#;
-    let mut child = Command::new(&python)
-        .args(["-c", script])
-        .current_dir(dir.path())
-        .stdin(std::process::Stdio::piped())
-        .stdout(std::process::Stdio::piped())
-        .stderr(std::process::Stdio::piped())
-        .spawn()
-        .unwrap();
-    use std::io::Write;
-    child
-        .stdin
-        .take()
-        .unwrap()
-        .write_all(serde_json::to_string(&lines).unwrap().as_bytes())
-        .unwrap();
-    let out = child.wait_with_output().unwrap();
-    assert!(
-        out.status.success(),
-        "pip refused a line: {}",
-        String::from_utf8_lossy(&out.stderr)
-    );
-    let pip: Vec<serde_json::Value> = serde_json::from_slice(&out.stdout).unwrap();
+    let pip: Vec<serde_json::Value> = python_json(&python, script, &lines, Some(dir.path()));
     let normalize = runprint::lockfile::requirements::normalize_name;
     for (line, pip) in lines.iter().zip(&pip) {
         let text = format!("{line}\nkept==1.0\n");
