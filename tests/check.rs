@@ -374,3 +374,63 @@ fn markdown_for_a_pull_request_and_bad_revisions_exit_2() {
     assert_eq!(out.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&out.stderr).contains("/nonexistent/base.toml"));
 }
+
+/// pip files found by pattern (`*requirements*.txt`, `*constraints*.txt`, a `requirements/`
+/// folder; common practice for the files pip reads with `-r` and `-c`) are compared, from the
+/// work tree and from a revision alike; a bare VCS URL keeps its file, so switching it to a
+/// release is seen (pip's "VCS Support": `git+URL@REF`).
+#[test]
+fn pip_files_found_by_pattern_and_vcs_lines_are_compared_at_a_revision() {
+    let repo = repo_with(&[
+        ("train.py", "\n"),
+        (
+            "requirements/gpu.txt",
+            "git+https://git.invalid/org/transformers@v4.40.0\ntorch==2.5.1\n",
+        ),
+        ("test-requirements.txt", "pytest==8.2.0\n"),
+        ("constraints.txt", "numpy==1.26.4\n"),
+    ]);
+    let (_dir, baseline) = baseline_of(repo.path(), &[]);
+    let m = std::fs::read_to_string(&baseline).unwrap();
+    for path in [
+        "requirements/gpu.txt",
+        "test-requirements.txt",
+        "constraints.txt",
+    ] {
+        assert!(
+            m.contains(&format!("path = \"{path}\"")),
+            "{path} not recorded:\n{m}"
+        );
+    }
+    assert!(!m.contains("warnings"), "{m}");
+    git(repo.path(), &["checkout", "-q", "-b", "deps"]);
+    write_files(
+        repo.path(),
+        &[
+            (
+                "requirements/gpu.txt",
+                "transformers==4.41.0\ntorch==2.5.1\n",
+            ),
+            ("constraints.txt", "numpy==2.1.3\n"),
+        ],
+    );
+    git(repo.path(), &["commit", "-qam", "deps"]);
+    git(repo.path(), &["checkout", "-q", "main"]);
+    let (code, report) = check_json(
+        &["--baseline", &baseline, "--rev", "deps"],
+        repo.path(),
+        &[],
+    );
+    assert_eq!((code, report.verdict.as_str()), (4, "retrain"));
+    for subject in [
+        "requirements/gpu.txt: transformers",
+        "constraints.txt: numpy",
+    ] {
+        let c = report.changes.iter().find(|c| c.subject == subject);
+        assert_eq!(
+            c.map(|c| c.impact.as_str()),
+            Some("retrain"),
+            "{subject}: {report:?}"
+        );
+    }
+}

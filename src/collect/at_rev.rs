@@ -165,7 +165,7 @@ fn walk(tree: &Tree<'_>) -> Result<(Vec<String>, Vec<Submodule>), git2::Error> {
             Some(ObjectType::Tree) if super::lockfiles::SKIPPED_DIRS.contains(&name) => {
                 TreeWalkResult::Skip
             }
-            Some(ObjectType::Blob) if Format::detect(name).is_some() => {
+            Some(ObjectType::Blob) if Format::detect_path(&format!("{dir}{name}")).is_some() => {
                 lockfiles.push(format!("{dir}{name}"));
                 TreeWalkResult::Ok
             }
@@ -250,8 +250,7 @@ fn read_lockfile(
     path: &str,
     warnings: &mut Vec<String>,
 ) -> Option<Lockfile> {
-    let name = path.rsplit('/').next().unwrap_or(path);
-    let format = Format::detect(name)?;
+    let format = Format::detect_path(path)?;
     let bytes = blob_bytes_or_warn(repo, tree, path, warnings)?;
     let text = decode_or_warn(&bytes, path, warnings)?;
     let companion = format.companion().and_then(|companion_name| {

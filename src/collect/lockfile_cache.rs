@@ -410,7 +410,7 @@ impl LockfileCache {
 /// lockfile or a `Cargo.toml`.
 pub fn is_candidate(path: &str) -> bool {
     let name = path.rsplit('/').next().unwrap_or(path);
-    name == "Cargo.toml" || crate::lockfile::Format::detect(name).is_some()
+    name == "Cargo.toml" || crate::lockfile::Format::detect_path(path).is_some()
 }
 
 /// Metadata following links, as the readers open files; `None` when absent or unreadable.

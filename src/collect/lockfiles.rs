@@ -129,7 +129,7 @@ pub fn discover_all(root: &Path, warnings: &mut Vec<String>) -> (Vec<PathBuf>, V
             let abs = std::path::absolute(entry.path()).unwrap_or_else(|_| entry.path().into());
             cargo_manifests.push(abs);
         }
-        if Format::detect(name).is_some() {
+        if Format::detect_path(&rel.to_string_lossy().replace('\\', "/")).is_some() {
             if rel.to_str().is_none() {
                 warnings.push(not_utf8(&rel.to_string_lossy()));
                 continue;
@@ -212,7 +212,7 @@ fn from_listing(
             let p = root.join(f);
             cargo_manifests.push(std::path::absolute(&p).unwrap_or(p));
         }
-        if Format::detect(name).is_some() {
+        if Format::detect_path(f).is_some() {
             let gone = std::fs::symlink_metadata(root.join(f))
                 .is_err_and(|e| e.kind() == std::io::ErrorKind::NotFound);
             if !gone {
@@ -386,11 +386,7 @@ fn read_one(
     inputs: &mut Inputs,
     warnings: &mut Vec<String>,
 ) -> Option<Lockfile> {
-    let Some(format) = abs
-        .file_name()
-        .and_then(|n| n.to_str())
-        .and_then(Format::detect)
-    else {
+    let Some(format) = Format::detect_path(&abs.to_string_lossy().replace('\\', "/")) else {
         warnings.push(format!(
             "lockfile `{shown}`: not a lockfile format runprint reads"
         ));

@@ -91,12 +91,35 @@ pub enum Format {
     Dockerfile,
 }
 
+/// A pip requirements or constraints file by its name: `*requirements*.txt`
+/// (`requirements-dev.txt`, `test-requirements.txt`, `nvidia-requirements.txt`) and
+/// `*constraints*.txt`, the names projects give the files pip reads with `-r` and `-c`
+/// (common practice; pip's "Requirements File Format" and "Constraints Files").
+fn is_requirements_name(file_name: &str) -> bool {
+    let lower = file_name.to_ascii_lowercase();
+    lower.ends_with(".txt") && (lower.contains("requirements") || lower.contains("constraints"))
+}
+
 impl Format {
+    /// The format of the file at `path` (relative, `/`-separated): by its name ([`detect`]),
+    /// and any `.txt` file in a `requirements/` folder (`requirements/base.txt`,
+    /// `requirements/gpu/cuda12.txt`), as projects split their pip requirements.
+    ///
+    /// [`detect`]: Format::detect
+    pub fn detect_path(path: &str) -> Option<Format> {
+        let mut segments = path.rsplit('/');
+        let name = segments.next().unwrap_or(path);
+        Format::detect(name).or_else(|| {
+            (name.ends_with(".txt") && segments.any(|d| d == "requirements"))
+                .then_some(Format::Requirements)
+        })
+    }
+
     /// The format of a file, judged by its name.
     pub fn detect(file_name: &str) -> Option<Format> {
         if file_name == "Cargo.lock" {
             Some(Format::CargoLock)
-        } else if file_name.starts_with("requirements") && file_name.ends_with(".txt") {
+        } else if is_requirements_name(file_name) {
             Some(Format::Requirements)
         } else if pylock::is_pylock_name(file_name) {
             Some(Format::Pylock)
@@ -336,5 +359,34 @@ mod tests {
         assert_eq!(Format::detect("pyproject.toml"), None);
         assert_eq!(Format::UvLock.ecosystem(), "pypi");
         assert_eq!(Format::CondaExplicit.ecosystem(), "conda");
+    }
+
+    /// The names projects give the files pip reads with `-r` and `-c` (common practice), and
+    /// a `requirements/` folder of them.
+    #[test]
+    fn pip_files_by_pattern() {
+        for path in [
+            "test-requirements.txt",
+            "build-requirements.txt",
+            "nvidia-requirements.txt",
+            "docker/requirements_gpu.txt",
+            "constraints.txt",
+            "ci/pip-constraints.txt",
+            "requirements/base.txt",
+            "requirements/gpu/cuda12.txt",
+        ] {
+            assert_eq!(
+                Format::detect_path(path),
+                Some(Format::Requirements),
+                "{path}"
+            );
+        }
+        for path in [
+            "notes.txt",
+            "docs/requirements.md",
+            "requirements/README.md",
+        ] {
+            assert_eq!(Format::detect_path(path), None, "{path}");
+        }
     }
 }
