@@ -126,11 +126,12 @@ struct CollectArgs {
     /// Leave out the host name and the remote URL, and hash values that hold paths.
     #[arg(long)]
     private: bool,
-    /// Also read this lockfile (repeatable), e.g. one outside the repository.
+    /// Also read this lockfile (repeatable), e.g. one outside the repository; with
+    /// --no-lockfiles, read exactly these.
     #[arg(long, value_name = "PATH")]
     lockfile: Vec<PathBuf>,
-    /// Do not look for or read lockfiles.
-    #[arg(long, conflicts_with = "lockfile")]
+    /// Do not look for lockfiles (only those named with --lockfile are read).
+    #[arg(long)]
     no_lockfiles: bool,
     /// A data input to digest: a file or a folder (repeatable).
     #[arg(long, value_name = "PATH")]

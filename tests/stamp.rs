@@ -513,6 +513,59 @@ fn extra_lockfiles_and_no_lockfiles() {
     assert!(m.content.lockfiles.is_empty());
 }
 
+fn lockfile_paths(args: &[&std::ffi::OsStr]) -> (Vec<String>, String) {
+    let out = runprint().arg("stamp").args(args).output().unwrap();
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let m = runprint::manifest::Manifest::parse(
+        &String::from_utf8(out.stdout).unwrap(),
+        std::path::Path::new("-"),
+    )
+    .unwrap();
+    let paths = m.content.lockfiles.iter().map(|l| l.path.clone()).collect();
+    (paths, String::from_utf8_lossy(&out.stderr).into_owned())
+}
+
+/// `--no-lockfiles` with `--lockfile` reads exactly the named files; `--repo` naming a folder
+/// of the repository reads the lockfiles under it (and says so), with paths still relative to
+/// the repository root as git shows them.
+#[test]
+fn a_chosen_lockfile_and_a_subfolder_select_what_is_read() {
+    let repo = repo_with(&[
+        ("requirements.txt", "numpy==1.26.4\n"),
+        ("trainer/requirements.txt", "torch==2.5.1\n"),
+        (
+            "trainer/uv.lock",
+            "version = 1\nrequires-python = \">=3.10\"\n",
+        ),
+        (
+            "dashboard/package-lock.json",
+            "{\"lockfileVersion\": 3, \"packages\": {}}\n",
+        ),
+    ]);
+    let os = |p: &std::path::Path| p.as_os_str().to_owned();
+    let root = os(repo.path());
+    let chosen = os(&repo.path().join("trainer/requirements.txt"));
+    let (paths, _) = lockfile_paths(&[
+        "--no-lockfiles".as_ref(),
+        "--lockfile".as_ref(),
+        &chosen,
+        "--repo".as_ref(),
+        &root,
+    ]);
+    assert_eq!(paths, ["trainer/requirements.txt"]);
+    let trainer = os(&repo.path().join("trainer"));
+    let (paths, stderr) = lockfile_paths(&["--repo".as_ref(), &trainer]);
+    assert_eq!(paths, ["trainer/requirements.txt", "trainer/uv.lock"]);
+    assert!(stderr.contains("under `trainer/` only"), "{stderr}");
+    // The whole repository from its root, for reference.
+    let (paths, _) = lockfile_paths(&["--repo".as_ref(), &root]);
+    assert_eq!(paths.len(), 4, "{paths:?}");
+}
+
 /// Without the `git` executable on PATH the collector falls back to libgit2; both must agree
 /// with `git status --porcelain -uall` (run here by the test).
 #[test]

@@ -288,6 +288,16 @@ pub fn collect(root: &Path, extra: &[PathBuf], warnings: &mut Vec<String>) -> Ve
     collect_with(root, extra, None, None, warnings)
 }
 
+/// The folder of the repository at `root` that `repo` names, relative and ending in `/`;
+/// `None` when `repo` is the root itself or outside it.
+pub fn folder_within(repo: &Path, root: &Path) -> Option<String> {
+    let repo = std::fs::canonicalize(repo).ok()?;
+    let root = std::fs::canonicalize(root).ok()?;
+    let rel = repo.strip_prefix(&root).ok()?;
+    let rel = rel.to_str()?.replace('\\', "/");
+    (!rel.is_empty()).then(|| format!("{}/", rel.trim_end_matches('/')))
+}
+
 /// As [`collect`], with a cache folder for Cargo's enabled features, and optionally the
 /// repository's file list (tracked and untracked-not-ignored files, relative to `root`, as
 /// git lists them) to use instead of walking the folders.
@@ -299,23 +309,29 @@ pub fn collect_with(
     warnings: &mut Vec<String>,
 ) -> Vec<Lockfile> {
     let mut cache = LockfileCache::disabled();
-    collect_cached(root, extra, cache_dir, listed, &mut cache, warnings)
+    collect_cached(root, extra, cache_dir, listed, None, &mut cache, warnings)
 }
 
 /// As [`collect_with`], taking each lockfile's result from `cache` when nothing it was read
-/// from has changed, and keeping the new ones in it.
+/// from has changed, and keeping the new ones in it; with `under` (a relative folder ending
+/// in `/`), only the lockfiles found below it.
 pub fn collect_cached(
     root: &Path,
     extra: &[PathBuf],
     cache_dir: Option<&Path>,
     listed: Option<&[String]>,
+    under: Option<&str>,
     cache: &mut LockfileCache,
     warnings: &mut Vec<String>,
 ) -> Vec<Lockfile> {
-    let (found, cargo_manifests) = match listed {
+    let (mut found, cargo_manifests) = match listed {
         Some(files) => from_listing(root, files, warnings),
         None => discover_all(root, warnings),
     };
+    // `--repo SUBDIR`: the lockfiles under that folder only (relative, ending in `/`).
+    if let Some(prefix) = under {
+        found.retain(|rel| rel.to_string_lossy().replace('\\', "/").starts_with(prefix));
+    }
     let mut files: Vec<(PathBuf, String)> = found
         .into_iter()
         .map(|rel| (root.join(&rel), rel.to_string_lossy().replace('\\', "/")))

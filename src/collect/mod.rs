@@ -395,6 +395,17 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
     let guess_root = work_tree
         .as_ref()
         .map_or_else(|| opts.repo.clone(), |(root, _)| root.clone());
+    // `--no-lockfiles` stops the search; `--lockfile` still names files to read.
+    let discover = !opts.no_lockfiles;
+    let read_any = discover || !opts.extra_lockfiles.is_empty();
+    // `--repo` naming a folder inside the repository: the lockfiles under it only.
+    let under = lockfiles::folder_within(&opts.repo, &guess_root);
+    if let Some(folder) = under.as_deref().filter(|_| discover) {
+        eprintln!(
+            "note: lockfiles are read under `{}` only (--repo names a folder of the repository)",
+            crate::escape::printable(folder)
+        );
+    }
     let read_lockfiles =
         |root: &Path, listed: Option<&[String]>, cache: &mut lockfile_cache::LockfileCache| {
             let mut w = Vec::new();
@@ -404,6 +415,7 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
                     &opts.extra_lockfiles,
                     opts.data.cache_dir.as_deref(),
                     listed,
+                    under.as_deref(),
                     cache,
                     &mut w,
                 )
@@ -426,7 +438,7 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
         content.data = timed(t, "data", || {
             data::collect(&opts.data, &guess_root, opts.private, &mut data_warnings)
         });
-        if !opts.no_lockfiles {
+        if read_any {
             lock_cache = lockfile_cache::LockfileCache::open(
                 opts.data.cache_dir.as_deref(),
                 &guess_root,
@@ -434,8 +446,14 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
             );
         }
         // The tracked files, and the warnings of the lockfiles read from them.
+        // Only the files named with --lockfile: no search.
+        let only_named = (!discover && read_any).then(|| {
+            let (found, w) = read_lockfiles(&guess_root, Some(&[]), &mut lock_cache);
+            content.lockfiles = found;
+            w
+        });
         let early = match &work_tree {
-            Some((root, index)) if !opts.no_lockfiles => lock_cache
+            Some((root, index)) if discover => lock_cache
                 .tracked_candidates(index, || git::tracked_files(index))
                 .map(|tracked| {
                     let (found, w) = read_lockfiles(root, Some(&tracked), &mut lock_cache);
@@ -463,7 +481,7 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
         content.native = stack.native;
         content.gpu = stack.gpu;
         // Lockfiles are final unless the status names an untracked one (checked below).
-        let lockfiles_known = opts.no_lockfiles || early.is_some();
+        let lockfiles_known = !discover || early.is_some();
         let prepared = (prepare && lockfiles_known && !opts.private)
             .then(|| {
                 // Lockfiles taken from the cache come with their serialized form.
@@ -490,10 +508,16 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
             content,
             early,
             prepared,
-            (cpu_warning, data_warnings, stack_warnings, ahead),
+            (
+                cpu_warning,
+                data_warnings,
+                stack_warnings,
+                ahead,
+                only_named,
+            ),
         )
     });
-    let (cpu_warning, data_warnings, stack_warnings, ahead) = early_warnings;
+    let (cpu_warning, data_warnings, stack_warnings, ahead, only_named) = early_warnings;
     let (root, untracked) = match &git_result {
         Ok(facts) => (
             facts.workdir.clone().unwrap_or_else(|| opts.repo.clone()),
@@ -501,8 +525,8 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
         ),
         Err(_) => (opts.repo.clone(), None),
     };
-    let lock_warnings = if opts.no_lockfiles {
-        Vec::new()
+    let lock_warnings = if !discover {
+        only_named.unwrap_or_default()
     } else {
         let reread = match (early, untracked) {
             (Some((tracked, early_warnings)), Some(untracked)) => {
@@ -529,7 +553,7 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
             }
         }
     };
-    if t && !opts.no_lockfiles {
+    if t && read_any {
         eprintln!("timing: lockfile cache: {}", lock_cache.summary());
     }
     lock_cache.save();
