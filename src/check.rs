@@ -115,7 +115,18 @@ pub fn against_revision(
         },
     }
 
-    content.lockfiles = revision_lockfiles(&baseline.content.lockfiles, facts.lockfiles);
+    // `--repo` naming a folder of the repository: its lockfiles only, as a stamp reads them.
+    let mut rev_lockfiles = facts.lockfiles;
+    if let Some(folder) = git_repo
+        .workdir()
+        .and_then(|root| crate::collect::lockfiles::folder_within(repo, root))
+    {
+        rev_lockfiles.retain(|l| l.path.starts_with(&folder));
+        notes.push(format!(
+            "lockfiles under `{folder}` only (--repo names a folder of the repository)"
+        ));
+    }
+    content.lockfiles = revision_lockfiles(&baseline.content.lockfiles, rev_lockfiles);
     if baseline
         .content
         .lockfiles

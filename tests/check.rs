@@ -434,3 +434,59 @@ fn pip_files_found_by_pattern_and_vcs_lines_are_compared_at_a_revision() {
         );
     }
 }
+
+/// A baseline stamped with `--repo trainer` (a folder of a monorepo) holds the trainer's
+/// lockfiles only; `check --rev` with the same `--repo` compares those, so a bump in another
+/// project's lockfile is not the trainer's (no lockfile "added"), and a bump in its own is.
+#[test]
+fn a_subfolder_baseline_is_checked_against_the_same_subfolder_at_a_revision() {
+    let repo = repo_with(&[
+        ("serving/requirements.txt", "numpy==1.26.4\n"),
+        ("trainer/train.py", "\n"),
+        ("trainer/requirements.txt", "torch==2.5.1\n"),
+    ]);
+    let trainer = repo.path().join("trainer");
+    let (_dir, baseline) = baseline_of(&trainer, &[]);
+    let m = std::fs::read_to_string(&baseline).unwrap();
+    assert!(!m.contains("serving/requirements.txt"), "{m}");
+    git(repo.path(), &["checkout", "-q", "-b", "serving-bump"]);
+    write_files(
+        repo.path(),
+        &[("serving/requirements.txt", "numpy==2.1.3\n")],
+    );
+    git(repo.path(), &["commit", "-qam", "serving: numpy 2"]);
+    git(repo.path(), &["checkout", "-q", "-b", "trainer-bump"]);
+    write_files(
+        repo.path(),
+        &[("trainer/requirements.txt", "torch==2.6.0\n")],
+    );
+    git(repo.path(), &["commit", "-qam", "trainer: torch 2.6"]);
+    git(repo.path(), &["checkout", "-q", "main"]);
+    let (_, report) = check_json(
+        &["--baseline", &baseline, "--rev", "serving-bump"],
+        &trainer,
+        &[],
+    );
+    assert!(
+        report.changes.iter().all(|c| c.section != "lockfiles"),
+        "{report:?}"
+    );
+    assert!(report
+        .notes
+        .iter()
+        .any(|n| n.contains("under `trainer/` only")));
+    let (code, report) = check_json(
+        &["--baseline", &baseline, "--rev", "trainer-bump"],
+        &trainer,
+        &[],
+    );
+    assert_eq!(
+        (code, report.verdict.as_str()),
+        (4, "retrain"),
+        "{report:?}"
+    );
+    assert!(report
+        .changes
+        .iter()
+        .any(|c| c.subject == "trainer/requirements.txt: torch"));
+}
