@@ -62,6 +62,13 @@ pub enum Failure {
     Wait(std::io::Error),
 }
 
+impl Failure {
+    /// True when the program was not found (not on `PATH`).
+    pub fn is_not_found(&self) -> bool {
+        matches!(self, Failure::Start(e) if e.kind() == std::io::ErrorKind::NotFound)
+    }
+}
+
 impl std::fmt::Display for Failure {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
         match self {

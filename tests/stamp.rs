@@ -609,3 +609,102 @@ fn status_without_git_on_path_matches_git_status() {
     }
     assert_eq!(digests[0], digests[1]);
 }
+
+/// A repository that pins a Rust toolchain this machine does not have: rustup's own answer
+/// (`cargo -vV` in that folder, run here) is the reference. The stamp says why Cargo's
+/// features are missing, and a second stamp with the same cache takes that answer from the
+/// cache: `cargo` (a wrapper that counts its starts, named by `CARGO`) starts once in all.
+#[test]
+fn a_missing_pinned_toolchain_is_a_warning_and_cargo_starts_once() {
+    let repo = repo_with(&[
+        (
+            "Cargo.toml",
+            "[package]\nname = \"demo-pinned\"\nversion = \"0.1.0\"\nedition = \"2021\"\n",
+        ),
+        ("src/lib.rs", "\n"),
+        // A version far older than any toolchain this project installs.
+        ("rust-toolchain.toml", "[toolchain]\nchannel = \"1.70.0\"\n"),
+    ]);
+    // The `cargo` on PATH: rustup's proxy, which reads the pin (`CARGO`, set by the test
+    // runner, is the toolchain's own binary and ignores it).
+    let cargo = which("cargo");
+    // Reference: rustup refuses to run cargo there.
+    let reference = Command::new(&cargo)
+        .arg("-vV")
+        .current_dir(repo.path())
+        .env("RUSTUP_AUTO_INSTALL", "0")
+        .env_remove("RUSTUP_TOOLCHAIN")
+        .output()
+        .unwrap();
+    if reference.status.success() {
+        eprintln!("skipped: this machine has the pinned toolchain, or cargo without rustup");
+        return;
+    }
+    // The lockfile, written by cargo outside the pin's reach (a copy of the folder).
+    let elsewhere = tempfile::tempdir().unwrap();
+    std::fs::write(
+        elsewhere.path().join("Cargo.toml"),
+        std::fs::read(repo.path().join("Cargo.toml")).unwrap(),
+    )
+    .unwrap();
+    std::fs::create_dir(elsewhere.path().join("src")).unwrap();
+    std::fs::write(elsewhere.path().join("src/lib.rs"), "\n").unwrap();
+    let status = Command::new(&cargo)
+        .args(["generate-lockfile", "--offline"])
+        .current_dir(elsewhere.path())
+        .status()
+        .unwrap();
+    assert!(status.success());
+    std::fs::copy(
+        elsewhere.path().join("Cargo.lock"),
+        repo.path().join("Cargo.lock"),
+    )
+    .unwrap();
+    let tools = tempfile::tempdir().unwrap();
+    let log = tools.path().join("starts");
+    let wrapper = tools.path().join("cargo");
+    std::fs::write(
+        &wrapper,
+        format!(
+            "#!/bin/sh\necho start >> '{}'\nexec '{}' \"$@\"\n",
+            log.display(),
+            which(&cargo)
+        ),
+    )
+    .unwrap();
+    use std::os::unix::fs::PermissionsExt;
+    std::fs::set_permissions(&wrapper, std::fs::Permissions::from_mode(0o755)).unwrap();
+    let cache = tempfile::tempdir().unwrap();
+    for _ in 0..2 {
+        let out = runprint()
+            .args(["stamp", "--quiet", "--repo"])
+            .arg(repo.path())
+            .arg("--cache")
+            .arg(cache.path())
+            .env("CARGO", &wrapper)
+            .output()
+            .unwrap();
+        assert!(out.status.success());
+        let text = String::from_utf8_lossy(&out.stdout);
+        assert!(
+            text.contains("the Rust toolchain the repository pins is not installed"),
+            "{text}"
+        );
+    }
+    let starts = std::fs::read_to_string(&log).unwrap_or_default();
+    assert_eq!(starts.lines().count(), 1, "cargo started {starts:?}");
+}
+
+/// The full path of a program found on `PATH` (or the name as given when it has a slash).
+fn which(program: &str) -> String {
+    if program.contains('/') {
+        return program.to_string();
+    }
+    std::env::var_os("PATH")
+        .into_iter()
+        .flat_map(|p| std::env::split_paths(&p).collect::<Vec<_>>())
+        .map(|d| d.join(program))
+        .find(|p| p.is_file())
+        .map(|p| p.display().to_string())
+        .unwrap_or_else(|| program.to_string())
+}

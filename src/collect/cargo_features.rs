@@ -4,7 +4,11 @@
 //! `Cargo.lock`; only cargo's resolver knows them. Running `cargo metadata` costs a few hundred
 //! milliseconds, more than the rest of a stamp, so the result is cached under a key made of the
 //! bytes of `Cargo.lock` and of every `Cargo.toml` below it (a member's manifest can switch a
-//! feature without touching the lockfile), plus the operating system and architecture.
+//! feature without touching the lockfile), the toolchain file that pins the Rust version, plus
+//! the operating system and architecture. A failure is cached the same way (a pinned toolchain
+//! that is not installed, crates missing from the local registry cache): a warm stamp never
+//! starts `cargo` again for inputs that did not change. cargo never reaches the network
+//! (`--offline`, `--locked`, `CARGO_NET_OFFLINE`).
 
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
@@ -16,7 +20,8 @@ use sha2::{Digest, Sha256};
 use crate::lockfile::cargo::{feature_map, FeatureMap};
 use crate::manifest::hex;
 
-const CACHE_FILE: &str = "cargo-features-v1.json";
+const CACHE_FILE: &str = "cargo-features-v2.json";
+const CACHE_VERSION: u32 = 2;
 const CACHE_KIND: &str = "runprint-cargo-features";
 /// Entries kept; the oldest are dropped first.
 const CACHE_ENTRIES: usize = 32;
@@ -28,8 +33,9 @@ type Row = (String, String, Option<String>, Vec<String>);
 struct CacheFile {
     kind: String,
     version: u32,
-    /// Key, insertion order, and the features as (name, version, source, features) rows.
-    entries: BTreeMap<String, (u64, Vec<Row>)>,
+    /// Key, insertion order, and the features as (name, version, source, features) rows, or
+    /// why they could not be read.
+    entries: BTreeMap<String, (u64, Result<Vec<Row>, String>)>,
 }
 
 /// The enabled features of the workspace whose `Cargo.lock` is `lock` (with `lock_bytes`).
@@ -54,57 +60,35 @@ pub fn features(
         .and_then(load)
         .unwrap_or_else(|| CacheFile {
             kind: CACHE_KIND.into(),
-            version: 1,
+            version: CACHE_VERSION,
             entries: BTreeMap::new(),
         });
     // `--rehash` computes anew (and keeps the new result).
-    if let Some((_, rows)) = cache.entries.get(&key).filter(|_| !rehash) {
-        return Ok(Some(
-            rows.iter()
-                .map(|(n, v, s, f)| ((n.clone(), v.clone(), s.clone()), f.clone()))
-                .collect(),
-        ));
+    if let Some((_, result)) = cache.entries.get(&key).filter(|_| !rehash) {
+        return match result {
+            Ok(rows) => Ok(Some(
+                rows.iter()
+                    .map(|(n, v, s, f)| ((n.clone(), v.clone(), s.clone()), f.clone()))
+                    .collect(),
+            )),
+            Err(why) => Err(why.clone()),
+        };
     }
-    refuse_toolchain_by_path(dir)?;
-    refuse_special_inputs(dir, manifests)?;
-    let Some(host) = cargo_host_triple(dir) else {
-        return Ok(None);
+    let result = match run_metadata(dir, &manifest, manifests) {
+        Ok(None) => return Ok(None),
+        Ok(Some(map)) => Ok(map),
+        // Refusing a special file is about this moment's file system: not kept.
+        Err(Failure::Now(why)) => return Err(why),
+        Err(Failure::Lasting(why)) => Err(why),
     };
-    // Only the host platform's packages: those for other platforms may never have been
-    // downloaded, and `--offline` (no network in the middle of a training job) would fail.
-    let mut cmd = cargo_metadata::MetadataCommand::new()
-        .manifest_path(&manifest)
-        .other_options(vec![
-            "--locked".to_string(),
-            "--offline".to_string(),
-            "--filter-platform".to_string(),
-            host,
-        ])
-        .cargo_command();
-    neutralise(&mut cmd, dir);
-    let out = crate::child::run(
-        cmd,
-        crate::child::timeout(METADATA_TIMEOUT),
-        METADATA_OUTPUT,
-    )
-    .map_err(|e| format!("`cargo metadata` {e}"))?;
-    if !out.status.success() {
-        return Err(format!(
-            "`cargo metadata` failed ({}): {}",
-            out.status,
-            crate::redact::scrub_url_credentials(&crate::child::first_line(&out.stderr))
-        ));
-    }
-    let metadata = cargo_metadata::MetadataCommand::parse(String::from_utf8_lossy(&out.stdout))
-        .map_err(|e| format!("`cargo metadata` printed something unexpected: {e}"))?;
-    let map = feature_map(&metadata);
     if let Some(path) = cache_path {
         let order = cache.entries.values().map(|(o, _)| *o).max().unwrap_or(0) + 1;
-        let rows = map
-            .iter()
-            .map(|((n, v, s), f)| (n.clone(), v.clone(), s.clone(), f.clone()))
-            .collect();
-        cache.entries.insert(key, (order, rows));
+        let kept = result.as_ref().map_err(Clone::clone).map(|map| {
+            map.iter()
+                .map(|((n, v, s), f)| (n.clone(), v.clone(), s.clone(), f.clone()))
+                .collect()
+        });
+        cache.entries.insert(key, (order, kept));
         while cache.entries.len() > CACHE_ENTRIES {
             let oldest = cache
                 .entries
@@ -120,14 +104,73 @@ pub fn features(
             crate::cache::write_cache_file(&path, &bytes);
         }
     }
-    Ok(Some(map))
+    result.map(Some)
+}
+
+/// Why features could not be read: for as long as the inputs stay the same (cached), or
+/// because of a file as it is now (not cached).
+enum Failure {
+    Lasting(String),
+    Now(String),
+}
+
+/// Runs `cargo metadata` for the workspace at `dir`; `Ok(None)` when cargo is not on PATH.
+fn run_metadata(
+    dir: &Path,
+    manifest: &Path,
+    manifests: &[PathBuf],
+) -> Result<Option<FeatureMap>, Failure> {
+    refuse_toolchain_by_path(dir).map_err(Failure::Lasting)?;
+    refuse_special_inputs(dir, manifests).map_err(Failure::Now)?;
+    let Some(host) = cargo_host_triple(dir).map_err(Failure::Lasting)? else {
+        return Ok(None);
+    };
+    // Only the host platform's packages: those for other platforms may never have been
+    // downloaded, and `--offline` (no network in the middle of a training job) would fail.
+    let mut cmd = cargo_metadata::MetadataCommand::new()
+        .manifest_path(manifest)
+        .other_options(vec![
+            "--locked".to_string(),
+            "--offline".to_string(),
+            "--filter-platform".to_string(),
+            host,
+        ])
+        .cargo_command();
+    neutralise(&mut cmd, dir);
+    let out = crate::child::run(
+        cmd,
+        crate::child::timeout(METADATA_TIMEOUT),
+        METADATA_OUTPUT,
+    )
+    .map_err(|e| Failure::Now(format!("`cargo metadata` {e}")))?;
+    if !out.status.success() {
+        let first = crate::redact::scrub_url_credentials(&crate::child::first_line(&out.stderr));
+        let all = String::from_utf8_lossy(&out.stderr).to_ascii_lowercase();
+        // cargo's words when a crate is not in the local registry cache and it may not
+        // download it (`--offline`); from memory of cargo's messages.
+        let missing = all.contains("offline") || all.contains("download");
+        return Err(Failure::Lasting(if missing {
+            format!(
+                "Cargo's enabled features were not read: some crates of `Cargo.lock` are not in this machine's cargo cache and runprint never downloads (run `cargo fetch` once to read them); cargo said: {first}"
+            )
+        } else {
+            format!("`cargo metadata` failed ({}): {first}", out.status)
+        }));
+    }
+    let metadata = cargo_metadata::MetadataCommand::parse(String::from_utf8_lossy(&out.stdout))
+        .map_err(|e| {
+            Failure::Now(format!(
+                "`cargo metadata` printed something unexpected: {e}"
+            ))
+        })?;
+    Ok(Some(feature_map(&metadata)))
 }
 
 fn load(path: &Path) -> Option<CacheFile> {
     let bytes = crate::cache::read_cache_file(path).ok()?;
     serde_json::from_slice::<CacheFile>(&bytes)
         .ok()
-        .filter(|c| c.kind == CACHE_KIND && c.version == 1)
+        .filter(|c| c.kind == CACHE_KIND && c.version == CACHE_VERSION)
 }
 
 fn cache_key(dir: &Path, lock_bytes: &[u8], manifests: &[PathBuf]) -> String {
@@ -139,6 +182,23 @@ fn cache_key(dir: &Path, lock_bytes: &[u8], manifests: &[PathBuf]) -> String {
     h.update(dir.to_string_lossy().as_bytes());
     h.update([0]);
     h.update(lock_bytes);
+    // The toolchain file that pins the Rust version (rustup reads the first one found from the
+    // folder up), and the toolchain rustup would pick otherwise.
+    let start = std::path::absolute(dir).unwrap_or_else(|_| dir.to_path_buf());
+    if let Some(file) = start
+        .ancestors()
+        .flat_map(|f| [f.join("rust-toolchain.toml"), f.join("rust-toolchain")])
+        .find(|f| f.is_file())
+    {
+        h.update([0]);
+        h.update(file.to_string_lossy().as_bytes());
+        h.update([0]);
+        h.update(crate::limits::read_regular_file(&file).unwrap_or_default());
+    }
+    for var in ["RUSTUP_TOOLCHAIN", "CARGO", "PATH"] {
+        h.update([0]);
+        h.update(std::env::var_os(var).unwrap_or_default().as_encoded_bytes());
+    }
     let mut under: Vec<&PathBuf> = manifests.iter().filter(|m| m.starts_with(dir)).collect();
     under.sort();
     for m in under {
@@ -168,8 +228,11 @@ const METADATA_OUTPUT: usize = 256 << 20;
 /// ("Configuration: Environment variables", The Cargo Book), and an empty wrapper variable
 /// turns the wrapper off ("Environment variables Cargo reads", `RUSTC_WRAPPER`); `RUSTC` is
 /// set to the plain name, found on `PATH`. `CARGO_NET_OFFLINE` keeps cargo off the network
-/// even where `--offline` would not reach (`net.offline`).
+/// even where `--offline` would not reach (`net.offline`), and `RUSTUP_AUTO_INSTALL=0` keeps
+/// rustup from downloading a toolchain the repository pins (rustup book, "Environment
+/// variables").
 const NEUTRAL_ENV: &[(&str, &str)] = &[
+    ("RUSTUP_AUTO_INSTALL", "0"),
     ("RUSTC", "rustc"),
     ("RUSTC_WRAPPER", ""),
     ("RUSTC_WORKSPACE_WRAPPER", ""),
@@ -317,21 +380,36 @@ fn declared_manifests(dir: &Path) -> Vec<PathBuf> {
         .collect()
 }
 
-/// The host triple from `cargo -vV`, or `None` when cargo is not on PATH.
-fn cargo_host_triple(dir: &Path) -> Option<String> {
+/// The host triple from `cargo -vV`; `Ok(None)` when cargo is not on PATH, `Err` when it is
+/// there but does not run (rustup's answer when the toolchain the repository pins is not
+/// installed).
+fn cargo_host_triple(dir: &Path) -> Result<Option<String>, String> {
     let cargo = std::env::var_os("CARGO").unwrap_or_else(|| "cargo".into());
     let mut cmd = Command::new(cargo);
     cmd.arg("-vV");
     neutralise(&mut cmd, dir);
-    let out = crate::child::run(
+    let out = match crate::child::run(
         cmd,
         crate::child::timeout(std::time::Duration::from_secs(30)),
         1 << 20,
-    )
-    .ok()
-    .filter(|o| o.status.success())?;
-    String::from_utf8_lossy(&out.stdout)
+    ) {
+        Ok(out) => out,
+        Err(e) if e.is_not_found() => return Ok(None),
+        Err(e) => return Err(format!("`cargo -vV` {e}")),
+    };
+    if !out.status.success() {
+        let said = crate::child::first_line(&out.stderr);
+        let pinned = said.contains("toolchain") && said.contains("not installed");
+        return Err(if pinned {
+            format!(
+                "Cargo's enabled features were not read: the Rust toolchain the repository pins is not installed on this machine (rustup said: {said})"
+            )
+        } else {
+            format!("`cargo -vV` failed ({}): {said}", out.status)
+        });
+    }
+    Ok(String::from_utf8_lossy(&out.stdout)
         .lines()
         .find_map(|l| l.strip_prefix("host:"))
-        .map(|h| h.trim().to_string())
+        .map(|h| h.trim().to_string()))
 }
