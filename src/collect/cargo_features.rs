@@ -199,6 +199,35 @@ fn cache_key(dir: &Path, lock_bytes: &[u8], manifests: &[PathBuf]) -> String {
         h.update([0]);
         h.update(std::env::var_os(var).unwrap_or_default().as_encoded_bytes());
     }
+    // What a failure depends on outside the repository: the toolchains rustup has installed
+    // and the crates in cargo's local cache (installing a toolchain or `cargo fetch` changes
+    // these folders' modification times), so that a cached failure ends when they change.
+    let home = |var: &str, default: &str| {
+        std::env::var_os(var)
+            .map(PathBuf::from)
+            .or_else(|| std::env::var_os("HOME").map(|h| PathBuf::from(h).join(default)))
+    };
+    let mut folders: Vec<PathBuf> = Vec::new();
+    if let Some(rustup) = home("RUSTUP_HOME", ".rustup") {
+        folders.push(rustup.join("toolchains"));
+    }
+    if let Some(cargo) = home("CARGO_HOME", ".cargo") {
+        let registry = cargo.join("registry/cache");
+        folders.push(registry.clone());
+        if let Ok(entries) = std::fs::read_dir(&registry) {
+            let mut sub: Vec<PathBuf> = entries.flatten().map(|e| e.path()).collect();
+            sub.sort();
+            folders.extend(sub);
+        }
+    }
+    for f in folders {
+        h.update([0]);
+        h.update(f.to_string_lossy().as_bytes());
+        if let Ok(meta) = std::fs::metadata(&f) {
+            let stamp = crate::cache::FileStamp::of(&meta);
+            h.update(serde_json::to_vec(&stamp).unwrap_or_default());
+        }
+    }
     let mut under: Vec<&PathBuf> = manifests.iter().filter(|m| m.starts_with(dir)).collect();
     under.sort();
     for m in under {
