@@ -109,6 +109,9 @@ pub fn script(m: &Manifest, path: &str) -> String {
     out.push_str("set -euo pipefail\n");
     code(m, &mut out);
     packages(&m.content.lockfiles, &mut out);
+    if !m.content.lockfiles.iter().any(|l| l.ecosystem == "pypi") {
+        installed_distributions(&m.content.python, &mut out);
+    }
     environment(m, &mut out);
     machine(m, &mut out);
     out
@@ -209,7 +212,13 @@ fn pip_requirement(p: &Package) -> Option<String> {
             && !p.version.starts_with('-')
             && !p.version.contains(char::is_whitespace) =>
         {
-            format!("{}=={}", p.name, p.version)
+            // A requirements file's range (`<3.1.0`, `>=6.1.3,<7`) is kept as written: a
+            // PEP 440 specifier list; an exact version is pinned with `==`.
+            if p.version.starts_with(['<', '>', '=', '!', '~']) {
+                format!("{}{}", p.name, p.version)
+            } else {
+                format!("{}=={}", p.name, p.version)
+            }
         }
         None => return None,
     };
@@ -341,11 +350,70 @@ fn pip_pins(l: &Lockfile, out: &mut String) {
     if pins.is_empty() {
         return;
     }
-    out.push_str("python -m pip install");
+    // One environment per lockfile: installed one after another into one environment, a
+    // later file's pins would replace an earlier one's (torch 2.6.0, then 2.7.0).
+    let venv = format!(".venv-recreated/{}", slug(&l.path));
+    let _ = writeln!(out, "python3 -m venv {venv}");
+    let _ = write!(out, "{venv}/bin/python -m pip install");
     for pin in pins {
         let _ = write!(out, " \\\n  {pin}");
     }
     out.push('\n');
+}
+
+/// Without a Python lockfile, the distributions each stamped interpreter had installed, pinned
+/// in an environment of their own (editable and local installs cannot be pinned and are
+/// named instead).
+fn installed_distributions(envs: &[crate::manifest::PythonEnv], out: &mut String) {
+    for (i, env) in envs.iter().enumerate() {
+        let pins: Vec<Package> = env
+            .distributions
+            .iter()
+            .filter(|d| !d.editable)
+            .map(|d| Package {
+                name: d.name.clone(),
+                version: d.version.clone(),
+                source: d.source.clone().filter(|s| !s.starts_with("file:")),
+                ..Package::default()
+            })
+            .collect();
+        if pins.is_empty() {
+            continue;
+        }
+        let _ = writeln!(
+            out,
+            "# the distributions installed in {} (Python {}), as recorded; no Python lockfile was",
+            comment(&env.interpreter),
+            comment(env.version.as_deref().unwrap_or("?"))
+        );
+        let l = Lockfile {
+            path: format!("python-{}", i + 1),
+            ecosystem: "pypi".into(),
+            packages: pins,
+            ..Lockfile::default()
+        };
+        pip_pins(&l, out);
+    }
+}
+
+/// A lockfile's path as a folder name: letters, digits, `.` and `_` kept, the rest `-`.
+fn slug(path: &str) -> String {
+    let s: String = path
+        .trim_start_matches(['/', '.'])
+        .chars()
+        .map(|c| {
+            if c.is_ascii_alphanumeric() || matches!(c, '.' | '_') {
+                c
+            } else {
+                '-'
+            }
+        })
+        .collect();
+    if s.is_empty() {
+        "lockfile".into()
+    } else {
+        s
+    }
 }
 
 fn environment(m: &Manifest, out: &mut String) {
@@ -551,5 +619,31 @@ mod tests {
         );
         assert!(out.contains("(cd web && npm ci)"), "{out}");
         assert!(!out.contains("=="), "{out}");
+    }
+
+    /// Without a Python lockfile the recorded distributions are pinned, in their own
+    /// environment; an editable install is left out.
+    #[test]
+    fn without_a_python_lockfile_the_recorded_distributions_are_pinned() {
+        let d = |name: &str, version: &str, editable: bool| crate::manifest::Distribution {
+            name: name.into(),
+            version: version.into(),
+            editable,
+            ..Default::default()
+        };
+        let env = crate::manifest::PythonEnv {
+            interpreter: "/opt/venv/bin/python".into(),
+            version: Some("3.11.7".into()),
+            distributions: vec![d("numpy", "1.26.4", false), d("kelp-train", "0.1.0", true)],
+            ..Default::default()
+        };
+        let mut out = String::new();
+        installed_distributions(&[env], &mut out);
+        assert!(
+            out.contains("python3 -m venv .venv-recreated/python-1"),
+            "{out}"
+        );
+        assert!(out.contains("'numpy==1.26.4'"), "{out}");
+        assert!(!out.contains("kelp-train"), "{out}");
     }
 }

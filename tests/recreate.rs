@@ -289,3 +289,57 @@ fn exports_survive_bash_quoting_and_packages_are_pinned() {
         "{machine}"
     );
 }
+
+/// The Python steps of a recreate script run: pip itself (`pip install --dry-run`, resolving
+/// against PyPI in a fresh `python3 -m venv` per lockfile, as the script makes them) is the
+/// reference, with `bash -n` for the whole script. Two requirements files pin different
+/// versions of one package (one environment each), one holds a range and one a pin limited
+/// to Windows by its marker (pip's "Requirements File Format"; PEP 508 markers).
+#[test]
+fn the_python_steps_of_a_recreate_script_run_under_pip() {
+    let repo = repo_with(&[
+        (
+            "trainer/requirements.txt",
+            "six==1.16.0\npywin32==306 ; sys_platform == \"win32\"\ntqdm>=4.60,<5\n",
+        ),
+        ("serving/requirements.txt", "six==1.17.0\n"),
+    ]);
+    let out = tempfile::tempdir().unwrap();
+    let manifest = out.path().join("m.toml");
+    stamp(repo.path(), &manifest, &[], &[]);
+    let script = recreate(&manifest);
+    let syntax = Command::new("bash")
+        .args(["-n", "-c", &script])
+        .output()
+        .unwrap();
+    assert!(syntax.status.success(), "{script}");
+    let packages = section(&script, 2);
+    assert!(packages.contains("'tqdm>=4.60,<5'"), "{packages}");
+    assert!(
+        !packages.contains("==>") && !packages.contains("==<"),
+        "{packages}"
+    );
+    // Dry runs: nothing is installed, every requirement must resolve on this platform.
+    let dry = packages.replace(
+        "-m pip install",
+        "-m pip install --dry-run --quiet --disable-pip-version-check",
+    );
+    let work = tempfile::tempdir().unwrap();
+    let result = bash(work.path(), &dry);
+    assert!(
+        result.status.success(),
+        "{dry}\n{}",
+        String::from_utf8_lossy(&result.stderr)
+    );
+    // One environment per lockfile.
+    for venv in ["trainer-requirements.txt", "serving-requirements.txt"] {
+        assert!(
+            work.path()
+                .join(".venv-recreated")
+                .join(venv)
+                .join("bin/python")
+                .exists(),
+            "{venv}"
+        );
+    }
+}
