@@ -47,7 +47,7 @@ pub fn features(
     manifests: &[PathBuf],
     cache_dir: Option<&Path>,
     rehash: bool,
-) -> Result<Option<FeatureMap>, String> {
+) -> Result<Option<FeatureMap>, Failure> {
     let dir = lock.parent().unwrap_or(Path::new("."));
     let manifest = dir.join("Cargo.toml");
     if !manifest.is_file() {
@@ -71,14 +71,14 @@ pub fn features(
                     .map(|(n, v, s, f)| ((n.clone(), v.clone(), s.clone()), f.clone()))
                     .collect(),
             )),
-            Err(why) => Err(why.clone()),
+            Err(why) => Err(Failure::Lasting(why.clone())),
         };
     }
     let result = match run_metadata(dir, &manifest, manifests) {
         Ok(None) => return Ok(None),
         Ok(Some(map)) => Ok(map),
         // Refusing a special file is about this moment's file system: not kept.
-        Err(Failure::Now(why)) => return Err(why),
+        Err(Failure::Now(why)) => return Err(Failure::Now(why)),
         Err(Failure::Lasting(why)) => Err(why),
     };
     if let Some(path) = cache_path {
@@ -104,14 +104,25 @@ pub fn features(
             crate::cache::write_cache_file(&path, &bytes);
         }
     }
-    result.map(Some)
+    result.map(Some).map_err(Failure::Lasting)
 }
 
 /// Why features could not be read: for as long as the inputs stay the same (cached), or
 /// because of a file as it is now (not cached).
-enum Failure {
+#[derive(Debug, Clone)]
+pub enum Failure {
+    /// Until the inputs of the cache key change (see [`outside_inputs`]).
     Lasting(String),
+    /// Now only.
     Now(String),
+}
+
+impl std::fmt::Display for Failure {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            Failure::Lasting(why) | Failure::Now(why) => f.write_str(why),
+        }
+    }
 }
 
 /// Runs `cargo metadata` for the workspace at `dir`; `Ok(None)` when cargo is not on PATH.
@@ -173,35 +184,17 @@ fn load(path: &Path) -> Option<CacheFile> {
         .filter(|c| c.kind == CACHE_KIND && c.version == CACHE_VERSION)
 }
 
-fn cache_key(dir: &Path, lock_bytes: &[u8], manifests: &[PathBuf]) -> String {
-    let mut h = Sha256::new();
-    h.update(std::env::consts::OS.as_bytes());
-    h.update([0]);
-    h.update(std::env::consts::ARCH.as_bytes());
-    h.update([0]);
-    h.update(dir.to_string_lossy().as_bytes());
-    h.update([0]);
-    h.update(lock_bytes);
-    // The toolchain file that pins the Rust version (rustup reads the first one found from the
-    // folder up), and the toolchain rustup would pick otherwise.
+/// What the features of the workspace at `dir` depend on outside its manifests: the toolchain
+/// file that pins the Rust version (rustup reads the first one found from the folder up), and
+/// the folders of the toolchains rustup has installed and of the crates in cargo's local cache
+/// (installing a toolchain or `cargo fetch` changes their modification times), so that a
+/// cached failure ends when they change.
+pub fn outside_inputs(dir: &Path) -> (Option<PathBuf>, Vec<PathBuf>) {
     let start = std::path::absolute(dir).unwrap_or_else(|_| dir.to_path_buf());
-    if let Some(file) = start
+    let pin = start
         .ancestors()
         .flat_map(|f| [f.join("rust-toolchain.toml"), f.join("rust-toolchain")])
-        .find(|f| f.is_file())
-    {
-        h.update([0]);
-        h.update(file.to_string_lossy().as_bytes());
-        h.update([0]);
-        h.update(crate::limits::read_regular_file(&file).unwrap_or_default());
-    }
-    for var in ["RUSTUP_TOOLCHAIN", "CARGO", "PATH"] {
-        h.update([0]);
-        h.update(std::env::var_os(var).unwrap_or_default().as_encoded_bytes());
-    }
-    // What a failure depends on outside the repository: the toolchains rustup has installed
-    // and the crates in cargo's local cache (installing a toolchain or `cargo fetch` changes
-    // these folders' modification times), so that a cached failure ends when they change.
+        .find(|f| f.is_file());
     let home = |var: &str, default: &str| {
         std::env::var_os(var)
             .map(PathBuf::from)
@@ -219,6 +212,29 @@ fn cache_key(dir: &Path, lock_bytes: &[u8], manifests: &[PathBuf]) -> String {
             sub.sort();
             folders.extend(sub);
         }
+    }
+    (pin, folders)
+}
+
+fn cache_key(dir: &Path, lock_bytes: &[u8], manifests: &[PathBuf]) -> String {
+    let mut h = Sha256::new();
+    h.update(std::env::consts::OS.as_bytes());
+    h.update([0]);
+    h.update(std::env::consts::ARCH.as_bytes());
+    h.update([0]);
+    h.update(dir.to_string_lossy().as_bytes());
+    h.update([0]);
+    h.update(lock_bytes);
+    for var in ["RUSTUP_TOOLCHAIN", "CARGO", "PATH"] {
+        h.update([0]);
+        h.update(std::env::var_os(var).unwrap_or_default().as_encoded_bytes());
+    }
+    let (pin, folders) = outside_inputs(dir);
+    if let Some(file) = pin {
+        h.update([0]);
+        h.update(file.to_string_lossy().as_bytes());
+        h.update([0]);
+        h.update(crate::limits::read_regular_file(&file).unwrap_or_default());
     }
     for f in folders {
         h.update([0]);
