@@ -14,8 +14,11 @@
 //!
 //! A path modified within [`crate::cache::RACY_WINDOW_NS`] before it was read is not trusted (it could change
 //! again within the file system's timestamp granularity without its metadata showing it), the
-//! digest cache's rule. A result whose features could not be computed (no `cargo`, a failing
-//! `cargo metadata`) is not kept, so that the next stamp tries again.
+//! digest cache's rule. A result whose features could not be computed for a reason of the
+//! moment (no `cargo`, a special file cargo would wait on) is not kept, so that the next stamp
+//! tries again; one that failed for a lasting reason (a pinned toolchain not installed, crates
+//! missing from cargo's cache) is kept with the toolchain pin and rustup's and cargo's folders
+//! among the files it depends on.
 //!
 //! One file per repository root and host, `lockfiles-<digest>.json`, in the digest cache's
 //! folder; it also names the runprint build and the file-size limit it was written with, and is
