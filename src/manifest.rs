@@ -1107,25 +1107,15 @@ impl Manifest {
     /// a leading `{`, anything else is read as TOML.
     pub fn parse(text: &str, path: &Path) -> Result<Manifest, ManifestError> {
         let text = text.strip_prefix('\u{feff}').unwrap_or(text);
-        if let Some((offset, c)) = crate::lockfile::find_control_character(text) {
-            return Err(ManifestError::Syntax {
-                path: path.to_path_buf(),
-                line: Some(crate::lockfile::line_of(text, offset)),
-                message: format!(
-                    "control character U+{:04X}: not a text file (binary or damaged?)",
-                    c as u32
-                ),
-            });
-        }
-        let manifest: Manifest = if text.trim_start().starts_with('{') {
+        let parsed: Result<Manifest, ManifestError> = if text.trim_start().starts_with('{') {
             serde_json::from_str(text).map_err(|e| ManifestError::Syntax {
                 path: path.to_path_buf(),
                 line: Some(e.line()),
                 message: e.to_string(),
-            })?
+            })
         } else if let Some(m) = crate::toml_events::from_str::<Manifest>(text) {
             // A manifest as runprint writes it, read without building the document first.
-            m
+            Ok(m)
         } else {
             toml::from_str(text).map_err(|e| {
                 let line = e
@@ -1136,8 +1126,21 @@ impl Manifest {
                     line,
                     message: e.message().to_string(),
                 }
-            })?
+            })
         };
+        // Neither TOML nor JSON admits a control character other than tab and line ends, so
+        // only a text that did not parse is searched for one: it then explains the failure.
+        let manifest = parsed.map_err(|e| match crate::lockfile::find_control_character(text) {
+            Some((offset, c)) => ManifestError::Syntax {
+                path: path.to_path_buf(),
+                line: Some(crate::lockfile::line_of(text, offset)),
+                message: format!(
+                    "control character U+{:04X}: not a text file (binary or damaged?)",
+                    c as u32
+                ),
+            },
+            None => e,
+        })?;
         if manifest.schema_version == 0 || manifest.schema_version > SCHEMA_VERSION {
             return Err(ManifestError::UnsupportedVersion {
                 path: path.to_path_buf(),
@@ -1306,6 +1309,25 @@ mod tests {
             let full: Manifest = toml::from_str(&text).unwrap();
             assert_eq!(fast, full);
             assert_eq!(fast, m);
+        }
+    }
+
+    /// A control character (not a text file) is named with its line, in TOML and in JSON, as
+    /// neither format admits one (TOML v1.0.0 and RFC 8259: only tab and line ends).
+    #[test]
+    fn a_control_character_is_named_with_its_line() {
+        let toml = sample().render(ManifestFormat::Toml);
+        let json = sample().render(ManifestFormat::Json);
+        for text in [toml, json] {
+            let second = text.find('\n').unwrap() + 1;
+            let mut damaged = text.clone();
+            damaged.insert(second + 2, '\0');
+            let e = Manifest::parse(&damaged, Path::new("m.toml")).unwrap_err();
+            let shown = e.to_string();
+            assert!(
+                shown.contains("U+0000") && shown.contains("line 2"),
+                "{shown}"
+            );
         }
     }
 
