@@ -740,25 +740,13 @@ impl Content {
     pub fn fingerprint(&self) -> String {
         // Streamed into the hash through a small buffer: a large manifest's canonical JSON
         // (megabytes) is never held whole.
-        let mut w = std::io::BufWriter::with_capacity(64 * 1024, HashWriter(Sha256::new()));
+        // (sha2's hash is itself an `io::Write`.)
+        let mut w = std::io::BufWriter::with_capacity(64 * 1024, Sha256::new());
         serde_json::to_writer(&mut w, self).expect("manifest content always serializes");
         let h = w
             .into_inner()
             .unwrap_or_else(|_| unreachable!("writing to a hash cannot fail"));
-        format!("sha256:{}", hex(&h.0.finalize()))
-    }
-}
-
-/// An `io::Write` that feeds a SHA-256 hash.
-struct HashWriter(Sha256);
-
-impl std::io::Write for HashWriter {
-    fn write(&mut self, buf: &[u8]) -> std::io::Result<usize> {
-        self.0.update(buf);
-        Ok(buf.len())
-    }
-    fn flush(&mut self) -> std::io::Result<()> {
-        Ok(())
+        format!("sha256:{}", hex(&h.finalize()))
     }
 }
 

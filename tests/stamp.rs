@@ -668,7 +668,7 @@ fn a_missing_pinned_toolchain_is_a_warning_and_cargo_starts_once() {
         format!(
             "#!/bin/sh\necho start >> '{}'\nexec '{}' \"$@\"\n",
             log.display(),
-            which(&cargo)
+            cargo
         ),
     )
     .unwrap();
@@ -695,16 +695,10 @@ fn a_missing_pinned_toolchain_is_a_warning_and_cargo_starts_once() {
     assert_eq!(starts.lines().count(), 1, "cargo started {starts:?}");
 }
 
-/// The full path of a program found on `PATH` (or the name as given when it has a slash).
+/// The full path of a program found on `PATH` (runprint's own lookup), or the name as given.
 fn which(program: &str) -> String {
-    if program.contains('/') {
-        return program.to_string();
-    }
-    std::env::var_os("PATH")
-        .into_iter()
-        .flat_map(|p| std::env::split_paths(&p).collect::<Vec<_>>())
-        .map(|d| d.join(program))
-        .find(|p| p.is_file())
+    let env: std::collections::BTreeMap<String, String> = std::env::vars().collect();
+    runprint::collect::python::which(program, &env)
         .map(|p| p.display().to_string())
         .unwrap_or_else(|| program.to_string())
 }

@@ -53,7 +53,12 @@ pub fn features(
     if !manifest.is_file() {
         return Ok(None);
     }
-    let key = cache_key(dir, lock_bytes, manifests);
+    let (pin, folders) = outside_inputs(dir);
+    let key = cache_key(dir, lock_bytes, manifests, pin.as_deref(), &folders);
+    let lasting = |message: String| Failure {
+        message,
+        depends_on: Some(pin.iter().chain(&folders).cloned().collect()),
+    };
     let cache_path = cache_dir.map(|d| d.join(CACHE_FILE));
     let mut cache = cache_path
         .as_deref()
@@ -71,15 +76,20 @@ pub fn features(
                     .map(|(n, v, s, f)| ((n.clone(), v.clone(), s.clone()), f.clone()))
                     .collect(),
             )),
-            Err(why) => Err(Failure::Lasting(why.clone())),
+            Err(why) => Err(lasting(why.clone())),
         };
     }
     let result = match run_metadata(dir, &manifest, manifests) {
         Ok(None) => return Ok(None),
         Ok(Some(map)) => Ok(map),
         // Refusing a special file is about this moment's file system: not kept.
-        Err(Failure::Now(why)) => return Err(Failure::Now(why)),
-        Err(Failure::Lasting(why)) => Err(why),
+        Err(Why::Now(message)) => {
+            return Err(Failure {
+                message,
+                depends_on: None,
+            })
+        }
+        Err(Why::Lasting(why)) => Err(why),
     };
     if let Some(path) = cache_path {
         let order = cache.entries.values().map(|(o, _)| *o).max().unwrap_or(0) + 1;
@@ -104,25 +114,30 @@ pub fn features(
             crate::cache::write_cache_file(&path, &bytes);
         }
     }
-    result.map(Some).map_err(Failure::Lasting)
+    result.map(Some).map_err(lasting)
 }
 
-/// Why features could not be read: for as long as the inputs stay the same (cached), or
-/// because of a file as it is now (not cached).
+/// Why features could not be read.
 #[derive(Debug, Clone)]
-pub enum Failure {
-    /// Until the inputs of the cache key change (see [`outside_inputs`]).
-    Lasting(String),
-    /// Now only.
-    Now(String),
+pub struct Failure {
+    /// The reason, one sentence.
+    pub message: String,
+    /// For a lasting failure (cached), the files outside the repository it holds for as long
+    /// as they are unchanged (see [`outside_inputs`]); `None` for a failure of the moment.
+    pub depends_on: Option<Vec<PathBuf>>,
 }
 
 impl std::fmt::Display for Failure {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
-        match self {
-            Failure::Lasting(why) | Failure::Now(why) => f.write_str(why),
-        }
+        f.write_str(&self.message)
     }
+}
+
+/// Why `cargo metadata` gave no features: for as long as the inputs stay the same (cached),
+/// or because of a file as it is now (not cached).
+enum Why {
+    Lasting(String),
+    Now(String),
 }
 
 /// Runs `cargo metadata` for the workspace at `dir`; `Ok(None)` when cargo is not on PATH.
@@ -130,10 +145,10 @@ fn run_metadata(
     dir: &Path,
     manifest: &Path,
     manifests: &[PathBuf],
-) -> Result<Option<FeatureMap>, Failure> {
-    refuse_toolchain_by_path(dir).map_err(Failure::Lasting)?;
-    refuse_special_inputs(dir, manifests).map_err(Failure::Now)?;
-    let Some(host) = cargo_host_triple(dir).map_err(Failure::Lasting)? else {
+) -> Result<Option<FeatureMap>, Why> {
+    refuse_toolchain_by_path(dir).map_err(Why::Lasting)?;
+    refuse_special_inputs(dir, manifests).map_err(Why::Now)?;
+    let Some(host) = cargo_host_triple(dir).map_err(Why::Lasting)? else {
         return Ok(None);
     };
     // Only the host platform's packages: those for other platforms may never have been
@@ -153,14 +168,14 @@ fn run_metadata(
         crate::child::timeout(METADATA_TIMEOUT),
         METADATA_OUTPUT,
     )
-    .map_err(|e| Failure::Now(format!("`cargo metadata` {e}")))?;
+    .map_err(|e| Why::Now(format!("`cargo metadata` {e}")))?;
     if !out.status.success() {
         let first = crate::redact::scrub_url_credentials(&crate::child::first_line(&out.stderr));
         let all = String::from_utf8_lossy(&out.stderr).to_ascii_lowercase();
         // cargo's words when a crate is not in the local registry cache and it may not
         // download it (`--offline`); from memory of cargo's messages.
         let missing = all.contains("offline") || all.contains("download");
-        return Err(Failure::Lasting(if missing {
+        return Err(Why::Lasting(if missing {
             format!(
                 "Cargo's enabled features were not read: some crates of `Cargo.lock` are not in this machine's cargo cache and runprint never downloads (run `cargo fetch` once to read them); cargo said: {first}"
             )
@@ -170,7 +185,7 @@ fn run_metadata(
     }
     let metadata = cargo_metadata::MetadataCommand::parse(String::from_utf8_lossy(&out.stdout))
         .map_err(|e| {
-            Failure::Now(format!(
+            Why::Now(format!(
                 "`cargo metadata` printed something unexpected: {e}"
             ))
         })?;
@@ -189,7 +204,7 @@ fn load(path: &Path) -> Option<CacheFile> {
 /// the folders of the toolchains rustup has installed and of the crates in cargo's local cache
 /// (installing a toolchain or `cargo fetch` changes their modification times), so that a
 /// cached failure ends when they change.
-pub fn outside_inputs(dir: &Path) -> (Option<PathBuf>, Vec<PathBuf>) {
+fn outside_inputs(dir: &Path) -> (Option<PathBuf>, Vec<PathBuf>) {
     let start = std::path::absolute(dir).unwrap_or_else(|_| dir.to_path_buf());
     let pin = start
         .ancestors()
@@ -216,7 +231,13 @@ pub fn outside_inputs(dir: &Path) -> (Option<PathBuf>, Vec<PathBuf>) {
     (pin, folders)
 }
 
-fn cache_key(dir: &Path, lock_bytes: &[u8], manifests: &[PathBuf]) -> String {
+fn cache_key(
+    dir: &Path,
+    lock_bytes: &[u8],
+    manifests: &[PathBuf],
+    pin: Option<&Path>,
+    folders: &[PathBuf],
+) -> String {
     let mut h = Sha256::new();
     h.update(std::env::consts::OS.as_bytes());
     h.update([0]);
@@ -229,17 +250,16 @@ fn cache_key(dir: &Path, lock_bytes: &[u8], manifests: &[PathBuf]) -> String {
         h.update([0]);
         h.update(std::env::var_os(var).unwrap_or_default().as_encoded_bytes());
     }
-    let (pin, folders) = outside_inputs(dir);
     if let Some(file) = pin {
         h.update([0]);
         h.update(file.to_string_lossy().as_bytes());
         h.update([0]);
-        h.update(crate::limits::read_regular_file(&file).unwrap_or_default());
+        h.update(crate::limits::read_regular_file(file).unwrap_or_default());
     }
     for f in folders {
         h.update([0]);
         h.update(f.to_string_lossy().as_bytes());
-        if let Ok(meta) = std::fs::metadata(&f) {
+        if let Ok(meta) = std::fs::metadata(f) {
             let stamp = crate::cache::FileStamp::of(&meta);
             h.update(serde_json::to_vec(&stamp).unwrap_or_default());
         }

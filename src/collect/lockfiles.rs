@@ -473,14 +473,9 @@ fn read_one(
             Err(e) => {
                 // A lasting failure (a pinned toolchain not installed, crates missing from
                 // cargo's cache) holds while the files it depends on stay the same.
-                match &e {
-                    cargo_features::Failure::Lasting(_) => {
-                        let dir = abs.parent().unwrap_or(Path::new("."));
-                        let (pin, folders) = cargo_features::outside_inputs(dir);
-                        inputs.paths.extend(pin);
-                        inputs.paths.extend(folders);
-                    }
-                    cargo_features::Failure::Now(_) => inputs.reusable = false,
+                match &e.depends_on {
+                    Some(paths) => inputs.paths.extend(paths.iter().cloned()),
+                    None => inputs.reusable = false,
                 }
                 warnings.push(format!(
                     "lockfile `{shown}`: enabled features not recorded: {e}"

@@ -527,6 +527,13 @@ struct Remembered {
     scope: Scope,
 }
 
+/// The last scope computed for the repository at `root`, from the cache folder `dir`.
+fn read_remembered(dir: &Path, root: &Path) -> Option<Remembered> {
+    let file = crate::cache::per_repository_file(dir, RESULT_PREFIX, root);
+    let bytes = crate::cache::read_cache_file(&file).ok()?;
+    serde_json::from_slice(&bytes).ok()
+}
+
 /// What a warm stamp reads for the scope while git's status is still running: the digest of
 /// the git index and the last result with its manifest sections already rendered.
 pub struct Ahead {
@@ -545,13 +552,7 @@ impl Ahead {
         let index_digest = index
             .and_then(|i| crate::limits::read_regular_file_nofollow(i).ok())
             .map(|bytes| crate::manifest::hex(&Sha256::digest(&bytes)));
-        let remembered = crate::cache::read_cache_file(&crate::cache::per_repository_file(
-            dir,
-            RESULT_PREFIX,
-            root,
-        ))
-        .ok()
-        .and_then(|b| serde_json::from_slice::<Remembered>(&b).ok());
+        let remembered = read_remembered(dir, root);
         let rendered = remembered
             .as_ref()
             .and_then(|r| crate::manifest::RenderedScope::of(&r.scope));
@@ -637,18 +638,12 @@ pub fn collect(req: &Request, inputs: &Inputs<'_>, ahead: Option<Ahead>) -> Coll
     });
     let (remembered, rendered) = match ahead {
         Some(a) => (a.remembered, a.rendered),
-        None => {
-            let remembered = inputs.cache_dir.and_then(|d| {
-                crate::cache::read_cache_file(&crate::cache::per_repository_file(
-                    d,
-                    RESULT_PREFIX,
-                    inputs.root,
-                ))
-                .ok()
-                .and_then(|b| serde_json::from_slice::<Remembered>(&b).ok())
-            });
-            (remembered, None)
-        }
+        None => (
+            inputs
+                .cache_dir
+                .and_then(|d| read_remembered(d, inputs.root)),
+            None,
+        ),
     };
     // An unchanged index and unchanged changed files: the last result, nothing built.
     if let (Some(r), Some(q)) = (&remembered, &quick) {

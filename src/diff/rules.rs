@@ -632,26 +632,12 @@ pub struct Classified {
     pub how: String,
 }
 
-/// A name table as a set: a comparison looks up every changed package in three tables.
-struct NameSet(std::sync::LazyLock<std::collections::HashSet<&'static str>>);
-
-macro_rules! name_set {
-    ($table:expr) => {
-        NameSet(std::sync::LazyLock::new(|| {
-            $table.iter().copied().collect()
-        }))
-    };
-}
-
-impl NameSet {
-    fn contains(&self, name: &str) -> bool {
-        self.0.contains(name)
-    }
-}
-
-static NUMERIC_SET: NameSet = name_set!(NUMERIC_PACKAGES);
-static INFRASTRUCTURE_SET: NameSet = name_set!(INFRASTRUCTURE_PACKAGES);
-static TOOLING_SET: NameSet = name_set!(TOOLING_PACKAGES);
+/// The name tables as sets: a comparison looks up every changed package in three tables.
+type NameSet = std::sync::LazyLock<std::collections::HashSet<&'static str>>;
+static NUMERIC_SET: NameSet = NameSet::new(|| NUMERIC_PACKAGES.iter().copied().collect());
+static INFRASTRUCTURE_SET: NameSet =
+    NameSet::new(|| INFRASTRUCTURE_PACKAGES.iter().copied().collect());
+static TOOLING_SET: NameSet = NameSet::new(|| TOOLING_PACKAGES.iter().copied().collect());
 
 /// True when the package does numerical work by the built-in tables.
 pub fn is_numeric_package(name: &str) -> bool {
@@ -662,19 +648,22 @@ pub fn is_numeric_package(name: &str) -> bool {
         NUMERIC_SET.contains(last) || last.contains("cuda") || last.contains("rocm")
     };
     !is_infrastructure_package(&n)
-        && (image || NUMERIC_SET.contains(&n) || NUMERIC_PREFIXES.iter().any(|p| n.starts_with(p)))
+        && (image
+            || NUMERIC_SET.contains(n.as_str())
+            || NUMERIC_PREFIXES.iter().any(|p| n.starts_with(p)))
 }
 
 /// True when the package is infrastructure by the built-in tables.
 pub fn is_infrastructure_package(name: &str) -> bool {
     let n = name.to_ascii_lowercase();
-    INFRASTRUCTURE_SET.contains(&n) || INFRASTRUCTURE_PREFIXES.iter().any(|p| n.starts_with(p))
+    INFRASTRUCTURE_SET.contains(n.as_str())
+        || INFRASTRUCTURE_PREFIXES.iter().any(|p| n.starts_with(p))
 }
 
 /// True when the package is development tooling by the built-in tables.
 pub fn is_tooling_package(name: &str) -> bool {
     let n = name.to_ascii_lowercase();
-    TOOLING_SET.contains(&n) || TOOLING_PREFIXES.iter().any(|p| n.starts_with(p))
+    TOOLING_SET.contains(n.as_str()) || TOOLING_PREFIXES.iter().any(|p| n.starts_with(p))
 }
 
 /// A local version label that marks a compiled build for a device or a framework ABI

@@ -79,8 +79,8 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
             format!("`{path}`, line {line_no}: not a requirement pip reads: {why}; not recorded")
         };
         if let Some(rest) = option_value(line, "-e", "--editable") {
-            if strip_trailing_extras(rest) == "." {
-                continue; // the repository's own project, as below
+            if is_own_project(rest) {
+                continue;
             }
             match editable(rest) {
                 Ok(p) => packages.push(p),
@@ -107,9 +107,7 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
         }
         // A line that cannot be read (a specifier pip would refuse, a cut line, a malformed
         // hash) is that line's problem alone: the file's other pins are kept.
-        // `.` (with extras or not) installs the project of the file's own folder: code of
-        // the repository, which the manifest records through git; nothing to add here.
-        if strip_trailing_extras(line.split_whitespace().next().unwrap_or_default()) == "." {
+        if is_own_project(line.split_whitespace().next().unwrap_or_default()) {
             continue;
         }
         match requirement(line) {
@@ -400,6 +398,12 @@ fn project_name_from_location(target: &str) -> Option<String> {
     let last = location.rsplit(['/', '\\']).next()?;
     let last = last.strip_suffix(".git").unwrap_or(last);
     (is_valid_name(last) && !matches!(last, "." | ".." | "~")).then(|| last.to_string())
+}
+
+/// `.` or `.[extras]`: the project of the file's own folder, code of the repository that the
+/// manifest records through git; a requirement line for it adds nothing.
+fn is_own_project(target: &str) -> bool {
+    strip_trailing_extras(target) == "."
 }
 
 /// `./path[extra1,extra2]` → `./path` (pip allows extras after a local path).
