@@ -26,30 +26,59 @@ use toml_parser::{ErrorSink, ParseError, Source, Span};
 /// Nesting the reader follows before giving up (the `toml` crate's own limit).
 const MAX_DEPTH: u32 = 80;
 
+/// Texts are lexed and parsed in pieces of about this many bytes, each ending before a line
+/// that opens a table, so that the parser's token list stays small (and its memory is used
+/// again) however large the file.
+const PIECE: usize = 64 * 1024;
+
 /// Deserializes `text`, or `None` when this reader does not take it (see the module docs).
 pub fn from_str<'a, T: de::Deserialize<'a>>(text: &'a str) -> Option<T> {
-    let source = Source::new(text);
-    let tokens = source.lex().into_vec();
+    from_str_in_pieces(text, PIECE)
+}
+
+/// [`from_str`] with pieces of at least `piece` bytes; `1` cuts before every line that
+/// begins with `[`. For the tests, which check that the answer does not depend on it.
+#[doc(hidden)]
+pub fn from_str_in_pieces<'a, T: de::Deserialize<'a>>(text: &'a str, piece: usize) -> Option<T> {
+    // Offsets are kept as `u32`; a larger text is left to the full parser.
+    u32::try_from(text.len()).ok()?;
     let mut failed = Failed(false);
     let mut collect = Collect {
-        source,
-        // About one event for every two tokens; never grown (and copied) for a large file.
-        events: Vec::with_capacity(tokens.len()),
+        source: Source::new(""),
+        offset: 0,
+        // About one event for every eight bytes of a manifest.
+        events: Vec::with_capacity(text.len() / 8),
         headers: Vec::new(),
         header: None,
         failed: false,
     };
-    {
-        let mut validate = ValidateWhitespace::new(&mut collect, source);
-        let mut guard = RecursionGuard::new(&mut validate, MAX_DEPTH);
-        toml_parser::parser::parse_document(&tokens, &mut guard, &mut failed);
+    let mut tokens = Vec::new();
+    let mut start = 0;
+    loop {
+        let end = piece_end(text, start, piece);
+        collect.source = Source::new(&text[start..end]);
+        collect.offset = start;
+        tokens.clear();
+        tokens.extend(collect.source.lex());
+        {
+            let mut validate =
+                ValidateWhitespace::new(&mut collect, Source::new(&text[start..end]));
+            let mut guard = RecursionGuard::new(&mut validate, MAX_DEPTH);
+            toml_parser::parser::parse_document(&tokens, &mut guard, &mut failed);
+        }
+        // A piece cut inside a multi-line string, array or inline table ends unterminated,
+        // which is an error here: the whole text then goes to the full parser.
+        if failed.0 || collect.failed || collect.header.is_some() {
+            return None;
+        }
+        if end == text.len() {
+            break;
+        }
+        start = end;
     }
     drop(tokens);
-    if failed.0 || collect.failed {
-        return None;
-    }
     let mut reader = Reader {
-        source,
+        source: Source::new(text),
         events: collect.events,
         headers: collect.headers,
         pos: 0,
@@ -60,6 +89,16 @@ pub fn from_str<'a, T: de::Deserialize<'a>>(text: &'a str) -> Option<T> {
     })
     .ok()?;
     (reader.pos == reader.events.len()).then_some(value)
+}
+
+/// Where the piece of `text` that begins at `start` ends: at the start of the first line
+/// beginning with `[` at least `piece` bytes on, or at the end of the text.
+fn piece_end(text: &str, start: usize, piece: usize) -> usize {
+    let from = start.saturating_add(piece.max(1));
+    if from >= text.len() {
+        return text.len();
+    }
+    memchr::memmem::find(&text.as_bytes()[from..], b"\n[").map_or(text.len(), |i| from + i + 1)
 }
 
 /// Records that the parser or a decoder reported an error.
@@ -78,17 +117,27 @@ enum Ev {
     /// A table header, by its index in [`Reader::headers`].
     Header(usize),
     /// A key of a key/value pair.
-    Key(Span, Option<Encoding>),
+    Key(At, Option<Encoding>),
     /// `=`.
     KeyVal,
     /// A string, number or boolean.
-    Scalar(Span, Option<Encoding>),
+    Scalar(At, Option<Encoding>),
     ArrayOpen,
     ArrayClose,
     InlineOpen,
     InlineClose,
     /// `,` in an array or inline table.
     Comma,
+}
+
+/// A span of the whole text, in half the room of a [`Span`].
+#[derive(Debug, Clone, Copy)]
+struct At(u32, u32);
+
+impl At {
+    fn span(self) -> Span {
+        Span::new_unchecked(self.0 as usize, self.1 as usize)
+    }
 }
 
 /// A table header: `[a.b]` or `[[a.b]]`.
@@ -98,7 +147,9 @@ struct Header<'a> {
 }
 
 struct Collect<'a> {
+    /// The piece being parsed, which begins at `offset` of the whole text.
     source: Source<'a>,
+    offset: usize,
     events: Vec<Ev>,
     headers: Vec<Header<'a>>,
     /// The header being read.
@@ -121,6 +172,14 @@ fn decode_key<'a>(
 }
 
 impl<'a> Collect<'a> {
+    /// `span` of the piece as a span of the whole text (which fits `u32`: checked first).
+    fn at(&self, span: Span) -> At {
+        At(
+            (span.start() + self.offset) as u32,
+            (span.end() + self.offset) as u32,
+        )
+    }
+
     fn open(&mut self, array: bool) {
         if self.header.is_some() {
             self.failed = true;
@@ -180,7 +239,7 @@ impl EventReceiver for Collect<'_> {
                 None => self.failed = true,
             }
         } else {
-            self.events.push(Ev::Key(span, kind));
+            self.events.push(Ev::Key(self.at(span), kind));
         }
     }
     fn key_sep(&mut self, _span: Span, _error: &mut dyn ErrorSink) {
@@ -193,7 +252,7 @@ impl EventReceiver for Collect<'_> {
         self.events.push(Ev::KeyVal);
     }
     fn scalar(&mut self, span: Span, kind: Option<Encoding>, _error: &mut dyn ErrorSink) {
-        self.events.push(Ev::Scalar(span, kind));
+        self.events.push(Ev::Scalar(self.at(span), kind));
     }
     fn value_sep(&mut self, _span: Span, _error: &mut dyn ErrorSink) {
         self.events.push(Ev::Comma);
@@ -256,8 +315,8 @@ impl<'a> Reader<'a> {
         Ok(ev)
     }
 
-    fn key(&self, span: Span, encoding: Option<Encoding>) -> Result<Cow<'a, str>, GiveUp> {
-        decode_key(self.source, span, encoding).ok_or(GiveUp)
+    fn key(&self, at: At, encoding: Option<Encoding>) -> Result<Cow<'a, str>, GiveUp> {
+        decode_key(self.source, at.span(), encoding).ok_or(GiveUp)
     }
 
     /// The path of the table `(header, depth)`: the first `depth` keys of that header.
@@ -516,7 +575,8 @@ enum Scalar<'a> {
 }
 
 impl<'a> ValueDe<'_, 'a> {
-    fn scalar(&self, span: Span, encoding: Option<Encoding>) -> Result<Scalar<'a>, GiveUp> {
+    fn scalar(&self, at: At, encoding: Option<Encoding>) -> Result<Scalar<'a>, GiveUp> {
+        let span = at.span();
         let raw = self.reader.source.get(span).ok_or(GiveUp)?;
         let raw = toml_parser::Raw::new_unchecked(raw.as_str(), encoding, span);
         let mut out = Cow::Borrowed("");
@@ -701,6 +761,11 @@ mod tests {
         if let Some(v) = &fast {
             assert_eq!(Some(v), full.as_ref().ok(), "{text}");
         }
+        // Cut before every table: the same answer.
+        let cut: Option<toml::Value> = from_str_in_pieces(text, 1);
+        if let Some(v) = &cut {
+            assert_eq!(Some(v), full.as_ref().ok(), "{text}");
+        }
         fast
     }
 
@@ -786,6 +851,36 @@ a = 1
 
     /// What this reader leaves to `toml` (each valid or not, per the specification): it must
     /// answer nothing, never something else.
+    /// Texts longer than a piece: a line beginning with `[` inside a multi-line string, array
+    /// or inline table past the piece size must not cut the text there (the piece before would
+    /// end unterminated: the reader gives up and the full parser reads it), and a long document
+    /// of tables reads the same as with the `toml` crate across many pieces.
+    #[test]
+    fn pieces_end_only_between_tables() {
+        let filler: String = (0..PIECE / 12)
+            .map(|i| format!("k{i:05} = {:04}\n", i + 1000))
+            .collect();
+        for inside in [
+            "s = \"\"\"\n[not.a.table]\nx = 1\n\"\"\"\n",
+            "s = '''\n[not.a.table]\n'''\n",
+            "a = [\n[1, 2],\n[3],\n]\n",
+        ] {
+            let doc = format!("[first]\n{filler}{inside}[after]\ny = 2\n");
+            assert!(doc.len() > PIECE);
+            let full: toml::Value = toml::from_str(&doc).unwrap();
+            // Either reader's answer is the `toml` crate's.
+            if let Some(fast) = same(&doc) {
+                assert_eq!(fast, full);
+            }
+        }
+        let many: String = (0..20_000)
+            .map(|i| format!("[[p]]\nname = \"n{i}\"\nv = [\"{i}\", 'x']\n"))
+            .collect();
+        assert!(many.len() > 4 * PIECE);
+        let fast = same(&many).expect("a plain array of tables is read");
+        assert_eq!(fast["p"].as_array().unwrap().len(), 20_000);
+    }
+
     #[test]
     fn gives_up_on_what_it_does_not_read() {
         for doc in [
