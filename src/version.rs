@@ -3,6 +3,7 @@
 //! dotted-number fallback for everything else or for versions the strict rules reject.
 
 use std::cmp::Ordering;
+use std::str::FromStr;
 
 use serde::{Deserialize, Serialize};
 
@@ -308,5 +309,144 @@ mod tests {
         assert!(is_post_release_step("pypi", "1.2.3", "1.2.3.post1"));
         assert!(!is_post_release_step("pypi", "1.2.3", "1.2.4"));
         assert!(!is_post_release_step("cargo", "1.2.3", "1.2.3.post1"));
+    }
+}
+
+/// The newest version a PEP 440 specifier admits, which is what an installer resolving it
+/// takes when a newer release exists (pip's resolver prefers the newest candidate; common
+/// practice).
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum Newest {
+    /// No upper bound: the newest release.
+    Unbounded,
+    /// Below this version (`<V`, `~=`, `==V.*`).
+    Below(pep440_rs::Version),
+    /// This version or below (`<=V`, `==V`, `===V`, or a pinned version as written).
+    AtMost(pep440_rs::Version),
+}
+
+/// True when a recorded Python version is a specifier (or empty: any version) rather than
+/// one version.
+pub fn is_range(version: &str) -> bool {
+    version.is_empty() || version.starts_with(['<', '>', '=', '!', '~'])
+}
+
+/// The newest version admitted by `spec`: a PEP 440 specifier list, a bare version (as a
+/// pinned requirement is recorded) or empty (any version). `None` when it does not parse.
+pub fn newest_admitted(spec: &str) -> Option<Newest> {
+    use pep440_rs::Operator;
+    if spec.is_empty() {
+        return Some(Newest::Unbounded);
+    }
+    if !is_range(spec) {
+        return pep440_rs::Version::from_str(spec).ok().map(Newest::AtMost);
+    }
+    let specifiers = pep440_rs::VersionSpecifiers::from_str(spec).ok()?;
+    let mut best = Newest::Unbounded;
+    for s in specifiers.iter() {
+        let v = s.version().clone();
+        let bound = match s.operator() {
+            Operator::LessThan => Newest::Below(v),
+            Operator::LessThanEqual | Operator::Equal | Operator::ExactEqual => Newest::AtMost(v),
+            Operator::EqualStar => Newest::Below(bump(&v, v.release().len().saturating_sub(1))),
+            // `~=X.Y.Z` is `>=X.Y.Z, ==X.Y.*` (PEP 440, "Compatible release").
+            Operator::TildeEqual => Newest::Below(bump(&v, v.release().len().saturating_sub(2))),
+            _ => continue,
+        };
+        if tighter(&bound, &best) {
+            best = bound;
+        }
+    }
+    Some(best)
+}
+
+/// `v`'s release with part `i` raised by one and the parts after it dropped.
+fn bump(v: &pep440_rs::Version, i: usize) -> pep440_rs::Version {
+    let mut release: Vec<u64> = v.release().iter().take(i + 1).copied().collect();
+    if let Some(last) = release.last_mut() {
+        *last += 1;
+    }
+    pep440_rs::Version::new(release)
+}
+
+fn tighter(a: &Newest, b: &Newest) -> bool {
+    let key = |n: &Newest| match n {
+        Newest::Unbounded => None,
+        Newest::Below(v) => Some((v.clone(), 0)),
+        Newest::AtMost(v) => Some((v.clone(), 1)),
+    };
+    match (key(a), key(b)) {
+        (Some(_), None) => true,
+        (Some(x), Some(y)) => x < y,
+        _ => false,
+    }
+}
+
+/// A version standing for "the newest admitted" in version comparisons: the version itself
+/// for `AtMost`; for `Below(V)`, a version just under `V` (`<2.2` → `2.1.999999`, `<2.0` →
+/// `1.999999`), so that `<2.2` → `<2.4` reads as a minor step and `==1.26.4` → `<2.0` as one.
+pub fn newest_stand_in(n: &Newest) -> Option<String> {
+    const HIGH: u64 = 999_999;
+    match n {
+        Newest::Unbounded => None,
+        Newest::AtMost(v) => Some(v.to_string()),
+        Newest::Below(v) => {
+            let mut release: Vec<u64> = v.release().to_vec();
+            while release.len() > 1 && release.last() == Some(&0) {
+                release.pop();
+            }
+            let last = release.len() - 1;
+            if release[last] == 0 {
+                return Some("0".into());
+            }
+            release[last] -= 1;
+            release.push(HIGH);
+            Some(
+                release
+                    .iter()
+                    .map(u64::to_string)
+                    .collect::<Vec<_>>()
+                    .join("."),
+            )
+        }
+    }
+}
+
+#[cfg(test)]
+mod range_tests {
+    use super::*;
+
+    /// PEP 440, "Version specifiers": the compatible-release and prefix-matching examples
+    /// (`~= 2.2` is `>= 2.2, == 2.*`; `~= 1.4.5` is `>= 1.4.5, == 1.4.*`).
+    #[test]
+    fn newest_admitted_by_specifiers() {
+        let v = |s: &str| pep440_rs::Version::from_str(s).unwrap();
+        assert_eq!(newest_admitted("~=2.2"), Some(Newest::Below(v("3"))));
+        assert_eq!(newest_admitted("~=1.4.5"), Some(Newest::Below(v("1.5"))));
+        assert_eq!(newest_admitted("==1.1.*"), Some(Newest::Below(v("1.2"))));
+        assert_eq!(newest_admitted(">=2.1,<2.2"), Some(Newest::Below(v("2.2"))));
+        assert_eq!(newest_admitted("<=2.4,<2.3"), Some(Newest::Below(v("2.3"))));
+        assert_eq!(newest_admitted("<2.3,<=2.3"), Some(Newest::Below(v("2.3"))));
+        assert_eq!(newest_admitted(">=2"), Some(Newest::Unbounded));
+        assert_eq!(newest_admitted(""), Some(Newest::Unbounded));
+        assert_eq!(newest_admitted("1.26.4"), Some(Newest::AtMost(v("1.26.4"))));
+        assert_eq!(newest_admitted(">=1,<2 || >3"), None);
+    }
+
+    #[test]
+    fn stand_ins_read_as_the_step_between_ranges() {
+        let step = |a: &str, b: &str| {
+            let (x, y) = (newest_admitted(a).unwrap(), newest_admitted(b).unwrap());
+            classify(
+                "pypi",
+                &newest_stand_in(&x).unwrap(),
+                &newest_stand_in(&y).unwrap(),
+            )
+        };
+        assert_eq!(step(">=2.1,<2.2", ">=2.1,<2.4"), VersionChange::Minor);
+        assert_eq!(step("==1.26.4", "<2.0"), VersionChange::Minor);
+        assert_eq!(step("<2", "<3"), VersionChange::Major);
+        assert_eq!(step("~=2.1.0", "~=2.1.3"), VersionChange::Patch);
+        assert_eq!(step("<2.4", "<2.2"), VersionChange::Downgrade);
     }
 }

@@ -490,3 +490,174 @@ fn a_subfolder_baseline_is_checked_against_the_same_subfolder_at_a_revision() {
         .iter()
         .any(|c| c.subject == "trainer/requirements.txt: torch"));
 }
+
+/// Dependency inputs and toolchain pins at a revision. The expectations are PEP 440's
+/// (`<2.2` → `<2.4` admits new minor releases; raising a lower bound leaves the newest
+/// admitted version alone), PEP 621 / PEP 735 (where `pyproject.toml` declares dependencies),
+/// setuptools' `setup.cfg` format, pyenv's `.python-version`, the rustup book's
+/// `rust-toolchain.toml` and the Go Modules Reference's `toolchain` line.
+#[test]
+fn declared_ranges_and_toolchain_pins_are_compared_at_a_revision() {
+    let repo = repo_with(&[
+        ("train.py", "\n"),
+        (
+            "pyproject.toml",
+            "[project]\nname = \"kelp\"\nversion = \"0.1\"\ndependencies = [\"torch>=2.1,<2.2\", \"requests>=2.30\"]\n[dependency-groups]\ndev = [\"pytest>=8\"]\n",
+        ),
+        (
+            "features/setup.cfg",
+            "[metadata]\nname = feats\n[options]\ninstall_requires =\n    numpy>=1.26,<2\n",
+        ),
+        (".python-version", "3.11\n"),
+        ("tools/rust-toolchain.toml", "[toolchain]\nchannel = \"1.85.0\"\n"),
+        (
+            "tools/go.mod",
+            "module example.com/tools\n\ngo 1.22\n\ntoolchain go1.22.4\n",
+        ),
+    ]);
+    let (_dir, baseline) = baseline_of(repo.path(), &[]);
+    let m = std::fs::read_to_string(&baseline).unwrap();
+    for path in [
+        "pyproject.toml",
+        "features/setup.cfg",
+        ".python-version",
+        "tools/rust-toolchain.toml",
+    ] {
+        assert!(m.contains(&format!("path = \"{path}\"")), "{path}:\n{m}");
+    }
+    git(repo.path(), &["checkout", "-q", "-b", "bump"]);
+    write_files(
+        repo.path(),
+        &[
+            (
+                "pyproject.toml",
+                "[project]\nname = \"kelp\"\nversion = \"0.1\"\ndependencies = [\"torch>=2.1,<2.4\", \"requests>=2.31\"]\n[dependency-groups]\ndev = [\"pytest>=8\"]\n",
+            ),
+            (
+                "features/setup.cfg",
+                "[metadata]\nname = feats\n[options]\ninstall_requires =\n    numpy>=1.26,<2.2\n",
+            ),
+            (".python-version", "3.11.9\n"),
+            ("tools/rust-toolchain.toml", "[toolchain]\nchannel = \"1.86.0\"\n"),
+            (
+                "tools/go.mod",
+                "module example.com/tools\n\ngo 1.22\n\ntoolchain go1.23.0\n",
+            ),
+        ],
+    );
+    git(repo.path(), &["commit", "-qam", "bump"]);
+    git(repo.path(), &["checkout", "-q", "main"]);
+    let (code, report) = check_json(
+        &["--baseline", &baseline, "--rev", "bump"],
+        repo.path(),
+        &[],
+    );
+    assert_eq!(
+        (code, report.verdict.as_str()),
+        (4, "retrain"),
+        "{report:?}"
+    );
+    let impact = |subject: &str| {
+        report
+            .changes
+            .iter()
+            .find(|c| c.subject == subject)
+            .map(|c| c.impact.clone())
+            .unwrap_or_else(|| panic!("no change `{subject}`: {report:?}"))
+    };
+    // torch's range now admits 2.2 and 2.3: new minor releases of a numerical library.
+    assert_eq!(impact("pyproject.toml: torch"), "retrain");
+    // The newest requests admitted is unchanged.
+    assert_eq!(impact("pyproject.toml: requests"), "none");
+    // numpy's range now admits 2.0 and 2.1 (NumPy 2's promotion rules).
+    assert_eq!(impact("features/setup.cfg: numpy"), "retrain");
+    // A Python bug-fix release; a compiler for tools; Go may fuse operations differently.
+    assert_eq!(impact(".python-version: python"), "verify");
+    assert_eq!(impact("tools/rust-toolchain.toml: rust"), "none");
+    assert_eq!(impact("tools/go.mod: go"), "verify");
+    let torch = report
+        .changes
+        .iter()
+        .find(|c| c.subject == "pyproject.toml: torch")
+        .unwrap();
+    assert!(torch.reason.contains("declared range"), "{}", torch.reason);
+}
+
+/// pip-tools' `requirements.in` beside the `requirements.txt` it compiles to (pip-tools
+/// README): the input's ranges are information, the pins decide. A baseline that recorded no
+/// inputs at all (stamped before runprint read them; here, stamped with only the pinned file)
+/// does not turn an unchanged input into an added dependency.
+#[test]
+fn an_input_beside_its_lockfile_is_information_and_an_older_baseline_is_not_an_addition() {
+    let repo = repo_with(&[
+        ("train.py", "\n"),
+        ("requirements.in", "torch>=2.1,<2.2\n"),
+        ("requirements.txt", "torch==2.1.2\n"),
+        (
+            "serving/pyproject.toml",
+            "[project]\nname = \"s\"\nversion = \"1\"\ndependencies = [\"numpy>=1.26\"]\n",
+        ),
+    ]);
+    let (_dir, baseline) = baseline_of(repo.path(), &[]);
+    git(repo.path(), &["checkout", "-q", "-b", "range"]);
+    write_files(repo.path(), &[("requirements.in", "torch>=2.1,<2.4\n")]);
+    git(repo.path(), &["commit", "-qam", "range only"]);
+    git(repo.path(), &["checkout", "-q", "main"]);
+    let (code, report) = check_json(
+        &["--baseline", &baseline, "--rev", "range"],
+        repo.path(),
+        &[],
+    );
+    assert_eq!((code, report.verdict.as_str()), (0, "none"), "{report:?}");
+    let c = report
+        .changes
+        .iter()
+        .find(|c| c.subject == "requirements.in: torch")
+        .expect("the declared change is listed");
+    assert!(
+        c.reason.contains("`requirements.txt` decides"),
+        "{}",
+        c.reason
+    );
+
+    // The same revision against a baseline that read only the pinned file.
+    let old = tempfile::tempdir().unwrap();
+    let only_pins = old.path().join("old.toml");
+    let out = runprint()
+        .args([
+            "stamp",
+            "--no-lockfiles",
+            "--lockfile",
+            "requirements.txt",
+            "-o",
+        ])
+        .arg(&only_pins)
+        .current_dir(repo.path())
+        .output()
+        .unwrap();
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let only_pins = only_pins.display().to_string();
+    git(repo.path(), &["checkout", "-q", "-b", "same", "main"]);
+    write_files(repo.path(), &[("train.py", "# comment\n")]);
+    git(repo.path(), &["commit", "-qam", "comment"]);
+    git(repo.path(), &["checkout", "-q", "main"]);
+    let (_, report) = check_json(
+        &["--baseline", &only_pins, "--rev", "same"],
+        repo.path(),
+        &[],
+    );
+    let first = report
+        .changes
+        .iter()
+        .find(|c| c.subject.starts_with("serving/pyproject.toml"))
+        .expect("the input read now is listed");
+    assert_eq!(first.impact, "none", "{report:?}");
+    assert!(!report
+        .changes
+        .iter()
+        .any(|c| c.subject.contains("numpy") && c.impact != "none"));
+}

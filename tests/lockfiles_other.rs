@@ -69,8 +69,11 @@ fn go_mod_and_sum() {
             Some((&go_sum, "go/go.sum")),
         )
         .unwrap();
-    // "go directive".
-    assert_eq!(parsed.format_version.as_deref(), Some("1.22"));
+    // "go directive" and "toolchain directive" (Go Modules Reference).
+    assert_eq!(
+        parsed.format_version.as_deref(),
+        Some("1.22 (toolchain go1.22.4)")
+    );
     assert!(parsed.warnings.is_empty(), "{:?}", parsed.warnings);
     let names: Vec<&str> = parsed.packages.iter().map(|p| p.name.as_str()).collect();
     assert_eq!(

@@ -1,10 +1,12 @@
 //! The `lockfiles` section: lockfiles added or removed, and their packages one by one.
 
 use super::*;
+use crate::version::{self, VersionChange};
 
 pub(super) fn compare_lockfiles(
     old: &[Lockfile],
     new: &[Lockfile],
+    files: Option<&[FileStat]>,
     ctx: &Context<'_>,
     out: &mut Vec<Change>,
 ) {
@@ -41,15 +43,199 @@ pub(super) fn compare_lockfiles(
                 ));
             }
             (Some(a), Some(b)) => {
-                if a.sha256 != b.sha256 || a.packages != b.packages {
+                if b.ecosystem == "go" && a.format_version != b.format_version {
+                    go_toolchain(path, a, b, out);
+                }
+                if a.sha256 == b.sha256 && a.packages == b.packages {
+                    continue;
+                }
+                if b.ecosystem == "toolchain" {
+                    compare_toolchain(path, &a.packages, &b.packages, out);
+                } else if let Some(lock) =
+                    deciding_lockfile(b, new).or_else(|| deciding_lockfile(a, old))
+                {
+                    compare_locked_input(path, lock, &a.packages, &b.packages, out);
+                } else {
                     compare_packages(path, &b.ecosystem, &a.packages, &b.packages, ctx, out);
                 }
             }
-            (Some(a), None) => out.push(whole_lockfile(a, false, ctx)),
-            (None, Some(b)) => out.push(whole_lockfile(b, true, ctx)),
+            (Some(a), None) => one_side(a, false, old, new, files, ctx, out),
+            (None, Some(b)) => one_side(b, true, new, old, files, ctx, out),
             (None, None) => {}
         }
     }
+}
+
+/// Is this entry a dependency input or a toolchain pin rather than a lockfile?
+fn is_input_or_pin(l: &Lockfile) -> bool {
+    l.ecosystem == "toolchain"
+        || crate::lockfile::Format::detect_path(&l.path).is_some_and(|f| f.is_input())
+}
+
+/// The lockfile that decides what an input installs: one of the same ecosystem, not itself
+/// an input, in the input's folder or a folder above it (a workspace's root), whose packages
+/// are all pinned. The nearest one wins.
+fn deciding_lockfile<'a>(input: &Lockfile, all: &'a [Lockfile]) -> Option<&'a Lockfile> {
+    if !crate::lockfile::Format::detect_path(&input.path).is_some_and(|f| f.is_input()) {
+        return None;
+    }
+    let folder = |p: &str| p.rsplit_once('/').map_or("", |(d, _)| d).to_string();
+    let dir = folder(&input.path);
+    all.iter()
+        .filter(|l| l.ecosystem == input.ecosystem && !is_input_or_pin(l))
+        .filter(|l| {
+            l.packages_omitted.is_some()
+                || l.packages
+                    .iter()
+                    .all(|p| !crate::version::is_range(&p.version) || p.source.is_some())
+        })
+        .filter(|l| {
+            let d = folder(&l.path);
+            d.is_empty() || dir == d || dir.starts_with(&format!("{d}/"))
+        })
+        .max_by_key(|l| folder(&l.path).len())
+}
+
+/// A changed input where a lockfile decides: each declared change, as information.
+fn compare_locked_input(
+    path: &str,
+    lock: &Lockfile,
+    old: &[Package],
+    new: &[Package],
+    out: &mut Vec<Change>,
+) {
+    for (name, a, b) in changed_names(old, new) {
+        let (a, b) = (&a, &b);
+        let v = |ps: &Vec<&Package>| Some(versions(ps)).filter(|s| !s.is_empty() || !ps.is_empty());
+        let mut c = Change::from_rule(
+            &rules::PKG_INPUT_LOCKED,
+            Section::Lockfiles,
+            format!("{path}: {name}"),
+            format!(
+                "{name}'s declaration changed, but `{}` decides what is installed",
+                lock.path
+            ),
+            v(a).filter(|_| !a.is_empty()),
+            v(b).filter(|_| !b.is_empty()),
+        );
+        c.package = Some(name.to_string());
+        c.lockfiles.push(path.to_string());
+        out.push(c);
+    }
+}
+
+/// Toolchain pins, one language at a time: the first (preferred) version of each side.
+fn compare_toolchain(path: &str, old: &[Package], new: &[Package], out: &mut Vec<Change>) {
+    let (og, ng) = (group_by_name(old), group_by_name(new));
+    let (og, ng) = (
+        og.iter().map(|(n, ps)| (*n, ps)),
+        ng.iter().map(|(n, ps)| (*n, ps)),
+    );
+    let first = |ps: Option<&Vec<&Package>>| {
+        ps.and_then(|ps| ps.iter().find(|p| !p.optional).or(ps.first()))
+            .map(|p| p.version.clone())
+    };
+    for (language, a, b) in outer_join(og, ng) {
+        let (va, vb) = (first(a), first(b));
+        if va == vb {
+            continue;
+        }
+        let (rule, lead): (&'static Rule, String) = match language {
+            "python" => {
+                let step = match (&va, &vb) {
+                    (Some(x), Some(y)) => version::classify("pypi", x, y),
+                    _ => VersionChange::Unknown,
+                };
+                let rule = if step == VersionChange::Patch {
+                    &super::stack::PY_MICRO
+                } else {
+                    &super::stack::PY_MINOR
+                };
+                (rule, "the pinned Python version changed".to_string())
+            }
+            "go" => (&rules::TOOLCHAIN_GO, "the Go toolchain changed".to_string()),
+            other => (
+                &rules::TOOLCHAIN_OTHER,
+                format!("the pinned {other} toolchain changed"),
+            ),
+        };
+        out.push(Change::from_rule(
+            rule,
+            Section::Lockfiles,
+            format!("{path}: {language}"),
+            lead,
+            va,
+            vb,
+        ));
+    }
+}
+
+/// `go.mod`'s `go` and `toolchain` lines, recorded as its format version: the toolchain that
+/// builds the module (the `toolchain` line when there is one, else the `go` line; Go
+/// documentation, "Go Toolchains").
+fn go_toolchain(path: &str, a: &Lockfile, b: &Lockfile, out: &mut Vec<Change>) {
+    let (va, vb) = (a.format_version.clone(), b.format_version.clone());
+    compare_toolchain(
+        path,
+        &[toolchain_pin("go", va)],
+        &[toolchain_pin("go", vb)],
+        out,
+    );
+}
+
+fn toolchain_pin(language: &str, version: Option<String>) -> Package {
+    Package {
+        name: language.to_string(),
+        version: version.unwrap_or_default(),
+        ..Package::default()
+    }
+}
+
+/// A lockfile, input or pin recorded on one side only.
+fn one_side(
+    l: &Lockfile,
+    added: bool,
+    this: &[Lockfile],
+    other: &[Lockfile],
+    files: Option<&[FileStat]>,
+    ctx: &Context<'_>,
+    out: &mut Vec<Change>,
+) {
+    let _ = this;
+    let changed_in_git = files.is_some_and(|fs| fs.iter().any(|f| f.path == l.path));
+    if is_input_or_pin(l) && !changed_in_git && !other.iter().any(is_input_or_pin) {
+        let verb = if added { "added" } else { "removed" };
+        let count = Some(format!("{} packages", l.packages.len()));
+        let (old, new) = if added { (None, count) } else { (count, None) };
+        out.push(Change::from_rule(
+            &rules::LOCK_INPUT_FIRST_RECORDED,
+            Section::Lockfiles,
+            format!("{} ({})", l.path, l.ecosystem),
+            format!("recorded on one side only ({verb}); the other manifest records no dependency inputs or toolchain pins at all"),
+            old,
+            new,
+        ));
+        return;
+    }
+    if l.ecosystem == "toolchain" {
+        let (a, b): (&[Package], &[Package]) = if added {
+            (&[], &l.packages)
+        } else {
+            (&l.packages, &[])
+        };
+        compare_toolchain(&l.path, a, b, out);
+        return;
+    }
+    if added {
+        if let Some(lock) = deciding_lockfile(l, this) {
+            compare_locked_input(&l.path, lock, &[], &l.packages, out);
+            return;
+        }
+    } else if let Some(lock) = deciding_lockfile(l, this) {
+        compare_locked_input(&l.path, lock, &l.packages, &[], out);
+        return;
+    }
+    out.push(whole_lockfile(l, added, ctx));
 }
 
 fn whole_lockfile(l: &Lockfile, added: bool, ctx: &Context<'_>) -> Change {
@@ -133,6 +319,32 @@ fn versions(ps: &[&Package]) -> String {
         .join(", ")
 }
 
+/// How a declared range moved, when either side is a range (one entry a side).
+enum RangeStep {
+    /// The newest version admitted is the same.
+    SameNewest,
+    /// Stand-ins for the newest version admitted on each side (see
+    /// [`version::newest_stand_in`]).
+    Newest(String, String),
+}
+
+fn declared_range_step(a: &BTreeSet<&String>, b: &BTreeSet<&String>) -> Option<RangeStep> {
+    let (Some(x), Some(y)) = (a.first(), b.first()) else {
+        return None;
+    };
+    if a.len() != 1 || b.len() != 1 || !(version::is_range(x) || version::is_range(y)) {
+        return None;
+    }
+    let (nx, ny) = (version::newest_admitted(x)?, version::newest_admitted(y)?);
+    if nx == ny {
+        return Some(RangeStep::SameNewest);
+    }
+    Some(RangeStep::Newest(
+        version::newest_stand_in(&nx)?,
+        version::newest_stand_in(&ny)?,
+    ))
+}
+
 /// The highest of several versions of one package (a lockfile may hold several).
 fn highest<'a>(ecosystem: &str, vs: &BTreeSet<&'a String>) -> Option<&'a String> {
     vs.iter().copied().max_by(|x, y| {
@@ -155,6 +367,24 @@ fn group_by_name(ps: &[Package]) -> Vec<(&str, Vec<&Package>)> {
     out
 }
 
+/// The package names whose entries differ between two lists, with each side's entries (a
+/// lockfile may hold several versions of one name). Most packages of a bumped lockfile did
+/// not change: nothing is built for them.
+fn changed_names<'a>(
+    old: &'a [Package],
+    new: &'a [Package],
+) -> Vec<(&'a str, Vec<&'a Package>, Vec<&'a Package>)> {
+    let (og, ng) = (group_by_name(old), group_by_name(new));
+    let (og, ng) = (og.into_iter(), ng.into_iter());
+    outer_join(og, ng)
+        .filter_map(|(name, a, b)| {
+            let (a, b) = (a.unwrap_or_default(), b.unwrap_or_default());
+            let same = a.len() == b.len() && a.iter().zip(&b).all(|(x, y)| x == y);
+            (!same).then_some((name, a, b))
+        })
+        .collect()
+}
+
 fn compare_packages(
     path: &str,
     ecosystem: &str,
@@ -163,18 +393,8 @@ fn compare_packages(
     ctx: &Context<'_>,
     out: &mut Vec<Change>,
 ) {
-    let (og, ng) = (group_by_name(old), group_by_name(new));
-    let empty = Vec::new();
-    let (og, ng) = (
-        og.iter().map(|(n, ps)| (*n, ps)),
-        ng.iter().map(|(n, ps)| (*n, ps)),
-    );
-    for (name, a, b) in outer_join(og, ng) {
-        let (a, b) = (a.unwrap_or(&empty), b.unwrap_or(&empty));
-        // Most packages of a bumped lockfile did not change: nothing to build for them.
-        if a.len() == b.len() && a.iter().zip(b).all(|(x, y)| x == y) {
-            continue;
-        }
+    for (name, a, b) in changed_names(old, new) {
+        let (a, b) = (&a, &b);
         let subject = format!("{path}: {name}");
         let dev = a.iter().chain(b.iter()).all(|p| p.dev);
         // The installed copy first, else the wheels the lockfile lists (PEP 427 tags).
@@ -214,8 +434,33 @@ fn compare_packages(
                 a.iter().map(|p| &p.version).collect(),
                 b.iter().map(|p| &p.version).collect(),
             );
+            let ranges = (ecosystem == "pypi")
+                .then(|| declared_range_step(&av, &bv))
+                .flatten();
             let change = if av == bv {
                 PackageChange::Source
+            } else if let Some(step) = &ranges {
+                match step {
+                    RangeStep::SameNewest => {
+                        let mut c = Change::from_rule(
+                            &rules::PKG_RANGE_SAME_NEWEST,
+                            Section::Lockfiles,
+                            subject,
+                            format!("{name}'s declared range changed; the newest version it admits did not"),
+                            Some(versions(a)),
+                            Some(versions(b)),
+                        );
+                        c.package = Some(name.to_string());
+                        c.lockfiles.push(path.to_string());
+                        out.push(c);
+                        continue;
+                    }
+                    RangeStep::Newest(o, n) => PackageChange::Range {
+                        ecosystem,
+                        old: o,
+                        new: n,
+                    },
+                }
             } else {
                 match (highest(ecosystem, &av), highest(ecosystem, &bv)) {
                     (Some(o), Some(n)) => PackageChange::Version {

@@ -474,7 +474,9 @@ impl<'a> Context<'a> {
         values: (Option<String>, Option<String>),
     ) -> Change {
         let versions: Vec<&str> = match change {
-            PackageChange::Version { old, new, .. } => vec![old, new],
+            PackageChange::Version { old, new, .. } | PackageChange::Range { old, new, .. } => {
+                vec![old, new]
+            }
             _ => [&values.0, &values.1]
                 .into_iter()
                 .flatten()
@@ -547,6 +549,7 @@ pub fn compare_with(
             lockfiles::compare_lockfiles(
                 &old.content.lockfiles,
                 &new.content.lockfiles,
+                files,
                 &ctx,
                 &mut changes,
             );

@@ -49,6 +49,7 @@ pub static RULE_GROUPS: &[&[&Rule]] = &[
     GIT_RULES,
     super::data::DATA_RULES,
     PACKAGE_RULES,
+    TOOLCHAIN_RULES,
     ENV_RULES,
     super::host::HOST_RULES,
     super::stack::PYTHON_RULES,
@@ -216,6 +217,35 @@ rule_group! {
         "empty lockfile added or removed",
         "it lists no packages",
         "common practice";
+    PKG_RANGE_SAME_NEWEST = "pkg.range.same-newest", "lockfiles", None, 3,
+        "declared range changed, same newest version admitted",
+        "an installer takes the newest version a range admits, which did not change (only the lower bound or an exclusion moved); an environment holding a version the range now excludes is compared under `python` once it is updated",
+        "https://packaging.python.org/en/latest/specifications/version-specifiers/; pip's resolver prefers the newest version (common practice)";
+    PKG_INPUT_LOCKED = "pkg.input.locked", "lockfiles", None, 2,
+        "declared dependency changed where a lockfile decides",
+        "a lockfile of the same ecosystem beside the input (or above it, for a workspace) decides what is installed, and it is compared package by package on its own",
+        "common practice";
+    LOCK_INPUT_FIRST_RECORDED = "lock.input.first-recorded", "lockfiles", None, 1,
+        "dependency input or toolchain pin recorded on one side only, the other side recording none",
+        "the other manifest was stamped by a runprint that did not read dependency inputs or toolchain pins, and the file is not among the changed files; what it declares is compared as installed packages",
+        "common practice";
+}
+
+// ------------------------------------------------------------------------------------------------
+// Toolchain pins
+
+rule_group! {
+    /// The rules of toolchain pins (the conditions: `compare_toolchain` in `diff/lockfiles.rs`;
+    /// a pinned Python version is judged by the `python` rules).
+    TOOLCHAIN_RULES;
+    TOOLCHAIN_GO = "toolchain.go", "lockfiles", Verify, 40,
+        "Go toolchain changed (`go.mod` `go`/`toolchain` lines)",
+        "the Go specification lets a compiler fuse floating-point operations (\"An implementation may combine multiple floating-point operations into a single fused operation\"), so another compiler release may round Go code differently",
+        "https://go.dev/ref/spec#Floating_point_operators; https://go.dev/doc/toolchain";
+    TOOLCHAIN_OTHER = "toolchain.other", "lockfiles", None, 3,
+        "Rust or Node.js toolchain pin changed",
+        "these pins build tools, front ends and extensions; what they build is compared as packages, and Rust does not contract floating-point operations without an explicit request",
+        "https://doc.rust-lang.org/std/primitive.f64.html#method.mul_add; common practice";
 
 }
 
@@ -778,6 +808,16 @@ pub enum PackageChange<'a> {
         /// Highest new version.
         new: &'a str,
     },
+    /// A declared range moved: stand-ins for the newest version each side admits
+    /// ([`version::newest_stand_in`]), judged like a version change between them.
+    Range {
+        /// Ecosystem, for version ordering.
+        ecosystem: &'a str,
+        /// Newest version the old range admits (a stand-in).
+        old: &'a str,
+        /// Newest version the new range admits (a stand-in).
+        new: &'a str,
+    },
     /// Same versions from another source.
     Source,
     /// Same version and source, other artifact hash.
@@ -843,6 +883,14 @@ pub fn package_rule(
     change: PackageChange<'_>,
 ) -> (&'static Rule, String) {
     let what = match change {
+        PackageChange::Range {
+            ecosystem,
+            old,
+            new,
+        } => format!(
+            "declared range; the newest version it admits moved: {}",
+            version::classify(ecosystem, old, new).phrase()
+        ),
         PackageChange::Added => "new dependency".to_string(),
         PackageChange::Removed => "removed dependency".to_string(),
         PackageChange::Version {
@@ -855,6 +903,19 @@ pub fn package_rule(
         PackageChange::Features => "other enabled features".into(),
     };
     let lead = |what: &str| format!("{name} ({what}) is {}", class.how);
+    // A range is judged as the step between the newest versions it admits.
+    let change = match change {
+        PackageChange::Range {
+            ecosystem,
+            old,
+            new,
+        } => PackageChange::Version {
+            ecosystem,
+            old,
+            new,
+        },
+        other => other,
+    };
     // A Python base image changes the interpreter: judged as the python section judges it.
     if let PackageChange::Version {
         ecosystem: "oci",

@@ -53,6 +53,7 @@ pub fn parse(
     let text = text.strip_prefix('\u{feff}').unwrap_or(text);
     let mut warnings = Vec::new();
     let mut go_version = None;
+    let mut toolchain = None;
     let mut requires = Vec::new();
     let mut replaces = Vec::new();
     // The verb of an open block and the line that opened it.
@@ -123,7 +124,11 @@ pub fn parse(
                     new_version,
                 });
             }
-            "toolchain" | "godebug" | "exclude" | "retract" | "tool" | "ignore" => {}
+            "toolchain" => match args {
+                [v] => toolchain = Some(v.clone()),
+                _ => return Err(err("`toolchain` takes one name".into())),
+            },
+            "godebug" | "exclude" | "retract" | "tool" | "ignore" => {}
             other => warnings.push(format!(
                 "`{path}`, line {line_no}: unknown go.mod directive `{other}` skipped"
             )),
@@ -192,8 +197,16 @@ pub fn parse(
         });
     }
     sort_packages(&mut packages);
+    // The format version is the `go` line; a `toolchain` line, which names the toolchain that
+    // builds the module (Go documentation, "Go Toolchains"), is recorded with it so that the
+    // diff compares both.
+    let format_version = match (go_version, toolchain) {
+        (Some(go), Some(t)) => Some(format!("{go} (toolchain {t})")),
+        (None, Some(t)) => Some(format!("(toolchain {t})")),
+        (go, None) => go,
+    };
     Ok(Parsed {
-        format_version: go_version,
+        format_version,
         packages,
         warnings,
         includes: Vec::new(),
@@ -350,7 +363,10 @@ example.com/fork v1.0.0 h1:CCCC=
     #[test]
     fn go_mod_with_sum() {
         let parsed = parse(GO_MOD, "go.mod", Some((GO_SUM, "go.sum"))).unwrap();
-        assert_eq!(parsed.format_version.as_deref(), Some("1.22"));
+        assert_eq!(
+            parsed.format_version.as_deref(),
+            Some("1.22 (toolchain go1.22.4)")
+        );
         assert!(parsed.warnings.is_empty(), "{:?}", parsed.warnings);
         let by_name: BTreeMap<&str, &Package> = parsed
             .packages

@@ -18,10 +18,12 @@ pub mod pipfile;
 pub mod pnpm;
 pub mod poetry;
 pub mod pylock;
+pub mod pyproject;
 pub(crate) mod python;
 pub mod renv;
 pub mod requirements;
 mod support;
+pub mod toolchain;
 pub mod uv;
 pub mod yarn;
 
@@ -89,6 +91,18 @@ pub enum Format {
     CondaExplicit,
     /// Container recipes (`Dockerfile`, `Containerfile`): their base images.
     Dockerfile,
+    /// pip-tools' inputs, `requirements*.in`: requirements-file syntax, declared ranges.
+    RequirementsIn,
+    /// `pyproject.toml`: PEP 621 and PEP 735 dependency lists, Poetry's tables.
+    Pyproject,
+    /// setuptools' `setup.cfg`: `install_requires` and `extras_require`.
+    SetupCfg,
+    /// `.python-version`.
+    PythonVersion,
+    /// `rust-toolchain.toml` and the legacy `rust-toolchain`.
+    RustToolchain,
+    /// `.nvmrc` and `.node-version`.
+    NodeVersion,
 }
 
 /// A pip requirements or constraints file by its name: `*requirements*.txt`
@@ -98,6 +112,13 @@ pub enum Format {
 fn is_requirements_name(file_name: &str) -> bool {
     let lower = file_name.to_ascii_lowercase();
     lower.ends_with(".txt") && (lower.contains("requirements") || lower.contains("constraints"))
+}
+
+/// pip-tools' input files by name: `requirements.in`, `dev-requirements.in`,
+/// `requirements-gpu.in` (pip-tools README, "Example usage for pip-compile"; common practice).
+fn is_requirements_input_name(file_name: &str) -> bool {
+    let lower = file_name.to_ascii_lowercase();
+    lower.ends_with(".in") && (lower.contains("requirements") || lower.contains("constraints"))
 }
 
 impl Format {
@@ -110,8 +131,14 @@ impl Format {
         let mut segments = path.rsplit('/');
         let name = segments.next().unwrap_or(path);
         Format::detect(name).or_else(|| {
-            (name.ends_with(".txt") && segments.any(|d| d == "requirements"))
-                .then_some(Format::Requirements)
+            let in_requirements = segments.any(|d| d == "requirements");
+            if name.ends_with(".txt") && in_requirements {
+                Some(Format::Requirements)
+            } else if name.ends_with(".in") && in_requirements {
+                Some(Format::RequirementsIn)
+            } else {
+                None
+            }
         })
     }
 
@@ -121,6 +148,8 @@ impl Format {
             Some(Format::CargoLock)
         } else if is_requirements_name(file_name) {
             Some(Format::Requirements)
+        } else if is_requirements_input_name(file_name) {
+            Some(Format::RequirementsIn)
         } else if pylock::is_pylock_name(file_name) {
             Some(Format::Pylock)
         } else {
@@ -141,6 +170,11 @@ impl Format {
                 "Pipfile.lock" => Some(Format::PipfileLock),
                 "uv.lock" => Some(Format::UvLock),
                 "pdm.lock" => Some(Format::PdmLock),
+                "pyproject.toml" => Some(Format::Pyproject),
+                "setup.cfg" => Some(Format::SetupCfg),
+                ".python-version" => Some(Format::PythonVersion),
+                "rust-toolchain" | "rust-toolchain.toml" => Some(Format::RustToolchain),
+                ".nvmrc" | ".node-version" => Some(Format::NodeVersion),
                 _ if conda::is_environment_name(file_name) => Some(Format::CondaEnvironment),
                 _ if conda::is_explicit_name(file_name) => Some(Format::CondaExplicit),
                 _ if dockerfile::is_dockerfile_name(file_name) => Some(Format::Dockerfile),
@@ -163,7 +197,11 @@ impl Format {
             | Format::PoetryLock
             | Format::PipfileLock
             | Format::UvLock
-            | Format::PdmLock => "pypi",
+            | Format::PdmLock
+            | Format::RequirementsIn
+            | Format::Pyproject
+            | Format::SetupCfg => "pypi",
+            Format::PythonVersion | Format::RustToolchain | Format::NodeVersion => "toolchain",
             Format::CondaEnvironment | Format::CondaExplicit => "conda",
             Format::Dockerfile => "oci",
         }
@@ -195,8 +233,24 @@ impl Format {
             Format::CondaEnvironment => conda::parse_environment(text, path),
             Format::CondaExplicit => conda::parse_explicit(text, path),
             Format::Dockerfile => dockerfile::parse(text, path),
+            Format::RequirementsIn => requirements::parse(text, path),
+            Format::Pyproject => pyproject::parse_pyproject(text, path),
+            Format::SetupCfg => pyproject::parse_setup_cfg(text, path),
+            Format::PythonVersion => toolchain::parse_python_version(text, path),
+            Format::RustToolchain => toolchain::parse_rust_toolchain(text, path),
+            Format::NodeVersion => toolchain::parse_node_version(text, path),
         };
         parsed.map(|p| without_nameless(p, path))
+    }
+
+    /// A dependency input: the ranges a project declares, which a locker or an installer
+    /// resolves. A lockfile of the same ecosystem beside it (or above it, for a workspace)
+    /// decides what is installed.
+    pub fn is_input(self) -> bool {
+        matches!(
+            self,
+            Format::RequirementsIn | Format::Pyproject | Format::SetupCfg
+        )
     }
 
     /// A second file, in the same folder, that this format reads together with the first:
@@ -356,7 +410,20 @@ mod tests {
             assert_eq!(Format::detect(name), Some(format), "{name}");
         }
         assert_eq!(Format::detect("Pipfile"), None);
-        assert_eq!(Format::detect("pyproject.toml"), None);
+        assert_eq!(Format::detect("pyproject.toml"), Some(Format::Pyproject));
+        assert_eq!(
+            Format::detect("requirements-dev.in"),
+            Some(Format::RequirementsIn)
+        );
+        assert_eq!(
+            Format::detect_path("requirements/gpu.in"),
+            Some(Format::RequirementsIn)
+        );
+        assert_eq!(
+            Format::detect(".python-version"),
+            Some(Format::PythonVersion)
+        );
+        assert_eq!(Format::detect("setup.in"), None);
         assert_eq!(Format::UvLock.ecosystem(), "pypi");
         assert_eq!(Format::CondaExplicit.ecosystem(), "conda");
     }

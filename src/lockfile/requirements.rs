@@ -218,6 +218,20 @@ fn split_marker(req: &str) -> (&str, Option<&str>) {
     }
 }
 
+/// One PEP 508 dependency specification, as `pyproject.toml` and `setup.cfg` list them: the
+/// package, `Ok(None)` for one that names no package in the text (a local project), `Err`
+/// saying why pip would refuse it.
+pub(crate) fn pep508(spec: &str) -> Result<Option<Package>, String> {
+    let spec = spec.trim();
+    if is_own_project(spec.split_whitespace().next().unwrap_or_default()) {
+        return Ok(None);
+    }
+    match requirement(spec)? {
+        Line::Package(p) => Ok(Some(p)),
+        Line::Unnamed(_) => Ok(None),
+    }
+}
+
 /// What a requirement line gives: a package, or a line pip reads that names no package in
 /// the file (a local project such as `.`, whose name is in its own metadata), with why.
 enum Line {
