@@ -108,8 +108,16 @@ pub fn script(m: &Manifest, path: &str) -> String {
     }
     out.push_str("set -euo pipefail\n");
     code(m, &mut out);
-    packages(&m.content.lockfiles, &mut out);
-    if !m.content.lockfiles.iter().any(|l| l.ecosystem == "pypi") {
+    // Without a Python lockfile, the distributions installed when the run was stamped are
+    // pinned: exact versions, where inputs only declare ranges.
+    let pin_installed = !m
+        .content
+        .lockfiles
+        .iter()
+        .any(|l| l.ecosystem == "pypi" && !crate::lockfile::is_input_or_pin(l))
+        && m.content.python.iter().any(|e| !e.distributions.is_empty());
+    packages(&m.content.lockfiles, pin_installed, &mut out);
+    if pin_installed {
         installed_distributions(&m.content.python, &mut out);
     }
     environment(m, &mut out);
@@ -230,7 +238,33 @@ fn pip_requirement(p: &Package) -> Option<String> {
     quote(&req)
 }
 
-fn packages(lockfiles: &[Lockfile], out: &mut String) {
+/// Toolchain pins: the Rust toolchain installed where rustup is; the others said, for the
+/// reader to choose the interpreter or runtime.
+fn toolchain_pins(l: &Lockfile, out: &mut String) {
+    for p in &l.packages {
+        if p.optional {
+            continue;
+        }
+        match (p.name.as_str(), quote(&p.version)) {
+            ("rust", Some(v)) if !p.version.starts_with("path:") => {
+                let _ = writeln!(
+                    out,
+                    "if command -v rustup >/dev/null; then rustup toolchain install {v}; fi"
+                );
+            }
+            (name, _) => {
+                let _ = writeln!(
+                    out,
+                    "# use {} {} for this folder",
+                    comment(name),
+                    comment(&p.version)
+                );
+            }
+        }
+    }
+}
+
+fn packages(lockfiles: &[Lockfile], pin_installed: bool, out: &mut String) {
     out.push_str("\n# 2. Packages\n");
     if lockfiles.is_empty() {
         out.push_str("# No lockfiles were recorded.\n");
@@ -254,6 +288,27 @@ fn packages(lockfiles: &[Lockfile], out: &mut String) {
                 ""
             }
         );
+        if l.ecosystem == "toolchain" {
+            toolchain_pins(l, out);
+            continue;
+        }
+        if crate::lockfile::is_input_or_pin(l) {
+            if let Some(lock) = crate::lockfile::deciding_lockfile(l, lockfiles) {
+                let _ = writeln!(
+                    out,
+                    "# declared ranges: {} decides what is installed",
+                    comment(&lock.path)
+                );
+                continue;
+            }
+            if pin_installed {
+                let _ = writeln!(
+                    out,
+                    "# declared ranges only: the distributions installed when the run was stamped are pinned below instead"
+                );
+                continue;
+            }
+        }
         if l.ecosystem == "pypi" && l.packages_omitted.is_none() {
             pip_pins(l, out);
             continue;
@@ -610,6 +665,7 @@ mod tests {
                 l("uv.lock", "pypi"),
                 l("web/package-lock.json", "npm"),
             ],
+            false,
             &mut out,
         );
         assert!(out.contains("150000 package(s), not recorded"), "{out}");

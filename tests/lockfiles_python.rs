@@ -653,3 +653,220 @@ print(json.dumps(out))
         }
     }
 }
+
+/// The declared dependencies of a `pyproject.toml` written by uv itself (`uv init`, `uv add
+/// --frozen`, which edits the file without resolving): PEP 621 dependencies and extras and
+/// PEP 735 groups. Reference: Python's `tomllib` and pip's copy of `packaging` (its PEP 508
+/// `Requirement` and `SpecifierSet`, whose string form sorts the clauses), compared as sets
+/// of (name, specifier clauses, marker, dev, optional).
+#[test]
+fn pyproject_written_by_uv_agrees_with_packaging() {
+    let (Some(uv), Some(python)) = (tool("uv"), tool("python")) else {
+        return;
+    };
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    run(
+        &uv,
+        d,
+        &[
+            "init",
+            "--quiet",
+            "--bare",
+            "--name",
+            "kelp",
+            "--no-workspace",
+        ],
+    );
+    for args in [
+        vec![
+            "torch>=2.1,<2.4",
+            "transformers[torch]>=4.40",
+            "numpy<2; python_version < '3.12'",
+        ],
+        vec!["--dev", "pytest>=8", "ruff"],
+        vec!["--optional", "gpu", "cupy-cuda12x==13.3.0"],
+        vec!["--group", "train", "accelerate~=1.2"],
+    ] {
+        let mut all = vec!["add", "--frozen", "--quiet"];
+        all.extend(args);
+        run(&uv, d, &all);
+    }
+    let path = d.join("pyproject.toml");
+    let parsed = parse_file(Format::Pyproject, &path);
+    assert!(parsed.warnings.is_empty(), "{:?}", parsed.warnings);
+    // (name, sorted clauses, marker, dev, optional), as runprint records them.
+    type Row = (String, String, Option<String>, bool, bool);
+    let clauses = |v: &str| -> String {
+        let spec = if runprint::version::is_range(v) {
+            v.to_string()
+        } else {
+            format!("=={v}")
+        };
+        let mut parts: Vec<&str> = spec.split(',').filter(|s| !s.is_empty()).collect();
+        parts.sort_unstable();
+        parts.join(",")
+    };
+    let ours: BTreeSet<Row> = parsed
+        .packages
+        .iter()
+        .map(|p| {
+            (
+                p.name.clone(),
+                clauses(&p.version),
+                p.platform.clone().map(|m| m.replace(' ', "")),
+                p.dev,
+                p.optional,
+            )
+        })
+        .collect();
+    let script = r#"
+import json, sys, tomllib
+from pip._vendor.packaging.requirements import Requirement
+from pip._vendor.packaging.utils import canonicalize_name
+doc = tomllib.load(open(json.load(sys.stdin)[0], "rb"))
+rows = []
+def add(spec, dev, optional):
+    r = Requirement(spec)
+    clauses = ",".join(sorted(str(s) for s in r.specifier))
+    marker = str(r.marker).replace(" ", "").replace('"', "'") if r.marker else None
+    rows.append([canonicalize_name(r.name), clauses, marker, dev, optional])
+for s in doc["project"].get("dependencies", []):
+    add(s, False, False)
+for extra, specs in doc["project"].get("optional-dependencies", {}).items():
+    for s in specs:
+        add(s, False, True)
+for group, specs in doc.get("dependency-groups", {}).items():
+    for s in specs:
+        add(s, group == "dev", group != "dev")
+print(json.dumps(rows))
+"#;
+    let rows: Vec<(String, String, Option<String>, bool, bool)> =
+        python_json(&python, script, &[path.to_str().unwrap()], None);
+    let reference: BTreeSet<Row> = rows.into_iter().collect();
+    let ours: BTreeSet<Row> = ours
+        .into_iter()
+        .map(|(n, c, m, dev, opt)| (n, c, m.map(|m| m.replace('"', "'")), dev, opt))
+        .collect();
+    assert_eq!(ours, reference);
+    assert_eq!(ours.len(), 7);
+}
+
+/// Poetry's own tables: the caret, tilde, wildcard and exact constraints of the Poetry
+/// documentation ("Dependency specification"), with the reference being poetry-core itself
+/// (`Factory().create_poetry(…)`, each dependency's `to_pep_508()`), read back with
+/// `packaging` and compared as sorted specifier clauses.
+#[test]
+fn poetry_tables_agree_with_poetry_core() {
+    let (Some(_), Some(python)) = (tool("poetry"), tool("python")) else {
+        return;
+    };
+    let dir = tempfile::tempdir().unwrap();
+    let text = r#"[tool.poetry]
+name = "kelp"
+version = "0.1.0"
+description = ""
+authors = ["Kelp Team <team@kelp.invalid>"]
+
+[tool.poetry.dependencies]
+python = "^3.10"
+torch = "^2.1.0"
+numpy = "~1.26"
+scipy = "^0.19"
+pandas = "2.2.*"
+einops = "0.8.0"
+tqdm = ">=4.60,<5"
+safetensors = { version = "^0.4.2", optional = true }
+
+[tool.poetry.group.dev.dependencies]
+pytest = "^8.0"
+"#;
+    std::fs::write(dir.path().join("pyproject.toml"), text).unwrap();
+    let parsed = parse_file(Format::Pyproject, &dir.path().join("pyproject.toml"));
+    assert!(parsed.warnings.is_empty(), "{:?}", parsed.warnings);
+    let ours: BTreeSet<(String, String)> = parsed
+        .packages
+        .iter()
+        .map(|p| {
+            let spec = if runprint::version::is_range(&p.version) {
+                p.version.clone()
+            } else {
+                format!("=={}", p.version)
+            };
+            let mut parts: Vec<&str> = spec.split(',').collect();
+            parts.sort_unstable();
+            (p.name.clone(), parts.join(","))
+        })
+        .collect();
+    let script = r#"
+import json, sys
+from pathlib import Path
+from poetry.core.factory import Factory
+from pip._vendor.packaging.requirements import Requirement
+from pip._vendor.packaging.utils import canonicalize_name
+poetry = Factory().create_poetry(Path(json.load(sys.stdin)[0]))
+rows = []
+for dep in poetry.package.all_requires:
+    r = Requirement(dep.to_pep_508())
+    rows.append([canonicalize_name(r.name), ",".join(sorted(str(s) for s in r.specifier))])
+print(json.dumps(rows))
+"#;
+    let rows: Vec<(String, String)> =
+        python_json(&python, script, &[dir.path().to_str().unwrap()], None);
+    let reference: BTreeSet<(String, String)> = rows.into_iter().collect();
+    assert_eq!(ours, reference);
+}
+
+/// `setup.cfg` as setuptools itself reads it (`setuptools.config.setupcfg.read_configuration`):
+/// a dangling `install_requires` list with a marker and a comment, and one-line
+/// `extras_require` values split at `;`, as setuptools' documentation example writes them.
+#[test]
+fn setup_cfg_agrees_with_setuptools() {
+    let Some(python) = tool("python") else {
+        return;
+    };
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("setup.cfg");
+    std::fs::write(
+        &path,
+        "[metadata]\nname = kelp\nversion = 0.1\n\n[options]\ninstall_requires =\n    requests\n    importlib-metadata; python_version<\"3.8\"\n    # pinned for the kernels\n    numpy>=1.20,<2\n\n[options.extras_require]\npdf = ReportLab>=1.2; RXP\nrest = docutils>=0.3; pack ==1.1, ==1.3\n",
+    )
+    .unwrap();
+    let parsed = parse_file(Format::SetupCfg, &path);
+    assert!(parsed.warnings.is_empty(), "{:?}", parsed.warnings);
+    let ours: BTreeSet<(String, String, bool)> = parsed
+        .packages
+        .iter()
+        .map(|p| {
+            let spec = if runprint::version::is_range(&p.version) {
+                p.version.clone()
+            } else {
+                format!("=={}", p.version)
+            };
+            let mut parts: Vec<&str> = spec.split(',').filter(|s| !s.is_empty()).collect();
+            parts.sort_unstable();
+            (p.name.clone(), parts.join(","), p.optional)
+        })
+        .collect();
+    let script = r#"
+import json, sys
+from setuptools.config.setupcfg import read_configuration
+from pip._vendor.packaging.requirements import Requirement
+from pip._vendor.packaging.utils import canonicalize_name
+opts = read_configuration(json.load(sys.stdin)[0])["options"]
+rows = []
+def add(spec, optional):
+    r = Requirement(spec)
+    rows.append([canonicalize_name(r.name), ",".join(sorted(str(s) for s in r.specifier)), optional])
+for s in opts.get("install_requires", []):
+    add(s, False)
+for specs in opts.get("extras_require", {}).values():
+    for s in specs:
+        add(s, True)
+print(json.dumps(rows))
+"#;
+    let rows: Vec<(String, String, bool)> =
+        python_json(&python, script, &[path.to_str().unwrap()], None);
+    assert_eq!(ours, rows.into_iter().collect::<BTreeSet<_>>());
+    assert_eq!(ours.len(), 7);
+}

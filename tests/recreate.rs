@@ -343,3 +343,48 @@ fn the_python_steps_of_a_recreate_script_run_under_pip() {
         );
     }
 }
+
+/// Inputs and pins in the script: a `pyproject.toml` beside the pinned `requirements.txt` it
+/// was compiled to installs nothing of its own (the pins decide), the pinned file gets its
+/// environment, a Rust toolchain pin is installed only where rustup is, and the whole script
+/// is valid bash (`bash -n`).
+#[test]
+fn inputs_beside_pins_add_no_environment_and_toolchains_are_guarded() {
+    let repo = repo_with(&[
+        ("train.py", "\n"),
+        (
+            "pyproject.toml",
+            "[project]\nname = \"kelp\"\nversion = \"1\"\ndependencies = [\"numpy>=1.26,<2\"]\n",
+        ),
+        ("requirements.txt", "numpy==1.26.4\n"),
+        ("rust-toolchain.toml", "[toolchain]\nchannel = \"1.85.0\"\n"),
+        (".python-version", "3.12\n"),
+    ]);
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("m.toml");
+    stamp(repo.path(), &out, &[], &[]);
+    let script = recreate(&out);
+    let packages = section(&script, 2);
+    assert!(
+        packages.contains("# declared ranges: requirements.txt decides what is installed"),
+        "{packages}"
+    );
+    assert_eq!(packages.matches("-m venv").count(), 1, "{packages}");
+    assert!(packages.contains("'numpy==1.26.4'") || packages.contains("numpy==1.26.4"));
+    assert!(!packages.contains("numpy>=1.26"), "{packages}");
+    assert!(
+        packages
+            .contains("if command -v rustup >/dev/null; then rustup toolchain install 1.85.0; fi"),
+        "{packages}"
+    );
+    assert!(packages.contains("# use python 3.12"), "{packages}");
+    let syntax = Command::new("bash")
+        .args(["-n", "-c", &script])
+        .output()
+        .unwrap();
+    assert!(
+        syntax.status.success(),
+        "{}",
+        String::from_utf8_lossy(&syntax.stderr)
+    );
+}

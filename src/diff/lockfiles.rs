@@ -1,6 +1,7 @@
 //! The `lockfiles` section: lockfiles added or removed, and their packages one by one.
 
 use super::*;
+use crate::lockfile::{deciding_lockfile, is_input_or_pin};
 use crate::version::{self, VersionChange};
 
 pub(super) fn compare_lockfiles(
@@ -64,36 +65,6 @@ pub(super) fn compare_lockfiles(
             (None, None) => {}
         }
     }
-}
-
-/// Is this entry a dependency input or a toolchain pin rather than a lockfile?
-fn is_input_or_pin(l: &Lockfile) -> bool {
-    l.ecosystem == "toolchain"
-        || crate::lockfile::Format::detect_path(&l.path).is_some_and(|f| f.is_input())
-}
-
-/// The lockfile that decides what an input installs: one of the same ecosystem, not itself
-/// an input, in the input's folder or a folder above it (a workspace's root), whose packages
-/// are all pinned. The nearest one wins.
-fn deciding_lockfile<'a>(input: &Lockfile, all: &'a [Lockfile]) -> Option<&'a Lockfile> {
-    if !crate::lockfile::Format::detect_path(&input.path).is_some_and(|f| f.is_input()) {
-        return None;
-    }
-    let folder = |p: &str| p.rsplit_once('/').map_or("", |(d, _)| d).to_string();
-    let dir = folder(&input.path);
-    all.iter()
-        .filter(|l| l.ecosystem == input.ecosystem && !is_input_or_pin(l))
-        .filter(|l| {
-            l.packages_omitted.is_some()
-                || l.packages
-                    .iter()
-                    .all(|p| !crate::version::is_range(&p.version) || p.source.is_some())
-        })
-        .filter(|l| {
-            let d = folder(&l.path);
-            d.is_empty() || dir == d || dir.starts_with(&format!("{d}/"))
-        })
-        .max_by_key(|l| folder(&l.path).len())
 }
 
 /// A changed input where a lockfile decides: each declared change, as information.
@@ -201,7 +172,6 @@ fn one_side(
     ctx: &Context<'_>,
     out: &mut Vec<Change>,
 ) {
-    let _ = this;
     let changed_in_git = files.is_some_and(|fs| fs.iter().any(|f| f.path == l.path));
     if is_input_or_pin(l) && !changed_in_git && !other.iter().any(is_input_or_pin) {
         let verb = if added { "added" } else { "removed" };
@@ -226,13 +196,13 @@ fn one_side(
         compare_toolchain(&l.path, a, b, out);
         return;
     }
-    if added {
-        if let Some(lock) = deciding_lockfile(l, this) {
-            compare_locked_input(&l.path, lock, &[], &l.packages, out);
-            return;
-        }
-    } else if let Some(lock) = deciding_lockfile(l, this) {
-        compare_locked_input(&l.path, lock, &l.packages, &[], out);
+    if let Some(lock) = deciding_lockfile(l, this) {
+        let (a, b): (&[Package], &[Package]) = if added {
+            (&[], &l.packages)
+        } else {
+            (&l.packages, &[])
+        };
+        compare_locked_input(&l.path, lock, a, b, out);
         return;
     }
     out.push(whole_lockfile(l, added, ctx));

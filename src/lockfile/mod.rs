@@ -28,7 +28,7 @@ pub mod uv;
 pub mod yarn;
 
 use crate::error::LockfileError;
-use crate::manifest::Package;
+use crate::manifest::{Lockfile, Package};
 
 /// What a parser returns.
 #[derive(Debug, Default)]
@@ -277,6 +277,35 @@ impl Format {
             _ => self.parse(text, path),
         }
     }
+}
+
+/// Is this entry a dependency input or a toolchain pin rather than a lockfile?
+pub fn is_input_or_pin(l: &Lockfile) -> bool {
+    l.ecosystem == "toolchain" || Format::detect_path(&l.path).is_some_and(|f| f.is_input())
+}
+
+/// The lockfile that decides what an input installs: one of the same ecosystem, not itself
+/// an input, in the input's folder or a folder above it (a workspace's root), whose packages
+/// are all pinned. The nearest one wins.
+pub fn deciding_lockfile<'a>(input: &Lockfile, all: &'a [Lockfile]) -> Option<&'a Lockfile> {
+    if !Format::detect_path(&input.path).is_some_and(|f| f.is_input()) {
+        return None;
+    }
+    let folder = |p: &str| p.rsplit_once('/').map_or("", |(d, _)| d).to_string();
+    let dir = folder(&input.path);
+    all.iter()
+        .filter(|l| l.ecosystem == input.ecosystem && !is_input_or_pin(l))
+        .filter(|l| {
+            l.packages_omitted.is_some()
+                || l.packages
+                    .iter()
+                    .all(|p| !crate::version::is_range(&p.version) || p.source.is_some())
+        })
+        .filter(|l| {
+            let d = folder(&l.path);
+            d.is_empty() || dir == d || dir.starts_with(&format!("{d}/"))
+        })
+        .max_by_key(|l| folder(&l.path).len())
 }
 
 /// Every format names each package; an entry whose name is empty is damage, whatever the
