@@ -350,6 +350,11 @@ fn packages(lockfiles: &[Lockfile], pin_installed: bool, out: &mut String) {
             ("julia", _) => {
                 format!("julia --project={dir} -e 'using Pkg; Pkg.instantiate()'")
             }
+            // pixi and conda-lock install the platform's own entries of their lockfiles.
+            ("conda", "pixi.lock") => in_dir("pixi install --frozen"),
+            ("conda", n) if crate::lockfile::condalock::is_conda_lock_name(n) => {
+                format!("conda-lock install --name runprint-recreated {file}")
+            }
             ("conda", n) if n.ends_with(".yml") || n.ends_with(".yaml") => {
                 format!("conda env create --file {file}")
             }

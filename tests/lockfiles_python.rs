@@ -870,3 +870,112 @@ print(json.dumps(rows))
     assert_eq!(ours, rows.into_iter().collect::<BTreeSet<_>>());
     assert_eq!(ours.len(), 7);
 }
+
+/// The Python with conda-lock and py-rattler (`RUNPRINT_TEST_CONDA_TOOLS`, set by `.ci/run`),
+/// or `None` after saying so.
+fn conda_tools() -> Option<PathBuf> {
+    match std::env::var_os("RUNPRINT_TEST_CONDA_TOOLS") {
+        Some(p) => Some(PathBuf::from(p)),
+        None => {
+            eprintln!("skipping: RUNPRINT_TEST_CONDA_TOOLS is not set (run .ci/run)");
+            None
+        }
+    }
+}
+
+/// `conda-lock.yml` and `pixi.lock` written by the tools' own writers (conda-lock 4.0's
+/// `write_conda_lock_file`, py-rattler's `LockFile.to_path`, the rattler-lock code pixi
+/// writes with) for a torch set locked for two platforms (a CUDA build on linux-64, a CPU
+/// build on osx-arm64), a PyPI package beside them, and a test-only package. Reference: the
+/// same libraries' readers (`parse_conda_lock_file`, `LockFile.from_path`), compared as sets of
+/// (name, version, platform, URL).
+#[test]
+fn conda_lock_and_pixi_lock_agree_with_their_own_readers() {
+    let Some(python) = conda_tools() else {
+        return;
+    };
+    let dir = tempfile::tempdir().unwrap();
+    let script = r#"
+import json, sys
+from pathlib import Path
+d = Path(json.load(sys.stdin)[0])
+from conda_lock.lockfile import write_conda_lock_file, parse_conda_lock_file
+from conda_lock.lockfile.v2prelim.models import LockedDependency, Lockfile, LockMeta
+from conda_lock.lockfile.v1.models import HashModel
+from rattler import LockFile, PackageRecord, RepoDataRecord, LockPlatform, BuildString
+CF = "https://conda.anaconda.org/conda-forge/"
+conda = [
+    ("pytorch", "2.5.1", "cuda126_py312h1763f6d_303", "linux-64", "linux-64", "main"),
+    ("pytorch", "2.5.1", "cpu_generic_py312h1e1d7bd_3", "osx-arm64", "osx-arm64", "main"),
+    ("numpy", "2.1.3", "py312h58c1407_0", "linux-64", "linux-64", "main"),
+    ("numpy", "2.1.3", "py312h94ee1e1_0", "osx-arm64", "osx-arm64", "main"),
+    ("pytest", "8.3.4", "pyhd8ed1ab_1", "noarch", "linux-64", "dev"),
+]
+pip = ("transformers", "4.46.3",
+       "https://files.pythonhosted.org/packages/transformers-4.46.3-py3-none-any.whl", "linux-64")
+deps = []
+for i, (n, v, b, sub, plat, cat) in enumerate(conda):
+    url = f"{CF}{sub}/{n}-{v}-{b}.conda"
+    deps.append(LockedDependency(name=n, version=v, manager="conda", platform=plat, url=url,
+        hash=HashModel(md5=f"{i:032x}", sha256=f"{i:064x}"), build=b, categories={cat}))
+deps.append(LockedDependency(name=pip[0], version=pip[1], manager="pip", platform=pip[3],
+    url=pip[2], hash=HashModel(sha256="f" * 64), categories={"main"}))
+meta = LockMeta(content_hash={"linux-64": "a" * 64, "osx-arm64": "b" * 64},
+    channels=[{"url": "conda-forge", "used_env_vars": []}], platforms=["linux-64", "osx-arm64"],
+    sources=["environment.yml"])
+write_conda_lock_file(Lockfile(package=deps, metadata=meta), d / "conda-lock.yml", metadata_choices=None)
+platforms = {p: LockPlatform(p) for p in ["linux-64", "osx-arm64"]}
+lf = LockFile(list(platforms.values()))
+for i, (n, v, b, sub, plat, cat) in enumerate(conda):
+    rec = PackageRecord(n, v, BuildString(b), 0, sub, sha256=bytes.fromhex(f"{i:064x}"),
+        md5=bytes.fromhex(f"{i:032x}"))
+    fn = f"{n}-{v}-{b}.conda"
+    lf.add_conda_package("default" if cat == "main" else "test", platforms[plat],
+        RepoDataRecord(rec, fn, f"{CF}{sub}/{fn}", CF))
+lf.add_pypi_package("default", platforms[pip[3]], pip[0], pip[1], pip[2])
+lf.to_path(str(d / "pixi.lock"))
+rows = {"conda-lock.yml": [], "pixi.lock": []}
+for p in parse_conda_lock_file(d / "conda-lock.yml").package:
+    rows["conda-lock.yml"].append([p.name, p.version, p.platform, p.url])
+for env_name, env in LockFile.from_path(str(d / "pixi.lock")).environments():
+    for plat, pkgs in env.packages_by_platform().items():
+        for p in pkgs:
+            rows["pixi.lock"].append([p.name, str(p.version), str(plat), str(p.location)])
+print(json.dumps(rows))
+"#;
+    let reference: std::collections::BTreeMap<String, Vec<(String, String, String, String)>> =
+        python_json(&python, script, &[dir.path().to_str().unwrap()], None);
+    for (file, format) in [
+        ("conda-lock.yml", Format::CondaLock),
+        ("pixi.lock", Format::PixiLock),
+    ] {
+        assert_eq!(Format::detect(file), Some(format));
+        let parsed = parse_file(format, &dir.path().join(file));
+        assert!(parsed.warnings.is_empty(), "{file}: {:?}", parsed.warnings);
+        let ours: BTreeSet<(String, String, String, String)> = parsed
+            .packages
+            .iter()
+            .map(|p| {
+                (
+                    p.name.clone(),
+                    p.version.clone(),
+                    p.platform.clone().unwrap(),
+                    p.source.clone().unwrap(),
+                )
+            })
+            .collect();
+        let theirs: BTreeSet<_> = reference[file].iter().cloned().collect();
+        assert_eq!(ours, theirs, "{file}");
+        assert_eq!(ours.len(), 6, "{file}");
+        // The test-only package is marked, the CUDA and CPU builds of torch stay apart.
+        let pytest = parsed.packages.iter().find(|p| p.name == "pytest").unwrap();
+        assert!(pytest.dev || pytest.optional, "{file}");
+        let torch: Vec<_> = parsed
+            .packages
+            .iter()
+            .filter(|p| p.name == "pytorch")
+            .collect();
+        assert_eq!(torch.len(), 2, "{file}");
+        assert!(torch.iter().all(|p| !p.hashes.is_empty()), "{file}");
+    }
+}

@@ -166,6 +166,26 @@ fn match_spec(spec: &str) -> Option<Package> {
     })
 }
 
+/// The name (lower case) and version of a conda package from its file name,
+/// `NAME-VERSION-BUILD.conda` or `.tar.bz2` (CEP 23; the build string stays in the URL).
+pub(crate) fn name_version_of_url(url: &str) -> Result<(String, String), String> {
+    let file = url.rsplit('/').next().unwrap_or(url);
+    let stem = file
+        .strip_suffix(".conda")
+        .or_else(|| file.strip_suffix(".tar.bz2"))
+        .ok_or_else(|| format!("`{file}` is not a conda package file (`.conda` or `.tar.bz2`)"))?;
+    let mut parts = stem.rsplitn(3, '-').skip(1);
+    let (Some(version), Some(name)) = (parts.next(), parts.next()) else {
+        return Err(format!("`{file}` is not named NAME-VERSION-BUILD"));
+    };
+    if name.is_empty() || version.is_empty() {
+        return Err(format!(
+            "`{file}` is not named NAME-VERSION-BUILD (empty name or version)"
+        ));
+    }
+    Ok((name.to_ascii_lowercase(), version.to_string()))
+}
+
 /// Parses the text of an explicit spec file; `path` only names the file in errors.
 pub fn parse_explicit(text: &str, path: &str) -> Result<Parsed, LockfileError> {
     let text = text.strip_prefix('\u{feff}').unwrap_or(text);
@@ -207,32 +227,14 @@ pub fn parse_explicit(text: &str, path: &str) -> Result<Parsed, LockfileError> {
                 })?]
             }
         };
-        let file = url.rsplit('/').next().unwrap_or(url);
-        let stem = file
-            .strip_suffix(".conda")
-            .or_else(|| file.strip_suffix(".tar.bz2"))
-            .ok_or_else(|| {
-                err(format!(
-                    "`{file}` is not a conda package file (`.conda` or `.tar.bz2`)"
-                ))
-            })?;
-        // The build string is in the URL, which is the source.
-        let mut parts = stem.rsplitn(3, '-').skip(1);
-        let (Some(version), Some(name)) = (parts.next(), parts.next()) else {
-            return Err(err(format!("`{file}` is not named NAME-VERSION-BUILD")));
-        };
-        if name.is_empty() || version.is_empty() {
-            return Err(err(format!(
-                "`{file}` is not named NAME-VERSION-BUILD (empty name or version)"
-            )));
-        }
+        let (name, version) = name_version_of_url(url).map_err(err)?;
         let subdir = url
             .rsplit('/')
             .nth(1)
             .filter(|s| !s.is_empty() && url.contains('/'));
         packages.push(Package {
-            name: name.to_ascii_lowercase(),
-            version: version.to_string(),
+            name,
+            version,
             source: Some(scrub_url_credentials(url)),
             hashes,
             platform: subdir.map(str::to_string),

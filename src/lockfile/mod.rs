@@ -8,6 +8,7 @@
 
 pub mod cargo;
 pub mod conda;
+pub mod condalock;
 pub mod dockerfile;
 pub mod golang;
 pub mod julia;
@@ -103,6 +104,10 @@ pub enum Format {
     RustToolchain,
     /// `.nvmrc` and `.node-version`.
     NodeVersion,
+    /// conda-lock's unified `conda-lock.yml`.
+    CondaLock,
+    /// pixi's `pixi.lock`.
+    PixiLock,
 }
 
 /// A pip requirements or constraints file by its name: `*requirements*.txt`
@@ -171,6 +176,8 @@ impl Format {
                 "uv.lock" => Some(Format::UvLock),
                 "pdm.lock" => Some(Format::PdmLock),
                 "pyproject.toml" => Some(Format::Pyproject),
+                "pixi.lock" => Some(Format::PixiLock),
+                _ if condalock::is_conda_lock_name(file_name) => Some(Format::CondaLock),
                 "setup.cfg" => Some(Format::SetupCfg),
                 ".python-version" => Some(Format::PythonVersion),
                 "rust-toolchain" | "rust-toolchain.toml" => Some(Format::RustToolchain),
@@ -202,7 +209,10 @@ impl Format {
             | Format::Pyproject
             | Format::SetupCfg => "pypi",
             Format::PythonVersion | Format::RustToolchain | Format::NodeVersion => "toolchain",
-            Format::CondaEnvironment | Format::CondaExplicit => "conda",
+            Format::CondaEnvironment
+            | Format::CondaExplicit
+            | Format::CondaLock
+            | Format::PixiLock => "conda",
             Format::Dockerfile => "oci",
         }
     }
@@ -211,7 +221,11 @@ impl Format {
     pub fn parse(self, text: &str, path: &str) -> Result<Parsed, LockfileError> {
         if matches!(
             self,
-            Format::PnpmLock | Format::YarnLock | Format::CondaEnvironment
+            Format::PnpmLock
+                | Format::YarnLock
+                | Format::CondaEnvironment
+                | Format::CondaLock
+                | Format::PixiLock
         ) {
             support::check_yaml_depth(text, path)?;
         }
@@ -239,6 +253,8 @@ impl Format {
             Format::PythonVersion => toolchain::parse_python_version(text, path),
             Format::RustToolchain => toolchain::parse_rust_toolchain(text, path),
             Format::NodeVersion => toolchain::parse_node_version(text, path),
+            Format::CondaLock => condalock::parse_conda_lock(text, path),
+            Format::PixiLock => condalock::parse_pixi(text, path),
         };
         parsed.map(|p| without_nameless(p, path))
     }
