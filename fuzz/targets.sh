@@ -20,6 +20,14 @@ seeds() { # target -> seed folders
     conda_environment_yml) echo tests/corpus/environment.yml ;;
     conda_explicit) echo tests/corpus/spec-file.txt ;;
     dockerfile) echo tests/corpus/Dockerfile ;;
+    pyproject_toml) echo tests/corpus/pyproject.toml ;;
+    setup_cfg) echo tests/corpus/setup.cfg ;;
+    requirements_in) echo tests/corpus/requirements.in ;;
+    python_version) echo tests/corpus/.python-version ;;
+    rust_toolchain_toml) echo tests/corpus/rust-toolchain.toml ;;
+    nvmrc) echo tests/corpus/.nvmrc ;;
+    conda_lock_yml) echo tests/corpus/conda-lock.yml ;;
+    pixi_lock) echo tests/corpus/pixi.lock ;;
     manifest) echo tests/corpus/manifest tests/corpus/manifest-json fixtures/demo ;;
     policy) echo fuzz/seeds/policy ;;
     *) echo "fuzz: no seeds listed for target $1 (fuzz/targets.sh)" >&2; return 1 ;;

@@ -119,11 +119,12 @@ struct RustToolchain {
 /// Parses `rust-toolchain.toml` or the legacy `rust-toolchain` (TOML, or one channel name).
 pub fn parse_rust_toolchain(text: &str, path: &str) -> Result<Parsed, LockfileError> {
     let body = text.strip_prefix('\u{feff}').unwrap_or(text);
-    let legacy_one_line = !path.ends_with(".toml") && !body.contains('[');
+    // The legacy form is one channel name; TOML has a table header or a `key =`.
+    let legacy_one_line = !body.contains('[') && !body.contains('=');
     if legacy_one_line {
         let mut lines = values(body);
         let Some(channel) = lines.next() else {
-            return Ok(parsed(Vec::new()));
+            return Err(LockfileError::at(path, None, "names no toolchain"));
         };
         if lines.next().is_some() || channel.chars().any(char::is_whitespace) {
             return Err(LockfileError::at(

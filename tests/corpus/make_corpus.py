@@ -43,6 +43,16 @@ SEEDS = {
     "environment.yml": open("fixtures/lockfiles/python/conda/environment.yml").read(),
     "spec-file.txt": open("fixtures/lockfiles/python/conda/spec-file.txt").read(),
     "manifest": open("fixtures/demo/baseline.toml").read(),
+    # Dependency inputs and toolchain pins (PEP 621 / PEP 735, setuptools, pip-tools, pyenv,
+    # the rustup book, nvm).
+    "pyproject.toml": '[project]\nname = "kelp"\nversion = "0.1.0"\ndependencies = [\n  "torch>=2.1,<2.4",\n  "numpy==1.26.4",\n]\n[project.optional-dependencies]\ngpu = ["cupy-cuda12x>=13"]\n[dependency-groups]\ndev = ["pytest>=8"]\n',
+    "setup.cfg": "[metadata]\nname = kelp\n\n[options]\ninstall_requires =\n    torch>=2.1,<2.4\n    numpy==1.26.4\n\n[options.extras_require]\ngpu = cupy-cuda12x>=13\n",
+    "requirements.in": "torch>=2.1,<2.4\nnumpy\n-c constraints.txt\n",
+    ".python-version": "3.11.7\n",
+    "rust-toolchain.toml": '[toolchain]\nchannel = "1.85.0"\ncomponents = ["rustfmt", "clippy"]\n',
+    ".nvmrc": "v20.10.0\n",
+    "conda-lock.yml": "version: 1\nmetadata:\n  platforms:\n  - linux-64\npackage:\n- name: numpy\n  version: 2.1.3\n  manager: conda\n  platform: linux-64\n  dependencies: {}\n  url: https://conda.anaconda.org/conda-forge/linux-64/numpy-2.1.3-py312h58c1407_0.conda\n  hash:\n    md5: '00000000000000000000000000000000'\n    sha256: '1111111111111111111111111111111111111111111111111111111111111111'\n  category: main\n  optional: false\n- name: transformers\n  version: 4.46.3\n  manager: pip\n  platform: linux-64\n  url: https://files.pythonhosted.org/packages/transformers-4.46.3-py3-none-any.whl\n  hash:\n    sha256: '2222222222222222222222222222222222222222222222222222222222222222'\n  category: main\n  optional: false\n",
+    "pixi.lock": "version: 6\nenvironments:\n  default:\n    channels:\n    - url: https://conda.anaconda.org/conda-forge/\n    packages:\n      linux-64:\n      - conda: https://conda.anaconda.org/conda-forge/linux-64/numpy-2.1.3-py312h58c1407_0.conda\n      - pypi: https://files.pythonhosted.org/packages/transformers-4.46.3-py3-none-any.whl\npackages:\n- conda: https://conda.anaconda.org/conda-forge/linux-64/numpy-2.1.3-py312h58c1407_0.conda\n  sha256: 1111111111111111111111111111111111111111111111111111111111111111\n  md5: 00000000000000000000000000000000\n- pypi: https://files.pythonhosted.org/packages/transformers-4.46.3-py3-none-any.whl\n  name: transformers\n  version: 4.46.3\n  sha256: 2222222222222222222222222222222222222222222222222222222222222222\n",
 }
 FAMILY = {
     "Cargo.lock": "toml", "Manifest.toml": "toml", "pylock.toml": "toml", "poetry.lock": "toml",
@@ -51,6 +61,9 @@ FAMILY = {
     "Pipfile.lock": "json",
     "pnpm-lock.yaml": "yaml", "environment.yml": "yaml",
     "requirements.txt": "lines", "go.mod": "lines", "yarn.lock": "lines", "spec-file.txt": "lines",
+    "pyproject.toml": "toml", "rust-toolchain.toml": "toml",
+    "setup.cfg": "lines", "requirements.in": "lines", ".python-version": "lines", ".nvmrc": "lines",
+    "conda-lock.yml": "yaml", "pixi.lock": "yaml",
 }
 
 
@@ -110,7 +123,10 @@ def cases(name, seed):
 # an empty or blank Cargo.lock, Julia Manifest.toml, requirements file, yarn.lock or conda
 # environment file describes a project without packages (cargo, Pkg.jl and pip accept them;
 # an empty YAML document is null, read as no dependencies).
-EMPTY_OK = {"Cargo.lock", "Manifest.toml", "requirements.txt", "yarn.lock", "environment.yml", "go.mod"}
+EMPTY_OK = {"Cargo.lock", "Manifest.toml", "requirements.txt", "yarn.lock", "environment.yml", "go.mod",
+            # No declared dependency, no pinned version: pip-tools, setuptools, pyenv and nvm
+            # read an empty file as nothing declared; a pyproject.toml may hold no tables.
+            "requirements.in", "setup.cfg", "pyproject.toml", ".python-version", ".nvmrc"}
 GOOD = {"seed", "bom", "crlf"}
 # Damaged inputs that cannot be told from valid ones: a line-based or YAML file cut at a line
 # end, an extra or duplicate key the parser ignores, a huge value in a field it does not read,
@@ -130,6 +146,20 @@ LENIENT = {
                          "truncated-mid-token"},
     "spec-file.txt": {"huge-integer"},
     "yarn.lock": {"huge-integer", "lone-cr-line-endings", "truncated-half"},
+    # Version names are text; a file cut at a line end, or a TOML file cut after a complete
+    # table, is a shorter valid file; the mutations that find no `[[package]]` or `version =`
+    # to change leave the seed as it was.
+    "requirements.in": {"huge-integer", "lone-cr-line-endings", "truncated-half",
+                        "truncated-mid-token"},
+    "setup.cfg": {"huge-integer", "truncated-half"},
+    ".python-version": {"huge-integer", "lone-cr-line-endings", "truncated-half",
+                        "truncated-mid-token"},
+    ".nvmrc": {"huge-integer", "lone-cr-line-endings", "truncated-half", "truncated-mid-token"},
+    "pyproject.toml": {"huge-integer", "truncated-half", "truncated-mid-token",
+                       "wrong-type-array-of-strings"},
+    "rust-toolchain.toml": {"huge-integer", "wrong-type-array-of-strings"},
+    "conda-lock.yml": {"huge-integer"},
+    "pixi.lock": {"huge-integer", "truncated-half", "truncated-mid-token"},
 }
 
 
