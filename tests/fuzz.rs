@@ -23,9 +23,6 @@ use runprint::manifest::{
     Package, RunInfo, Submodule, SystemInfo, MAX_INTEGER,
 };
 
-/// Every lockfile format, by a file name it is detected from.
-const FORMATS: &[&str] = common::LOCKFILE_NAMES;
-
 fn config() -> ProptestConfig {
     // PROPTEST_CASES overrides the count; failures are not persisted to files in the tree.
     ProptestConfig {
@@ -124,28 +121,28 @@ proptest! {
 
     #[test]
     fn lockfile_parsers_survive_arbitrary_bytes(
-        index in 0..FORMATS.len(),
+        index in 0..Format::ALL.len(),
         bytes in prop::collection::vec(any::<u8>(), 0..512),
     ) {
-        parse_any(FORMATS[index], &bytes);
+        parse_any(Format::ALL[index].example_name(), &bytes);
     }
 
     #[test]
     fn lockfile_parsers_survive_arbitrary_text(
-        index in 0..FORMATS.len(),
+        index in 0..Format::ALL.len(),
         text in prop::collection::vec(token(), 0..96),
     ) {
-        parse_any(FORMATS[index], text.concat().as_bytes());
+        parse_any(Format::ALL[index].example_name(), text.concat().as_bytes());
     }
 
     #[test]
     fn lockfile_parsers_survive_mutated_valid_input(
-        index in 0..FORMATS.len(),
+        index in 0..Format::ALL.len(),
         mutations in prop::collection::vec(mutation(), 1..6),
     ) {
-        let mut bytes = seed(FORMATS[index]);
+        let mut bytes = seed(Format::ALL[index].example_name());
         apply(&mut bytes, &mutations);
-        parse_any(FORMATS[index], &bytes);
+        parse_any(Format::ALL[index].example_name(), &bytes);
     }
 
     #[test]
@@ -512,8 +509,10 @@ fn every_parser_has_a_fuzz_target() {
         );
         targets.push(target);
     }
-    let expected: std::collections::BTreeSet<String> =
-        FORMATS.iter().map(|s| s.to_string()).collect();
+    let expected: std::collections::BTreeSet<String> = common::lockfile_names()
+        .iter()
+        .map(|s| s.to_string())
+        .collect();
     assert_eq!(fuzzed, expected);
     for other in ["go_sum", "manifest", "policy"] {
         assert!(targets.iter().any(|t| t == other), "no fuzz target {other}");

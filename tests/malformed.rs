@@ -91,7 +91,7 @@ fn corpus_has_at_least_eighty_malformed_inputs_across_every_parser() {
     let bad = all.iter().filter(|c| c.1 == "bad").count();
     assert!(bad >= 80, "only {bad} malformed inputs");
     // Every lockfile format runprint reads has a folder.
-    for name in common::LOCKFILE_NAMES
+    for name in common::lockfile_names()
         .iter()
         .copied()
         .chain(["manifest", "manifest-json"])

@@ -10,11 +10,9 @@
 //! The walk skips the same folders as the on-disk walk ([`super::lockfiles::SKIPPED_DIRS`]);
 //! `.gitignore` needs no handling because ignored files are not committed.
 
-use std::collections::HashSet;
-
 use git2::{ObjectType, Repository, Tree, TreeWalkMode, TreeWalkResult};
 
-use crate::lockfile::{requirements, Format, Include, Parsed};
+use crate::lockfile::Format;
 use crate::manifest::{GitInfo, Lockfile, Submodule};
 
 /// What a revision holds.
@@ -269,7 +267,8 @@ fn read_lockfile(
         warnings,
     )?;
     if !parsed.includes.is_empty() {
-        merge_includes(repo, tree, path, &mut parsed, warnings);
+        let mut source = TreeSource { repo, tree };
+        super::includes::merge(&mut source, path.to_string(), &mut parsed, warnings);
     }
     Some(Lockfile::from_parsed(
         path, format, parsed, &bytes, warnings,
@@ -304,76 +303,48 @@ fn resolve(from: &str, target: &str) -> Option<String> {
     Some(parts.join("/"))
 }
 
-/// Requirements includes (`-r`, `-c`) read from the same tree, each file at most once, with
-/// constraints-only entries marked optional, as on disk.
-fn merge_includes(
-    repo: &Repository,
-    tree: &Tree<'_>,
-    file: &str,
-    parsed: &mut Parsed,
-    warnings: &mut Vec<String>,
-) {
-    let mut seen: HashSet<String> = HashSet::from([file.to_string()]);
-    let mut queue: Vec<(String, Include)> = parsed
-        .includes
-        .drain(..)
-        .map(|inc| (file.to_string(), inc))
-        .collect();
-    while let Some((from, inc)) = queue.pop() {
-        if inc.target.contains("://") {
-            warnings.push(format!(
-                "lockfile `{from}`: included `{}` is a URL and was not read",
-                crate::redact::scrub_url_credentials(&inc.target)
-            ));
-            continue;
-        }
-        let Some(target) = resolve(&from, &inc.target) else {
-            warnings.push(format!(
-                "lockfile `{from}`: included {} lies outside the repository and was not read",
-                crate::redact::content_free(&format!("`{}`", inc.target))
-            ));
-            continue;
-        };
-        if !seen.insert(target.clone()) {
-            continue;
-        }
-        let text = match blob_read(repo, tree, &target) {
-            Ok(Some(b)) => decode_or_warn(&b, &target, warnings),
-            Ok(None) => {
-                warnings.push(format!(
-                    "lockfile `{from}`: cannot read included {} at this revision",
-                    crate::redact::content_free(&format!("`{}`", inc.target))
-                ));
-                None
-            }
-            Err(e) => {
-                warnings.push(format!("lockfile `{target}`: {e}"));
-                None
-            }
-        };
-        let Some(text) = text else { continue };
-        match requirements::parse(&text, &target) {
-            Ok(mut sub) => {
-                warnings.append(&mut sub.warnings);
-                for mut p in sub.packages {
-                    p.optional |= inc.constraints_only;
-                    parsed.packages.push(p);
-                }
-                queue.extend(sub.includes.into_iter().map(|i| {
-                    let constraints_only = i.constraints_only || inc.constraints_only;
-                    (
-                        target.clone(),
-                        Include {
-                            constraints_only,
-                            ..i
-                        },
+/// A git tree as the place included files are read from: paths inside the tree only.
+struct TreeSource<'r, 't> {
+    repo: &'r Repository,
+    tree: &'t Tree<'r>,
+}
+
+impl super::includes::IncludeSource for TreeSource<'_, '_> {
+    type Key = String;
+
+    fn locate(&mut self, from: &String, target: &str) -> Result<String, String> {
+        resolve(from, target).ok_or_else(|| {
+            format!(
+                "included {} lies outside the repository and was not read",
+                super::includes::quoted(target)
+            )
+        })
+    }
+
+    fn load(&mut self, _from: &String, key: &String, target: &str) -> Result<String, String> {
+        match blob_read(self.repo, self.tree, key) {
+            Ok(Some(b)) => crate::lockfile::decode(&b, key)
+                .map(str::to_string)
+                .map_err(|e| {
+                    format!(
+                        "cannot read included {}: {e}",
+                        super::includes::quoted(target)
                     )
-                }));
-            }
-            Err(e) => warnings.push(format!("lockfile {e}")),
+                }),
+            Ok(None) => Err(format!(
+                "cannot read included {} at this revision",
+                super::includes::quoted(target)
+            )),
+            Err(e) => Err(format!(
+                "cannot read included {}: {e}",
+                super::includes::quoted(target)
+            )),
         }
     }
-    crate::lockfile::python::sort_packages(&mut parsed.packages);
+
+    fn shown(&self, key: &String) -> String {
+        key.clone()
+    }
 }
 
 #[cfg(test)]

@@ -5,12 +5,11 @@
 //! `target`, virtual environments and caches. A file that cannot be read or parsed becomes a
 //! warning; the others are still recorded.
 
-use std::collections::HashSet;
 use std::path::{Path, PathBuf};
 
 use crate::collect::cargo_features;
 use crate::collect::lockfile_cache::{self as cache, Inputs, LockfileCache};
-use crate::lockfile::{cargo, requirements, Format, Parsed};
+use crate::lockfile::{cargo, Format};
 use crate::manifest::Lockfile;
 
 /// Folder names never descended into.
@@ -458,7 +457,13 @@ fn read_one(
         warnings,
     )?;
     if !parsed.includes.is_empty() {
-        merge_includes(ctx, abs, &mut parsed, &mut inputs.paths, warnings);
+        let key = abs.canonicalize().unwrap_or_else(|_| abs.to_path_buf());
+        let mut source = DiskSource {
+            ctx,
+            root: ctx.confine.root().to_path_buf(),
+            read: &mut inputs.paths,
+        };
+        super::includes::merge(&mut source, key, &mut parsed, warnings);
     }
     if format == Format::CargoLock {
         let beside = abs.with_file_name("Cargo.toml");
@@ -499,82 +504,58 @@ fn why_not_read(path: &Path, e: &std::io::Error) -> String {
     }
 }
 
-/// Reads the files a requirements file includes, relative to the file that names them, each
-/// at most once (so include cycles end), and adds their packages to `parsed`. Entries from
-/// constraints files (`-c`) are marked optional: they pin versions without asking for
-/// installation.
-/// Every included path looked for is pushed to `read`.
-fn merge_includes(
-    ctx: &Context,
-    file: &Path,
-    parsed: &mut Parsed,
-    read: &mut Vec<PathBuf>,
-    warnings: &mut Vec<String>,
-) {
-    let root = ctx.confine.root().to_path_buf();
-    let mut seen: HashSet<PathBuf> = file.canonicalize().into_iter().collect();
-    let mut queue: Vec<(PathBuf, crate::lockfile::Include)> = parsed
-        .includes
-        .drain(..)
-        .map(|inc| (file.to_path_buf(), inc))
-        .collect();
-    while let Some((from, inc)) = queue.pop() {
-        let from_shown = shown_path(&root, &from);
-        if inc.target.contains("://") {
-            warnings.push(format!(
-                "lockfile `{from_shown}`: included `{}` is a URL and was not read",
-                crate::redact::scrub_url_credentials(&inc.target)
-            ));
-            continue;
-        }
-        let target = from.parent().unwrap_or(Path::new(".")).join(&inc.target);
-        read.push(target.clone());
-        let loaded = target.canonicalize().and_then(|c| {
-            // An include inside the repository stays inside it, whatever links it follows.
-            let bytes = if ctx.read_confined(&from) {
-                ctx.confine.read(&target)?
-            } else {
-                crate::limits::read_regular_file(&c)?
-            };
-            let text = crate::lockfile::decode(&bytes, &inc.target)
-                .map_err(|e| std::io::Error::new(std::io::ErrorKind::InvalidData, e.message))?;
-            Ok((text.to_string(), c))
-        });
-        let (text, canonical) = match loaded {
-            Ok(v) => v,
-            Err(e) => {
-                warnings.push(format!(
-                    "lockfile `{from_shown}`: cannot read included {}: {e}",
-                    crate::redact::content_free(&format!("`{}`", inc.target))
-                ));
-                continue;
-            }
-        };
-        if !seen.insert(canonical.clone()) {
-            continue;
-        }
-        match requirements::parse(&text, &shown_path(&root, &canonical)) {
-            Ok(mut sub) => {
-                warnings.append(&mut sub.warnings);
-                for mut p in sub.packages {
-                    p.optional |= inc.constraints_only;
-                    parsed.packages.push(p);
-                }
-                queue.extend(sub.includes.into_iter().map(|i| {
-                    let constraints_only = i.constraints_only || inc.constraints_only;
-                    (
-                        canonical.clone(),
-                        crate::lockfile::Include {
-                            constraints_only,
-                            ..i
-                        },
-                    )
-                }));
-            }
-            Err(e) => warnings.push(format!("lockfile {e}")),
-        }
+/// The work tree (and files outside it named with `--lockfile`) as the place included files
+/// are read from. Files are known by their canonical path; an include inside the repository
+/// stays inside it, whatever links it follows. Every included path looked for is pushed to
+/// `read` (the lockfile cache's inputs).
+struct DiskSource<'c> {
+    ctx: &'c Context<'c>,
+    root: PathBuf,
+    read: &'c mut Vec<PathBuf>,
+}
+
+impl super::includes::IncludeSource for DiskSource<'_> {
+    type Key = PathBuf;
+
+    fn locate(&mut self, from: &PathBuf, target: &str) -> Result<PathBuf, String> {
+        let path = from.parent().unwrap_or(Path::new(".")).join(target);
+        self.read.push(path.clone());
+        path.canonicalize().map_err(|e| {
+            format!(
+                "cannot read included {}: {e}",
+                super::includes::quoted(target)
+            )
+        })
     }
-    crate::lockfile::python::sort_packages(&mut parsed.packages);
+
+    fn load(&mut self, from: &PathBuf, key: &PathBuf, target: &str) -> Result<String, String> {
+        // Confined when the including file is the repository's: a committed include (or a
+        // link it follows) that leads out of the repository is refused.
+        let bytes = if self.ctx.read_confined(from) {
+            self.ctx.confine.read(key)
+        } else {
+            crate::limits::read_regular_file(key)
+        }
+        .map_err(|e| {
+            format!(
+                "cannot read included {}: {e}",
+                super::includes::quoted(target)
+            )
+        })?;
+        crate::lockfile::decode(&bytes, target)
+            .map(str::to_string)
+            .map_err(|e| {
+                format!(
+                    "cannot read included {}: {}",
+                    super::includes::quoted(target),
+                    e.message
+                )
+            })
+    }
+
+    fn shown(&self, key: &PathBuf) -> String {
+        shown_path(&self.root, key)
+    }
 }
 
 /// A path as shown in warnings: relative to the root when inside it.

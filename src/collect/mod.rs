@@ -15,6 +15,7 @@ pub mod env;
 pub mod fsdeps;
 pub mod git;
 pub mod gpu;
+mod includes;
 pub mod lockfile_cache;
 pub mod lockfiles;
 pub mod native;

@@ -1431,7 +1431,12 @@ pub fn path_class(path: &str, policy: &Policy, lockfiles: &[&str]) -> PathClass 
     if CI_FILES.contains(&file) || folders.first().is_some_and(|d| CI_FOLDERS.contains(d)) {
         return PathClass::Ci;
     }
-    if DEPENDENCY_FILES.contains(&file)
+    // Every format runprint reads but container recipes (their own class, below), then the
+    // dependency manifests it does not read.
+    let read_format = crate::lockfile::Format::detect_path(path)
+        .is_some_and(|f| f != crate::lockfile::Format::Dockerfile);
+    if read_format
+        || DEPENDENCY_FILES.contains(&file)
         || (file.starts_with("requirements") && (file.ends_with(".txt") || file.ends_with(".in")))
         || (file.starts_with("constraints") && file.ends_with(".txt"))
         || ((file.ends_with(".in") || file.ends_with(".txt"))

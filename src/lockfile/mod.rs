@@ -55,59 +55,82 @@ pub struct Include {
     pub constraints_only: bool,
 }
 
-/// Supported lockfile formats.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum Format {
+/// Declares [`Format`] with [`Format::ALL`] and [`Format::example_name`] from one list, so
+/// that a new format is added in one place and every table that iterates formats (the tests,
+/// the fuzz targets' check, the corpus) sees it.
+macro_rules! formats {
+    ($($(#[$doc:meta])* $variant:ident => $example:literal,)*) => {
+        /// Supported lockfile, dependency-input and toolchain-pin formats.
+        #[derive(Debug, Clone, Copy, PartialEq, Eq)]
+        pub enum Format {
+            $($(#[$doc])* $variant,)*
+        }
+
+        impl Format {
+            /// Every format, in declaration order.
+            pub const ALL: &'static [Format] = &[$(Format::$variant,)*];
+
+            /// A file name the format is detected from (`Cargo.lock`, `.python-version`…).
+            pub fn example_name(self) -> &'static str {
+                match self {
+                    $(Format::$variant => $example,)*
+                }
+            }
+        }
+    };
+}
+
+formats! {
     /// Rust's `Cargo.lock`.
-    CargoLock,
+    CargoLock => "Cargo.lock",
     /// pip's `requirements*.txt`.
-    Requirements,
+    Requirements => "requirements.txt",
     /// npm's `package-lock.json` or `npm-shrinkwrap.json`.
-    NpmLock,
+    NpmLock => "package-lock.json",
     /// `yarn.lock`, Yarn classic (v1) or Yarn 2 and later.
-    YarnLock,
+    YarnLock => "yarn.lock",
     /// `pnpm-lock.yaml`.
-    PnpmLock,
+    PnpmLock => "pnpm-lock.yaml",
     /// Go's `go.mod`, read with the `go.sum` beside it (see [`Format::companion`]).
-    GoMod,
+    GoMod => "go.mod",
     /// NuGet's `packages.lock.json`.
-    NugetLock,
+    NugetLock => "packages.lock.json",
     /// R's `renv.lock`.
-    RenvLock,
+    RenvLock => "renv.lock",
     /// Julia's `Manifest.toml` (and `Manifest-vX.Y.toml`).
-    JuliaManifest,
+    JuliaManifest => "Manifest.toml",
     /// PEP 751 `pylock.toml` and `pylock.NAME.toml`.
-    Pylock,
+    Pylock => "pylock.toml",
     /// Poetry's `poetry.lock`.
-    PoetryLock,
+    PoetryLock => "poetry.lock",
     /// pipenv's `Pipfile.lock`.
-    PipfileLock,
+    PipfileLock => "Pipfile.lock",
     /// uv's `uv.lock`.
-    UvLock,
+    UvLock => "uv.lock",
     /// PDM's `pdm.lock`.
-    PdmLock,
+    PdmLock => "pdm.lock",
     /// conda's `environment.yml` (or `.yaml`).
-    CondaEnvironment,
+    CondaEnvironment => "environment.yml",
     /// conda's explicit spec files (`@EXPLICIT`), as `conda list --explicit` writes them.
-    CondaExplicit,
+    CondaExplicit => "spec-file.txt",
     /// Container recipes (`Dockerfile`, `Containerfile`): their base images.
-    Dockerfile,
+    Dockerfile => "Dockerfile",
     /// pip-tools' inputs, `requirements*.in`: requirements-file syntax, declared ranges.
-    RequirementsIn,
+    RequirementsIn => "requirements.in",
     /// `pyproject.toml`: PEP 621 and PEP 735 dependency lists, Poetry's tables.
-    Pyproject,
+    Pyproject => "pyproject.toml",
     /// setuptools' `setup.cfg`: `install_requires` and `extras_require`.
-    SetupCfg,
+    SetupCfg => "setup.cfg",
     /// `.python-version`.
-    PythonVersion,
+    PythonVersion => ".python-version",
     /// `rust-toolchain.toml` and the legacy `rust-toolchain`.
-    RustToolchain,
+    RustToolchain => "rust-toolchain.toml",
     /// `.nvmrc` and `.node-version`.
-    NodeVersion,
+    NodeVersion => ".nvmrc",
     /// conda-lock's unified `conda-lock.yml`.
-    CondaLock,
+    CondaLock => "conda-lock.yml",
     /// pixi's `pixi.lock`.
-    PixiLock,
+    PixiLock => "pixi.lock",
 }
 
 /// A pip requirements or constraints file by its name: `*requirements*.txt`
@@ -438,6 +461,18 @@ pub fn line_of(text: &str, offset: usize) -> usize {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// Every format is detected from its example name (and only one format claims it).
+    #[test]
+    fn every_format_is_detected_from_its_example_name() {
+        for &f in Format::ALL {
+            assert_eq!(Format::detect(f.example_name()), Some(f), "{f:?}");
+        }
+        let mut names: Vec<&str> = Format::ALL.iter().map(|f| f.example_name()).collect();
+        names.sort_unstable();
+        names.dedup();
+        assert_eq!(names.len(), Format::ALL.len());
+    }
 
     #[test]
     fn python_file_names() {

@@ -122,26 +122,14 @@ pub fn crate_path(rel: &str) -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR")).join(rel)
 }
 
-/// One file name per lockfile format runprint reads (each is detected from its name).
-pub const LOCKFILE_NAMES: &[&str] = &[
-    "Cargo.lock",
-    "requirements.txt",
-    "package-lock.json",
-    "yarn.lock",
-    "pnpm-lock.yaml",
-    "go.mod",
-    "packages.lock.json",
-    "renv.lock",
-    "Manifest.toml",
-    "pylock.toml",
-    "poetry.lock",
-    "Pipfile.lock",
-    "uv.lock",
-    "pdm.lock",
-    "environment.yml",
-    "spec-file.txt",
-    "Dockerfile",
-];
+/// One file name per format runprint reads (each is detected from its name), from the
+/// library's own list of formats.
+pub fn lockfile_names() -> Vec<&'static str> {
+    runprint::lockfile::Format::ALL
+        .iter()
+        .map(|f| f.example_name())
+        .collect()
+}
 
 /// Runs `runprint diff OLD NEW --format json EXTRA...` in `cwd` and decodes the report into the
 /// caller's own type (each test declares the JSON contract it relies on). Returns the exit
