@@ -251,14 +251,8 @@ fn read_lockfile(
     let format = Format::detect_path(path)?;
     let bytes = blob_bytes_or_warn(repo, tree, path, warnings)?;
     let text = decode_or_warn(&bytes, path, warnings)?;
-    let companion = format.companion().and_then(|companion_name| {
-        let companion_path = sibling(path, companion_name);
-        let bytes = blob_bytes_or_warn(repo, tree, &companion_path, warnings)?;
-        Some((
-            decode_or_warn(&bytes, &companion_path, warnings)?,
-            companion_path,
-        ))
-    });
+    let mut source = TreeSource { repo, tree };
+    let companion = super::includes::companion(&mut source, &path.to_string(), format, warnings);
     let mut parsed = crate::lockfile::parse_or_warn(
         format,
         &text,
@@ -267,7 +261,6 @@ fn read_lockfile(
         warnings,
     )?;
     if !parsed.includes.is_empty() {
-        let mut source = TreeSource { repo, tree };
         super::includes::merge(&mut source, path.to_string(), &mut parsed, warnings);
     }
     Some(Lockfile::from_parsed(
@@ -321,29 +314,23 @@ impl super::includes::IncludeSource for TreeSource<'_, '_> {
         })
     }
 
-    fn load(&mut self, _from: &String, key: &String, target: &str) -> Result<String, String> {
-        match blob_read(self.repo, self.tree, key) {
-            Ok(Some(b)) => crate::lockfile::decode(&b, key)
+    fn load(&mut self, _from: &String, key: &String) -> Result<String, String> {
+        match blob_read(self.repo, self.tree, key)? {
+            Some(b) => crate::lockfile::decode(&b, key)
                 .map(str::to_string)
-                .map_err(|e| {
-                    format!(
-                        "cannot read included {}: {e}",
-                        super::includes::quoted(target)
-                    )
-                }),
-            Ok(None) => Err(format!(
-                "cannot read included {} at this revision",
-                super::includes::quoted(target)
-            )),
-            Err(e) => Err(format!(
-                "cannot read included {}: {e}",
-                super::includes::quoted(target)
-            )),
+                .map_err(|e| e.message),
+            None => Err("not found at this revision".into()),
         }
     }
 
     fn shown(&self, key: &String) -> String {
         key.clone()
+    }
+
+    fn beside(&mut self, of: &String, name: &str) -> Option<String> {
+        let path = sibling(of, name);
+        self.tree.get_path(std::path::Path::new(&path)).ok()?;
+        Some(path)
     }
 }
 

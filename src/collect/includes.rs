@@ -1,8 +1,9 @@
-//! Following the files a requirements file includes (`-r FILE`, `-c FILE`; pip's
-//! "Requirements File Format"), one way for every place lockfiles are read from: the work
+//! The files read with a lockfile, one way for every place lockfiles are read from: the work
 //! tree ([`super::lockfiles`]) and a git revision's tree ([`super::at_rev`]). Each place says
-//! how to find and read a file ([`IncludeSource`]); the order, the once-only rule, URLs,
-//! constraints and warnings are decided here.
+//! how to find and read a file ([`IncludeSource`]); what is read and how is decided here: the
+//! companion file of a format (`go.sum` beside `go.mod`) and the files a requirements file
+//! includes (`-r FILE`, `-c FILE`; pip's "Requirements File Format"), in order, each once,
+//! URLs never fetched, constraints recorded as optional.
 
 use std::collections::HashSet;
 use std::hash::Hash;
@@ -18,12 +19,35 @@ pub(crate) trait IncludeSource {
     /// warning that starts "lockfile `FROM`: ".
     fn locate(&mut self, from: &Self::Key, target: &str) -> Result<Self::Key, String>;
 
-    /// The text of file `key`, which `from` includes (decoded as lockfiles are,
-    /// [`crate::lockfile::decode`]); `Err` as for [`IncludeSource::locate`].
-    fn load(&mut self, from: &Self::Key, key: &Self::Key, target: &str) -> Result<String, String>;
+    /// The text of file `key`, read for `from` (decoded as lockfiles are,
+    /// [`crate::lockfile::decode`]); `Err` says why not, as the end of a sentence.
+    fn load(&mut self, from: &Self::Key, key: &Self::Key) -> Result<String, String>;
 
     /// How the file is named in messages and errors.
     fn shown(&self, key: &Self::Key) -> String;
+
+    /// The file `name` in the folder of `of`, when there is one.
+    fn beside(&mut self, of: &Self::Key, name: &str) -> Option<Self::Key>;
+}
+
+/// The companion of a lockfile of `format` (see [`crate::lockfile::Format::companion`]):
+/// `(text, shown path)` when it exists and reads; a warning when it exists and does not.
+pub(crate) fn companion<S: IncludeSource>(
+    source: &mut S,
+    file: &S::Key,
+    format: crate::lockfile::Format,
+    warnings: &mut Vec<String>,
+) -> Option<(String, String)> {
+    let name = format.companion()?;
+    let key = source.beside(file, name)?;
+    let shown = source.shown(&key);
+    match source.load(file, &key) {
+        Ok(text) => Some((text, shown)),
+        Err(why) => {
+            warnings.push(format!("lockfile `{shown}`: {why}"));
+            None
+        }
+    }
 }
 
 /// Reads the files `parsed` includes, and theirs, each at most once, and adds their packages
@@ -54,7 +78,9 @@ pub(crate) fn merge<S: IncludeSource>(
             if seen.contains(&key) {
                 return Ok(None);
             }
-            let text = source.load(&from, &key, &inc.target)?;
+            let text = source
+                .load(&from, &key)
+                .map_err(|why| format!("cannot read included {}: {why}", quoted(&inc.target)))?;
             Ok(Some((key, text)))
         });
         let (key, text) = match loaded {

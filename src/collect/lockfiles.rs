@@ -424,31 +424,12 @@ fn read_one(
         }
     };
     // A companion file (go.sum beside go.mod) is read with it; its hashes reach the packages.
-    let companion = format.companion().and_then(|name| {
-        let path = abs.with_file_name(name);
-        inputs.paths.push(path.clone());
-        let shown = match shown.rsplit_once('/') {
-            Some((dir, _)) => format!("{dir}/{name}"),
-            None => name.to_string(),
-        };
-        if std::fs::symlink_metadata(&path).is_err() {
-            return None;
-        }
-        let bytes = match ctx.read(&path) {
-            Ok(b) => b,
-            Err(e) => {
-                warnings.push(format!("lockfile `{shown}` {}", why_not_read(&path, &e)));
-                return None;
-            }
-        };
-        match crate::lockfile::decode(&bytes, &shown) {
-            Ok(text) => Some((text.to_string(), shown)),
-            Err(e) => {
-                warnings.push(format!("lockfile {e}"));
-                None
-            }
-        }
-    });
+    let mut source = DiskSource {
+        ctx,
+        root: ctx.confine.root().to_path_buf(),
+        read: &mut inputs.paths,
+    };
+    let companion = super::includes::companion(&mut source, &abs.to_path_buf(), format, warnings);
     let mut parsed = crate::lockfile::parse_or_warn(
         format,
         text,
@@ -458,11 +439,6 @@ fn read_one(
     )?;
     if !parsed.includes.is_empty() {
         let key = abs.canonicalize().unwrap_or_else(|_| abs.to_path_buf());
-        let mut source = DiskSource {
-            ctx,
-            root: ctx.confine.root().to_path_buf(),
-            read: &mut inputs.paths,
-        };
         super::includes::merge(&mut source, key, &mut parsed, warnings);
     }
     if format == Format::CargoLock {
@@ -528,7 +504,7 @@ impl super::includes::IncludeSource for DiskSource<'_> {
         })
     }
 
-    fn load(&mut self, from: &PathBuf, key: &PathBuf, target: &str) -> Result<String, String> {
+    fn load(&mut self, from: &PathBuf, key: &PathBuf) -> Result<String, String> {
         // Confined when the including file is the repository's: a committed include (or a
         // link it follows) that leads out of the repository is refused.
         let bytes = if self.ctx.read_confined(from) {
@@ -536,25 +512,21 @@ impl super::includes::IncludeSource for DiskSource<'_> {
         } else {
             crate::limits::read_regular_file(key)
         }
-        .map_err(|e| {
-            format!(
-                "cannot read included {}: {e}",
-                super::includes::quoted(target)
-            )
-        })?;
-        crate::lockfile::decode(&bytes, target)
+        .map_err(|e| why_not_read(key, &e))?;
+        crate::lockfile::decode(&bytes, &self.shown(key))
             .map(str::to_string)
-            .map_err(|e| {
-                format!(
-                    "cannot read included {}: {}",
-                    super::includes::quoted(target),
-                    e.message
-                )
-            })
+            .map_err(|e| e.message)
     }
 
     fn shown(&self, key: &PathBuf) -> String {
         shown_path(&self.root, key)
+    }
+
+    fn beside(&mut self, of: &PathBuf, name: &str) -> Option<PathBuf> {
+        let path = of.with_file_name(name);
+        self.read.push(path.clone());
+        std::fs::symlink_metadata(&path).ok()?;
+        Some(path)
     }
 }
 
