@@ -450,3 +450,63 @@ mod range_tests {
         assert_eq!(step("<2.4", "<2.2"), VersionChange::Downgrade);
     }
 }
+
+/// Whether PEP 440 `spec` (a specifier list, or a bare version as pinned requirements are
+/// recorded, or empty) admits `version`; `None` when either does not parse.
+pub fn admits(spec: &str, version: &str) -> Option<bool> {
+    let v = pep440_rs::Version::from_str(version).ok()?;
+    if spec.is_empty() {
+        return Some(true);
+    }
+    if !is_range(spec) {
+        return Some(pep440_rs::Version::from_str(spec).ok()? == v);
+    }
+    let specifiers = pep440_rs::VersionSpecifiers::from_str(spec).ok()?;
+    Some(specifiers.contains(&v))
+}
+
+/// The lowest version `spec` admits by its lower bounds (`>=X`, `>X`, `==X`, `~=X`, `===X`),
+/// the highest of them when there are several; `None` without one.
+pub fn lowest_admitted(spec: &str) -> Option<String> {
+    use pep440_rs::Operator;
+    if !is_range(spec) {
+        return (!spec.is_empty()).then(|| spec.to_string());
+    }
+    let specifiers = pep440_rs::VersionSpecifiers::from_str(spec).ok()?;
+    specifiers
+        .iter()
+        .filter(|s| {
+            matches!(
+                s.operator(),
+                Operator::GreaterThanEqual
+                    | Operator::GreaterThan
+                    | Operator::Equal
+                    | Operator::ExactEqual
+                    | Operator::TildeEqual
+                    | Operator::EqualStar
+            )
+        })
+        .map(|s| s.version().clone())
+        .max()
+        .map(|v| v.to_string())
+}
+
+#[cfg(test)]
+mod admits_tests {
+    use super::*;
+
+    /// PEP 440, "Version specifiers": inclusive and exclusive bounds, compatible release.
+    #[test]
+    fn admitted_versions() {
+        assert_eq!(admits(">=2.9.1", "2.8.0"), Some(false));
+        assert_eq!(admits(">=2.8.0", "2.8.0"), Some(true));
+        assert_eq!(admits("~=2.2", "3.0"), Some(false));
+        assert_eq!(admits("", "1.0"), Some(true));
+        assert_eq!(admits("1.26.4", "1.26.4"), Some(true));
+        assert_eq!(
+            lowest_admitted(">=2.8,>=2.9.1,<3").as_deref(),
+            Some("2.9.1")
+        );
+        assert_eq!(lowest_admitted("<3"), None);
+    }
+}

@@ -620,6 +620,30 @@ fn an_input_beside_its_lockfile_is_information_and_an_older_baseline_is_not_an_a
         c.reason
     );
 
+    // An input bumped past what its lockfile pins, without compiling again: the next
+    // `pip-compile` (or `uv sync`, `poetry install`) resolves again, so torch moves to 2.3 at
+    // least (PEP 440: `>=2.3` excludes 2.1.2).
+    git(repo.path(), &["checkout", "-q", "-b", "stale", "main"]);
+    write_files(repo.path(), &[("requirements.in", "torch>=2.3\n")]);
+    git(repo.path(), &["commit", "-qam", "input only"]);
+    git(repo.path(), &["checkout", "-q", "main"]);
+    let (code, report) = check_json(
+        &["--baseline", &baseline, "--rev", "stale"],
+        repo.path(),
+        &[],
+    );
+    assert_eq!(
+        (code, report.verdict.as_str()),
+        (4, "retrain"),
+        "{report:?}"
+    );
+    let c = report
+        .changes
+        .iter()
+        .find(|c| c.subject == "requirements.in: torch")
+        .expect("the stale lock is listed");
+    assert!(c.reason.contains("locks torch 2.1.2"), "{}", c.reason);
+
     // The same revision against a baseline that read only the pinned file.
     let old = tempfile::tempdir().unwrap();
     let only_pins = old.path().join("old.toml");

@@ -55,7 +55,7 @@ pub(super) fn compare_lockfiles(
                 } else if let Some(lock) =
                     deciding_lockfile(b, new).or_else(|| deciding_lockfile(a, old))
                 {
-                    compare_locked_input(path, lock, &a.packages, &b.packages, out);
+                    compare_locked_input(path, lock, &a.packages, &b.packages, ctx, out);
                 } else {
                     compare_packages(path, &b.ecosystem, &a.packages, &b.packages, ctx, out);
                 }
@@ -73,10 +73,15 @@ fn compare_locked_input(
     lock: &Lockfile,
     old: &[Package],
     new: &[Package],
+    ctx: &Context<'_>,
     out: &mut Vec<Change>,
 ) {
     for (name, a, b) in changed_names(old, new) {
         let (a, b) = (&a, &b);
+        if let Some(c) = stale_lock(path, lock, name, b, ctx) {
+            out.push(c);
+            continue;
+        }
         let v = |ps: &Vec<&Package>| Some(versions(ps)).filter(|s| !s.is_empty() || !ps.is_empty());
         let mut c = Change::from_rule(
             &rules::PKG_INPUT_LOCKED,
@@ -93,6 +98,70 @@ fn compare_locked_input(
         c.lockfiles.push(path.to_string());
         out.push(c);
     }
+}
+
+/// A declared range the lockfile beside it no longer satisfies (`torch>=2.9.1` over a lock
+/// of torch 2.8.0, the input bumped without locking again): the locker resolves again on the
+/// next sync or install (uv, Poetry, PDM check that the lock matches its inputs), so the
+/// version moves at least to the range's lower bound. Judged as that version change.
+fn stale_lock(
+    path: &str,
+    lock: &Lockfile,
+    name: &str,
+    declared: &[&Package],
+    ctx: &Context<'_>,
+) -> Option<Change> {
+    if lock.ecosystem != "pypi" {
+        return None;
+    }
+    let locked: Vec<&Package> = lock.packages.iter().filter(|p| p.name == name).collect();
+    // A declaration (the main list, an extra, a group) that every locked version fails. A
+    // lock may hold several versions of one package for different markers or extras (uv's
+    // forks): one that satisfies the declaration is the one its fork installs.
+    let (spec, excluded) = declared
+        .iter()
+        .filter(|d| d.source.is_none())
+        .find_map(|d| {
+            let spec = d.version.as_str();
+            let all_fail = !locked.is_empty()
+                && locked
+                    .iter()
+                    .all(|p| version::admits(spec, &p.version) == Some(false));
+            // Every fork moves; the lowest locked version makes the largest step.
+            let lowest = locked.iter().min_by(|x, y| {
+                version::compare("pypi", &x.version, &y.version)
+                    .unwrap_or(std::cmp::Ordering::Equal)
+            });
+            all_fail.then_some(()).and(lowest).map(|p| (spec, *p))
+        })?;
+    let target = version::lowest_admitted(spec)
+        .filter(|low| {
+            version::compare("pypi", low, &excluded.version) == Some(std::cmp::Ordering::Greater)
+        })
+        .or_else(|| {
+            version::newest_admitted(spec)
+                .as_ref()
+                .and_then(version::newest_stand_in)
+        })?;
+    let mut c = ctx.package_change(
+        Some(path),
+        Section::Lockfiles,
+        format!("{path}: {name}"),
+        name,
+        false,
+        ctx.compiled(name),
+        PackageChange::Version {
+            ecosystem: "pypi",
+            old: &excluded.version,
+            new: &target,
+        },
+        (Some(excluded.version.clone()), Some(spec.to_string())),
+    );
+    c.reason = format!(
+        "`{}` locks {name} {}, which the declared `{spec}` excludes: the next sync locks again; {}",
+        lock.path, excluded.version, c.reason
+    );
+    Some(c)
 }
 
 /// Toolchain pins, one language at a time: the first (preferred) version of each side.
@@ -202,7 +271,7 @@ fn one_side(
         } else {
             (&l.packages, &[])
         };
-        compare_locked_input(&l.path, lock, a, b, out);
+        compare_locked_input(&l.path, lock, a, b, ctx, out);
         return;
     }
     out.push(whole_lockfile(l, added, ctx));
