@@ -502,7 +502,7 @@ fn declared_ranges_and_toolchain_pins_are_compared_at_a_revision() {
         ("train.py", "\n"),
         (
             "pyproject.toml",
-            "[project]\nname = \"kelp\"\nversion = \"0.1\"\ndependencies = [\"torch>=2.1,<2.2\", \"requests>=2.30\"]\n[dependency-groups]\ndev = [\"pytest>=8\"]\n",
+            "[project]\nname = \"kelp\"\nversion = \"0.1\"\ndependencies = [\"torch>=2.1,<2.2\", \"requests>=2.30\", \"scipy>=1.11\"]\n[dependency-groups]\ndev = [\"pytest>=8\"]\n",
         ),
         (
             "features/setup.cfg",
@@ -531,7 +531,7 @@ fn declared_ranges_and_toolchain_pins_are_compared_at_a_revision() {
         &[
             (
                 "pyproject.toml",
-                "[project]\nname = \"kelp\"\nversion = \"0.1\"\ndependencies = [\"torch>=2.1,<2.4\", \"requests>=2.31\"]\n[dependency-groups]\ndev = [\"pytest>=8\"]\n",
+                "[project]\nname = \"kelp\"\nversion = \"0.1\"\ndependencies = [\"torch>=2.1,<2.4\", \"requests>=2.31\", \"scipy>=1.11\"]\n[project.optional-dependencies]\nsparse = [\"scipy\"]\n[dependency-groups]\ndev = [\"pytest>=8\"]\n",
             ),
             (
                 "features/setup.cfg",
@@ -569,6 +569,8 @@ fn declared_ranges_and_toolchain_pins_are_compared_at_a_revision() {
     assert_eq!(impact("pyproject.toml: torch"), "retrain");
     // The newest requests admitted is unchanged.
     assert_eq!(impact("pyproject.toml: requests"), "none");
+    // scipy named again, without a version, in a new extra: no new constraint.
+    assert_eq!(impact("pyproject.toml: scipy"), "none");
     // numpy's range now admits 2.0 and 2.1 (NumPy 2's promotion rules).
     assert_eq!(impact("features/setup.cfg: numpy"), "retrain");
     // A Python bug-fix release; a compiler for tools; Go may fuse operations differently.

@@ -368,6 +368,24 @@ enum RangeStep {
 }
 
 fn declared_range_step(a: &BTreeSet<&String>, b: &BTreeSet<&String>) -> Option<RangeStep> {
+    // A mention without a version (the package named again in an extra or a group, `numpy`)
+    // adds no constraint beside one that has a version: it is left out of the comparison.
+    let constrained = |s: &BTreeSet<&String>| -> BTreeSet<String> {
+        let with: BTreeSet<String> = s
+            .iter()
+            .filter(|v| !v.is_empty())
+            .map(|v| v.to_string())
+            .collect();
+        if with.is_empty() {
+            s.iter().map(|v| v.to_string()).collect()
+        } else {
+            with
+        }
+    };
+    let (a, b) = (constrained(a), constrained(b));
+    if a == b {
+        return Some(RangeStep::SameNewest);
+    }
     let (Some(x), Some(y)) = (a.first(), b.first()) else {
         return None;
     };
@@ -485,7 +503,7 @@ fn compare_packages(
                             &rules::PKG_RANGE_SAME_NEWEST,
                             Section::Lockfiles,
                             subject,
-                            format!("{name}'s declared range changed; the newest version it admits did not"),
+                            format!("{name}'s declared range changed (or it was declared again without a version); the newest version it admits did not"),
                             Some(versions(a)),
                             Some(versions(b)),
                         );

@@ -506,6 +506,9 @@ const INFRASTRUCTURE_PACKAGES: &[&str] = &[
     "build",
     "virtualenv",
     // networking, RPC, certificates
+    // (model hub download accelerators: they fetch the same files faster)
+    "hf-transfer",
+    "hf-xet",
     "certifi",
     "idna",
     "charset-normalizer",
