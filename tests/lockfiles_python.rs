@@ -979,3 +979,146 @@ print(json.dumps(rows))
         assert!(torch.iter().all(|p| !p.hashes.is_empty()), "{file}");
     }
 }
+
+/// A pinned file written by `uv pip compile --generate-hashes` for a torch + transformers set
+/// resolved for Linux x86_64 (so torch's CUDA libraries, `nvidia-*-cu12`, are among the pins),
+/// with its `via` comments and hash continuation lines. Reference: pip's own requirements-file
+/// parser (`pip._internal.req.req_file.parse_requirements`), each pin as name, version and
+/// hash set.
+#[test]
+fn uv_pip_compile_with_hashes_agrees_with_pips_parser() {
+    let (Some(uv), Some(python)) = (tool("uv"), tool("python")) else {
+        return;
+    };
+    let dir = tempfile::tempdir().unwrap();
+    std::fs::write(
+        dir.path().join("requirements.in"),
+        "torch==2.5.1\ntransformers[torch]>=4.46,<4.47\n",
+    )
+    .unwrap();
+    run(
+        &uv,
+        dir.path(),
+        &[
+            "pip",
+            "compile",
+            "--quiet",
+            "--generate-hashes",
+            "--python-version",
+            "3.11",
+            "--python-platform",
+            "x86_64-manylinux_2_28",
+            "requirements.in",
+            "-o",
+            "requirements.txt",
+        ],
+    );
+    let path = dir.path().join("requirements.txt");
+    let parsed = parse_file(Format::Requirements, &path);
+    assert!(parsed.warnings.is_empty(), "{:?}", parsed.warnings);
+    let script = r#"
+import json, sys
+from pip._internal.req.req_file import parse_requirements
+from pip._internal.network.session import PipSession
+from pip._vendor.packaging.requirements import Requirement
+from pip._vendor.packaging.utils import canonicalize_name
+rows = []
+for pr in parse_requirements(json.load(sys.stdin)[0], session=PipSession()):
+    r = Requirement(pr.requirement)
+    (spec,) = list(r.specifier)
+    hashes = sorted(f"{algo}:{h}" for algo, hs in (pr.options or {}).get("hashes", {}).items() for h in hs)
+    rows.append([canonicalize_name(r.name), spec.version, hashes])
+print(json.dumps(rows))
+"#;
+    let rows: Vec<(String, String, Vec<String>)> =
+        python_json(&python, script, &[path.to_str().unwrap()], None);
+    let reference: BTreeSet<(String, String, Vec<String>)> = rows.into_iter().collect();
+    let ours: BTreeSet<(String, String, Vec<String>)> = parsed
+        .packages
+        .iter()
+        .map(|p| (p.name.clone(), p.version.clone(), p.hashes.clone()))
+        .collect();
+    assert_eq!(ours, reference);
+    for name in [
+        "torch",
+        "transformers",
+        "nvidia-cudnn-cu12",
+        "nvidia-nccl-cu12",
+    ] {
+        assert!(
+            ours.iter().any(|(n, _, h)| n == name && !h.is_empty()),
+            "{name}"
+        );
+    }
+    // The input it was compiled from is read as an input, and the pins decide.
+    let input = parse_file(Format::RequirementsIn, &dir.path().join("requirements.in"));
+    assert_eq!(input.packages.len(), 2);
+    assert!(Format::RequirementsIn.is_input() && !Format::Requirements.is_input());
+}
+
+/// A uv workspace (uv documentation, "Workspaces": a root `pyproject.toml` with
+/// `[tool.uv.workspace] members`, one `uv.lock` at the root for every member). Reference: uv's
+/// own export of the whole workspace (`uv export --all-packages`), as name/version pins; and
+/// each member's `pyproject.toml` is an input decided by the root lockfile.
+#[test]
+fn uv_workspace_lock_agrees_with_uv_export() {
+    let Some(uv) = tool("uv") else { return };
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let write = |rel: &str, text: &str| {
+        let p = d.join(rel);
+        std::fs::create_dir_all(p.parent().unwrap()).unwrap();
+        std::fs::write(p, text).unwrap();
+    };
+    write(
+        "pyproject.toml",
+        "[project]\nname = \"kelp\"\nversion = \"0.1.0\"\nrequires-python = \">=3.10\"\ndependencies = [\"kelp-train\", \"kelp-serve\"]\n\n[tool.uv.sources]\nkelp-train = { workspace = true }\nkelp-serve = { workspace = true }\n\n[tool.uv.workspace]\nmembers = [\"packages/*\"]\n",
+    );
+    write(
+        "packages/train/pyproject.toml",
+        "[project]\nname = \"kelp-train\"\nversion = \"0.1.0\"\nrequires-python = \">=3.10\"\ndependencies = [\"numpy>=1.26,<2.2\", \"scipy>=1.11\"]\n\n[build-system]\nrequires = [\"hatchling\"]\nbuild-backend = \"hatchling.build\"\n",
+    );
+    write(
+        "packages/serve/pyproject.toml",
+        "[project]\nname = \"kelp-serve\"\nversion = \"0.1.0\"\nrequires-python = \">=3.10\"\ndependencies = [\"requests>=2.31\"]\n\n[build-system]\nrequires = [\"hatchling\"]\nbuild-backend = \"hatchling.build\"\n",
+    );
+    run(&uv, d, &["lock", "--quiet"]);
+    let parsed = parse_file(Format::UvLock, &d.join("uv.lock"));
+    let export = run(
+        &uv,
+        d,
+        &[
+            "export",
+            "--all-packages",
+            "--frozen",
+            "--no-hashes",
+            "--no-emit-workspace",
+            "--no-header",
+            "--no-annotate",
+        ],
+    );
+    let reference = pins_from_listing(&export);
+    assert!(reference.iter().any(|(n, _)| n == "numpy"), "{export}");
+    let ours: BTreeSet<(String, String)> = parsed
+        .packages
+        .iter()
+        .filter(|p| !p.name.starts_with("kelp"))
+        .map(|p| (p.name.clone(), p.version.clone()))
+        .collect();
+    assert_eq!(ours, reference);
+    // Every member's pyproject.toml is found, and the root lockfile decides for it.
+    let mut warnings = Vec::new();
+    let lockfiles = runprint::collect::lockfiles::collect(d, &[], &mut warnings);
+    let root_lock = lockfiles.iter().find(|l| l.path == "uv.lock").unwrap();
+    for member in [
+        "packages/train/pyproject.toml",
+        "packages/serve/pyproject.toml",
+    ] {
+        let input = lockfiles
+            .iter()
+            .find(|l| l.path == member)
+            .unwrap_or_else(|| panic!("{member} not read: {warnings:?}"));
+        let decides = runprint::lockfile::deciding_lockfile(input, &lockfiles);
+        assert_eq!(decides.map(|l| &l.path), Some(&root_lock.path), "{member}");
+    }
+}
