@@ -17,6 +17,7 @@
 //! carry a valid name (PEP 508, "Names") and a version without spaces or a leading `-`, or it
 //! is left out with a comment.
 
+use std::collections::BTreeSet;
 use std::fmt::Write;
 
 use crate::manifest::{Lockfile, Manifest, Package};
@@ -358,7 +359,11 @@ fn packages(lockfiles: &[Lockfile], pin_installed: bool, out: &mut String) {
             ("conda", n) if n.ends_with(".yml") || n.ends_with(".yaml") => {
                 format!("conda env create --file {file}")
             }
-            ("conda", _) => format!("conda create --yes --name runprint-recreated --file {file}"),
+            // An explicit spec file lists one platform's package files: run where it applies.
+            ("conda", _) => guard_platform(
+                l,
+                format!("conda create --yes --name runprint-recreated --file {file}"),
+            ),
             // A requirements file whose pins were not recorded: the checkout restores it.
             ("pypi", _) => format!("python -m pip install -r {file}"),
             // A container recipe: its base images, pinned by digest where one was recorded.
@@ -378,6 +383,39 @@ fn packages(lockfiles: &[Lockfile], pin_installed: bool, out: &mut String) {
             (other, _) => format!("# no locked install known for ecosystem {}", comment(other)),
         };
         let _ = writeln!(out, "{step}");
+    }
+}
+
+/// `step` run only on the machine kind a conda explicit file was written for: its packages'
+/// subdirectory (`linux-64`…; `noarch` fits anywhere) as `uname -s`-`uname -m` prints it
+/// (conda's platform names, common practice). Several platforms, or one unknown, leave the
+/// step as it is.
+fn guard_platform(l: &Lockfile, step: String) -> String {
+    let subdirs: BTreeSet<&str> = l
+        .packages
+        .iter()
+        .filter_map(|p| p.platform.as_deref())
+        .filter(|s| *s != "noarch")
+        .collect();
+    let uname = match subdirs.iter().collect::<Vec<_>>().as_slice() {
+        [one] => match **one {
+            "linux-64" => Some("Linux-x86_64"),
+            "linux-aarch64" => Some("Linux-aarch64"),
+            "linux-ppc64le" => Some("Linux-ppc64le"),
+            "osx-64" => Some("Darwin-x86_64"),
+            "osx-arm64" => Some("Darwin-arm64"),
+            _ => None,
+        },
+        _ => None,
+    };
+    let Some(u) = uname else {
+        return step;
+    };
+    match quote(&format!("skipped: {} is for {u}", l.path)) {
+        Some(msg) => format!(
+            "if [ \"$(uname -s)-$(uname -m)\" = {u} ]; then {step}; else echo {msg} >&2; fi"
+        ),
+        None => format!("if [ \"$(uname -s)-$(uname -m)\" = {u} ]; then {step}; fi"),
     }
 }
 
@@ -591,6 +629,42 @@ fn machine(m: &Manifest, out: &mut String) {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// A conda explicit file of one platform runs only there (`uname` names: Linux-x86_64 for
+    /// conda's linux-64, Darwin-arm64 for osx-arm64; common practice), and the script stays
+    /// valid bash.
+    #[test]
+    fn explicit_conda_files_are_guarded_by_platform() {
+        let pkg = |subdir: &str| Package {
+            name: "numpy".into(),
+            version: "2.1.3".into(),
+            platform: Some(subdir.into()),
+            ..Package::default()
+        };
+        let l = Lockfile {
+            path: "spec-file.txt".into(),
+            ecosystem: "conda".into(),
+            packages: vec![pkg("linux-64"), pkg("noarch")],
+            ..Lockfile::default()
+        };
+        let step = guard_platform(&l, "conda create --file spec-file.txt".into());
+        assert!(
+            step.starts_with(
+                "if [ \"$(uname -s)-$(uname -m)\" = Linux-x86_64 ]; then conda create"
+            ),
+            "{step}"
+        );
+        let syntax = std::process::Command::new("bash")
+            .args(["-n", "-c", &step])
+            .status()
+            .unwrap();
+        assert!(syntax.success());
+        let mixed = Lockfile {
+            packages: vec![pkg("linux-64"), pkg("osx-arm64")],
+            ..l
+        };
+        assert_eq!(guard_platform(&mixed, "x".into()), "x");
+    }
 
     #[test]
     fn comments_stay_on_one_line_and_names_are_checked() {
