@@ -25,12 +25,24 @@ use crate::manifest::Package;
 /// True for the file names of container recipes.
 pub fn is_dockerfile_name(name: &str) -> bool {
     let lower = name.to_ascii_lowercase();
+    // `Dockerfile.gpu`, `Dockerfile.dev`; but `dockerfile.rs` or `dockerfile.py` is source
+    // code about container recipes (a module of that name), not one.
+    let recipe_suffix = |rest: &str| !SOURCE_SUFFIXES.contains(&rest);
     lower == "dockerfile"
-        || lower.starts_with("dockerfile.")
+        || lower.strip_prefix("dockerfile.").is_some_and(recipe_suffix)
         || lower.ends_with(".dockerfile")
         || lower == "containerfile"
-        || lower.starts_with("containerfile.")
+        || lower
+            .strip_prefix("containerfile.")
+            .is_some_and(recipe_suffix)
 }
+
+/// File-name extensions of source code and documents, which a `Dockerfile.*` name does not
+/// end with (common practice).
+const SOURCE_SUFFIXES: &[&str] = &[
+    "rs", "py", "pyi", "go", "js", "mjs", "ts", "java", "kt", "rb", "c", "h", "cc", "cpp", "hpp",
+    "sh", "md", "rst", "txt", "json", "toml", "lock", "orig", "bak", "swp", "snap",
+];
 
 /// Substitutes `$NAME`, `${NAME}`, `${NAME:-word}` and `${NAME:+word}` with the declared
 /// values; an undeclared variable stays as written.
@@ -234,6 +246,30 @@ pub fn parse(text: &str, path: &str) -> Result<Parsed, LockfileError> {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// Recipe names (Docker documentation: `-f Dockerfile.dev`, `*.dockerfile`; Podman's
+    /// `Containerfile`) and source files named after them, which are not recipes.
+    #[test]
+    fn recipe_names_and_source_files() {
+        for name in [
+            "Dockerfile",
+            "Dockerfile.gpu",
+            "dockerfile.prod",
+            "train.dockerfile",
+            "Containerfile",
+            "Containerfile.cuda",
+        ] {
+            assert!(is_dockerfile_name(name), "{name}");
+        }
+        for name in [
+            "dockerfile.rs",
+            "Dockerfile.md",
+            "dockerfile.py",
+            "containerfile.go",
+        ] {
+            assert!(!is_dockerfile_name(name), "{name}");
+        }
+    }
 
     fn images(text: &str) -> Vec<(String, String, Vec<String>, Option<String>)> {
         parse(text, "Dockerfile")
