@@ -505,3 +505,131 @@ fn pnpm8_lockfile_matches_pnpm_list() {
     let Some(tools) = tools() else { return };
     pnpm_case(&tools, "pnpm8/bin/pnpm.cjs", "6.0");
 }
+
+/// A workspace of two members (npm documentation, "workspaces"; pnpm's
+/// `pnpm-workspace.yaml`), locked by the tools themselves. The members are the project's own
+/// code, not dependencies; every other package is checked against the tools' own listing of
+/// the whole workspace (`npm ls --all --workspaces`, `pnpm list -r`).
+fn write_workspace(dir: &Path, pnpm: bool) {
+    let root = if pnpm {
+        "{\n  \"name\": \"kelp-monorepo\",\n  \"private\": true\n}\n"
+    } else {
+        "{\n  \"name\": \"kelp-monorepo\",\n  \"private\": true,\n  \"workspaces\": [\"packages/*\"]\n}\n"
+    };
+    std::fs::write(dir.join("package.json"), root).unwrap();
+    if pnpm {
+        std::fs::write(
+            dir.join("pnpm-workspace.yaml"),
+            "packages:\n  - 'packages/*'\n",
+        )
+        .unwrap();
+    }
+    for (member, deps) in [
+        (
+            "dashboard",
+            "{ \"debug\": \"4.3.4\", \"kelp-charts\": \"*\" }",
+        ),
+        ("charts", "{ \"is-number\": \"^7.0.0\" }"),
+    ] {
+        let d = dir.join("packages").join(member);
+        std::fs::create_dir_all(&d).unwrap();
+        let name = if member == "charts" {
+            "kelp-charts"
+        } else {
+            "kelp-dashboard"
+        };
+        let deps = if pnpm {
+            deps.replace("\"kelp-charts\": \"*\"", "\"kelp-charts\": \"workspace:*\"")
+        } else {
+            deps.to_string()
+        };
+        std::fs::write(
+            d.join("package.json"),
+            format!("{{\n  \"name\": \"{name}\",\n  \"version\": \"1.0.0\",\n  \"dependencies\": {deps}\n}}\n"),
+        )
+        .unwrap();
+    }
+}
+
+#[test]
+fn npm_workspace_lock_matches_npm_ls() {
+    let Some(tools) = tools() else { return };
+    let dir = tempfile::tempdir().unwrap();
+    write_workspace(dir.path(), false);
+    tools.npm(&["install", "--package-lock-only"], dir.path());
+    let parsed = read(dir.path(), "package-lock.json");
+    assert!(parsed.warnings.is_empty(), "{:?}", parsed.warnings);
+    let listing: Value = serde_json::from_str(&tools.npm(
+        &[
+            "ls",
+            "--all",
+            "--json",
+            "--package-lock-only",
+            "--workspaces",
+        ],
+        dir.path(),
+    ))
+    .unwrap();
+    let mut all = BTreeMap::new();
+    walk_tree(&listing, &["dependencies"], &mut all);
+    let theirs: BTreeSet<NameVersion> = all
+        .into_keys()
+        .filter(|(n, _)| !n.starts_with("kelp-"))
+        .collect();
+    let ours: BTreeSet<NameVersion> = name_versions(&parsed)
+        .into_iter()
+        .filter(|(n, _)| !n.starts_with("kelp-"))
+        .collect();
+    assert_eq!(ours, theirs);
+    assert!(
+        theirs.iter().any(|(n, _)| n == "debug") && theirs.iter().any(|(n, _)| n == "is-number")
+    );
+}
+
+#[test]
+fn pnpm_workspace_lock_matches_pnpm_list() {
+    let Some(tools) = tools() else { return };
+    let dir = tempfile::tempdir().unwrap();
+    write_workspace(dir.path(), true);
+    let store = tools.cache("pnpm-store");
+    let env = [("CI", "true")];
+    let script = "pnpm/bin/pnpm.cjs";
+    tools.node(
+        script,
+        &[
+            "install",
+            "--ignore-scripts",
+            "--no-frozen-lockfile",
+            "--store-dir",
+            store.to_str().unwrap(),
+        ],
+        dir.path(),
+        &env,
+    );
+    let parsed = read(dir.path(), "pnpm-lock.yaml");
+    assert!(parsed.warnings.is_empty(), "{:?}", parsed.warnings);
+    let listing: Value = serde_json::from_str(&tools.node(
+        script,
+        &["list", "-r", "--json", "--depth", "Infinity"],
+        dir.path(),
+        &env,
+    ))
+    .unwrap();
+    let maps = ["dependencies", "devDependencies", "optionalDependencies"];
+    let mut all = BTreeMap::new();
+    for project in listing.as_array().unwrap() {
+        walk_tree(project, &maps, &mut all);
+    }
+    let theirs: BTreeSet<NameVersion> = all
+        .into_keys()
+        .filter(|(n, _)| !n.starts_with("kelp-"))
+        .collect();
+    let ours: BTreeSet<NameVersion> = name_versions(&parsed)
+        .into_iter()
+        .filter(|(n, _)| !n.starts_with("kelp-"))
+        .collect();
+    assert_eq!(ours, theirs);
+    assert!(
+        theirs.iter().any(|(n, _)| n == "debug") && theirs.iter().any(|(n, _)| n == "is-number")
+    );
+}
