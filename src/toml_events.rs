@@ -539,6 +539,25 @@ impl<'de> de::SeqAccess<'de> for ArrayOfTables<'_, 'de> {
             }
         }
     }
+
+    /// The number of elements: headers of this array's path from the first one on, sub-tables
+    /// of its elements between them (so that a vector of them is allocated once).
+    fn size_hint(&self) -> Option<usize> {
+        let headers = &self.reader.headers;
+        let path = &headers.get(self.first)?.path;
+        let mut n = 0;
+        for h in &headers[self.first..] {
+            if h.path == *path {
+                if !h.array {
+                    break;
+                }
+                n += 1;
+            } else if !(h.path.len() > path.len() && h.path[..path.len()] == path[..]) {
+                break;
+            }
+        }
+        Some(n)
+    }
 }
 
 /// A key, borrowed from the text unless it had escapes.
