@@ -531,7 +531,7 @@ fn declared_ranges_and_toolchain_pins_are_compared_at_a_revision() {
         &[
             (
                 "pyproject.toml",
-                "[project]\nname = \"kelp\"\nversion = \"0.1\"\ndependencies = [\"torch>=2.1,<2.4\", \"requests>=2.31\", \"scipy>=1.11\"]\n[project.optional-dependencies]\nsparse = [\"scipy\"]\n[dependency-groups]\ndev = [\"pytest>=8\"]\n",
+                "[project]\nname = \"kelp\"\nversion = \"0.1\"\ndependencies = [\"torch>=2.1,<2.4\", \"requests>=2.31\", \"scipy>=1.11\"]\n[project.optional-dependencies]\nsparse = [\"scipy\"]\nreport = [\"kelp-report-kit>=1.0\"]\n[dependency-groups]\ndev = [\"pytest>=8\"]\n",
             ),
             (
                 "features/setup.cfg",
@@ -571,6 +571,8 @@ fn declared_ranges_and_toolchain_pins_are_compared_at_a_revision() {
     assert_eq!(impact("pyproject.toml: requests"), "none");
     // scipy named again, without a version, in a new extra: no new constraint.
     assert_eq!(impact("pyproject.toml: scipy"), "none");
+    // A new package only in an optional extra (PEP 621): installed when asked for.
+    assert_eq!(impact("pyproject.toml: kelp-report-kit"), "none");
     // numpy's range now admits 2.0 and 2.1 (NumPy 2's promotion rules).
     assert_eq!(impact("features/setup.cfg: numpy"), "retrain");
     // A Python bug-fix release; a compiler for tools; Go may fuse operations differently.

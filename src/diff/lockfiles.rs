@@ -450,10 +450,17 @@ fn compare_packages(
     ctx: &Context<'_>,
     out: &mut Vec<Change>,
 ) {
+    let is_input =
+        crate::lockfile::Format::detect_path(path).is_some_and(crate::lockfile::Format::is_input);
     for (name, a, b) in changed_names(old, new) {
         let (a, b) = (&a, &b);
         let subject = format!("{path}: {name}");
-        let dev = a.iter().chain(b.iter()).all(|p| p.dev);
+        // In a dependency input, a package declared only in optional extras or non-default
+        // groups (`[project.optional-dependencies] eval = [...]`) is installed only when asked
+        // for, like a development dependency; a numerical library keeps its own rules, and
+        // what an environment installed is compared under `python`.
+        let optional_input = is_input && a.iter().chain(b.iter()).all(|p| p.dev || p.optional);
+        let dev = optional_input || a.iter().chain(b.iter()).all(|p| p.dev);
         // The installed copy first, else the wheels the lockfile lists (PEP 427 tags).
         let compiled = ctx.compiled(name).or_else(|| {
             a.iter()
@@ -461,8 +468,9 @@ fn compare_packages(
                 .filter_map(|p| p.compiled)
                 .reduce(|x, y| x || y)
         });
+        let only_extras = optional_input && !a.iter().chain(b.iter()).all(|p| p.dev);
         let pkg = |subject: String, change, values| {
-            ctx.package_change(
+            let mut c = ctx.package_change(
                 Some(path),
                 Section::Lockfiles,
                 subject,
@@ -471,7 +479,23 @@ fn compare_packages(
                 compiled,
                 change,
                 values,
-            )
+            );
+            if only_extras && c.rule.id == rules::PKG_DEV.id {
+                let lead = c
+                    .reason
+                    .strip_suffix(rules::PKG_DEV.reason)
+                    .unwrap_or(&c.reason)
+                    .replacen(
+                        "is a development-only dependency",
+                        "is declared only in optional extras or groups",
+                        1,
+                    );
+                c.rule = &rules::PKG_INPUT_EXTRA;
+                c.impact = rules::PKG_INPUT_EXTRA.impact;
+                c.source = rules::PKG_INPUT_EXTRA.source;
+                c.reason = format!("{lead}{}", rules::PKG_INPUT_EXTRA.reason);
+            }
+            c
         };
         if a.is_empty() || b.is_empty() {
             let change = if a.is_empty() {

@@ -225,6 +225,10 @@ rule_group! {
         "declared dependency changed where a lockfile decides",
         "a lockfile of the same ecosystem beside the input (or above it, for a workspace) decides what is installed, and it is compared package by package on its own",
         "common practice";
+    PKG_INPUT_EXTRA = "pkg.input.extra", "lockfiles", None, 1,
+        "dependency declared only in optional extras or non-default groups of a dependency input",
+        "it is installed only when that extra or group is asked for (PEP 621 optional dependencies, PEP 735 groups); a numerical library keeps its own rules, and what an environment installed is compared under `python`",
+        "https://packaging.python.org/en/latest/specifications/pyproject-toml/#dependencies-optional-dependencies; https://peps.python.org/pep-0735/";
     LOCK_INPUT_FIRST_RECORDED = "lock.input.first-recorded", "lockfiles", None, 1,
         "dependency input or toolchain pin recorded on one side only, the other side recording none",
         "the other manifest was stamped by a runprint that did not read dependency inputs or toolchain pins, and the file is not among the changed files; what it declares is compared as installed packages",
