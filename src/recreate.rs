@@ -231,12 +231,47 @@ fn pip_requirement(p: &Package) -> Option<String> {
         }
         None => return None,
     };
-    // Environment markers (PEP 508) keep platform-specific pins to their platform.
-    let req = match &p.platform {
+    // Environment markers (PEP 508) keep platform-specific pins to their platform; a direct
+    // wheel URL for one platform, recorded without a marker, gets the marker its platform tag
+    // means, so that pip skips it elsewhere instead of failing the script.
+    let marker = p
+        .platform
+        .clone()
+        .or_else(|| direct.and_then(wheel_platform_marker));
+    let req = match marker {
         Some(marker) => format!("{base} ; {marker}"),
         None => base,
     };
     quote(&req)
+}
+
+/// The PEP 508 marker for the platform tag of a wheel URL (PEP 427 file name, platform tags of
+/// PEP 600 `manylinux_X_Y_ARCH`, `linux_ARCH`, `macosx_X_Y_ARCH`, `win_amd64`); `None` for
+/// `any` and for tags it does not know.
+fn wheel_platform_marker(url: &str) -> Option<String> {
+    let file = url.split(['?', '#']).next()?.rsplit('/').next()?;
+    let stem = file.strip_suffix(".whl")?;
+    let platform = stem.rsplit('-').next()?;
+    // Compressed tag sets (`manylinux_2_17_x86_64.manylinux2014_x86_64`) share one platform.
+    let tag = platform.split('.').next()?;
+    let system = if tag.starts_with("manylinux")
+        || tag.starts_with("musllinux")
+        || tag.starts_with("linux_")
+    {
+        "linux"
+    } else if tag.starts_with("macosx_") {
+        "darwin"
+    } else if tag == "win_amd64" {
+        return Some("sys_platform == \"win32\"".into());
+    } else {
+        return None;
+    };
+    let arch = ["x86_64", "aarch64", "arm64"]
+        .into_iter()
+        .find(|a| tag.ends_with(a))?;
+    Some(format!(
+        "sys_platform == \"{system}\" and platform_machine == \"{arch}\""
+    ))
 }
 
 /// Toolchain pins: the Rust toolchain installed where rustup is; the others said, for the
@@ -629,6 +664,40 @@ fn machine(m: &Manifest, out: &mut String) {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// A wheel for one platform (PEP 427 names; tags as PEP 600 and pip write them) is kept to
+    /// that platform by a marker; a pure wheel or a marked entry is left as it is.
+    #[test]
+    fn platform_wheels_get_the_marker_of_their_tag() {
+        let wheel = |url: &str, marker: Option<&str>| Package {
+            name: "torch".into(),
+            source: Some(url.into()),
+            platform: marker.map(str::to_string),
+            ..Package::default()
+        };
+        let cases = [
+            ("https://download.pytorch.org/whl/cu121/torch-2.5.1%2Bcu121-cp311-cp311-linux_x86_64.whl", "sys_platform == \"linux\" and platform_machine == \"x86_64\""),
+            ("https://f.invalid/torch-2.5.1-cp311-cp311-manylinux_2_17_aarch64.manylinux2014_aarch64.whl", "sys_platform == \"linux\" and platform_machine == \"aarch64\""),
+            ("https://f.invalid/torch-2.5.1-cp311-none-macosx_11_0_arm64.whl", "sys_platform == \"darwin\" and platform_machine == \"arm64\""),
+            ("https://f.invalid/torch-2.5.1-cp311-cp311-win_amd64.whl", "sys_platform == \"win32\""),
+        ];
+        for (url, marker) in cases {
+            let req = pip_requirement(&wheel(url, None)).unwrap();
+            assert!(req.contains(&format!(" ; {marker}")), "{req}");
+        }
+        let pure = pip_requirement(&wheel(
+            "https://f.invalid/six-1.16.0-py2.py3-none-any.whl",
+            None,
+        ))
+        .unwrap();
+        assert!(!pure.contains(';'), "{pure}");
+        let marked =
+            pip_requirement(&wheel(cases[0].0, Some("python_version >= \"3.11\""))).unwrap();
+        assert!(
+            marked.ends_with("; python_version >= \"3.11\"'"),
+            "{marked}"
+        );
+    }
 
     /// A conda explicit file of one platform runs only there (`uname` names: Linux-x86_64 for
     /// conda's linux-64, Darwin-arm64 for osx-arm64; common practice), and the script stays
