@@ -223,7 +223,7 @@ fn pip_requirement(p: &Package) -> Option<String> {
         {
             // A requirements file's range (`<3.1.0`, `>=6.1.3,<7`) is kept as written: a
             // PEP 440 specifier list; an exact version is pinned with `==`.
-            if p.version.starts_with(['<', '>', '=', '!', '~']) {
+            if crate::version::is_range(&p.version) {
                 format!("{}{}", p.name, p.version)
             } else {
                 format!("{}=={}", p.name, p.version)

@@ -61,8 +61,8 @@ pub fn from_str_in_pieces<'a, T: de::Deserialize<'a>>(text: &'a str, piece: usiz
         tokens.clear();
         tokens.extend(collect.source.lex());
         {
-            let mut validate =
-                ValidateWhitespace::new(&mut collect, Source::new(&text[start..end]));
+            let piece = collect.source;
+            let mut validate = ValidateWhitespace::new(&mut collect, piece);
             let mut guard = RecursionGuard::new(&mut validate, MAX_DEPTH);
             toml_parser::parser::parse_document(&tokens, &mut guard, &mut failed);
         }

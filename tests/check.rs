@@ -491,6 +491,28 @@ fn a_subfolder_baseline_is_checked_against_the_same_subfolder_at_a_revision() {
         .any(|c| c.subject == "trainer/requirements.txt: torch"));
 }
 
+/// Commits `files` on a new branch `name` made from `main`, then goes back to `main`.
+fn commit_on_branch(repo: &Path, name: &str, files: &[(&str, &str)]) {
+    git(repo, &["checkout", "-q", "-b", name, "main"]);
+    write_files(repo, files);
+    git(repo, &["commit", "-qam", name]);
+    git(repo, &["checkout", "-q", "main"]);
+}
+
+/// `check --baseline BASELINE --rev REV` as JSON.
+fn check_rev(repo: &Path, baseline: &str, rev: &str) -> (i32, JsonReport) {
+    check_json(&["--baseline", baseline, "--rev", rev], repo, &[])
+}
+
+/// The change about `subject`; the report is shown when there is none.
+fn change<'r>(report: &'r JsonReport, subject: &str) -> &'r JsonChange {
+    report
+        .changes
+        .iter()
+        .find(|c| c.subject == subject)
+        .unwrap_or_else(|| panic!("no change `{subject}`: {report:?}"))
+}
+
 /// Dependency inputs and toolchain pins at a revision. The expectations are PEP 440's
 /// (`<2.2` → `<2.4` admits new minor releases; raising a lower bound leaves the newest
 /// admitted version alone), PEP 621 / PEP 735 (where `pyproject.toml` declares dependencies),
@@ -525,9 +547,9 @@ fn declared_ranges_and_toolchain_pins_are_compared_at_a_revision() {
     ] {
         assert!(m.contains(&format!("path = \"{path}\"")), "{path}:\n{m}");
     }
-    git(repo.path(), &["checkout", "-q", "-b", "bump"]);
-    write_files(
+    commit_on_branch(
         repo.path(),
+        "bump",
         &[
             (
                 "pyproject.toml",
@@ -545,26 +567,13 @@ fn declared_ranges_and_toolchain_pins_are_compared_at_a_revision() {
             ),
         ],
     );
-    git(repo.path(), &["commit", "-qam", "bump"]);
-    git(repo.path(), &["checkout", "-q", "main"]);
-    let (code, report) = check_json(
-        &["--baseline", &baseline, "--rev", "bump"],
-        repo.path(),
-        &[],
-    );
+    let (code, report) = check_rev(repo.path(), &baseline, "bump");
     assert_eq!(
         (code, report.verdict.as_str()),
         (4, "retrain"),
         "{report:?}"
     );
-    let impact = |subject: &str| {
-        report
-            .changes
-            .iter()
-            .find(|c| c.subject == subject)
-            .map(|c| c.impact.clone())
-            .unwrap_or_else(|| panic!("no change `{subject}`: {report:?}"))
-    };
+    let impact = |subject: &str| change(&report, subject).impact.clone();
     // torch's range now admits 2.2 and 2.3: new minor releases of a numerical library.
     assert_eq!(impact("pyproject.toml: torch"), "retrain");
     // The newest requests admitted is unchanged.
@@ -579,11 +588,7 @@ fn declared_ranges_and_toolchain_pins_are_compared_at_a_revision() {
     assert_eq!(impact(".python-version: python"), "verify");
     assert_eq!(impact("tools/rust-toolchain.toml: rust"), "none");
     assert_eq!(impact("tools/go.mod: go"), "verify");
-    let torch = report
-        .changes
-        .iter()
-        .find(|c| c.subject == "pyproject.toml: torch")
-        .unwrap();
+    let torch = change(&report, "pyproject.toml: torch");
     assert!(torch.reason.contains("declared range"), "{}", torch.reason);
 }
 
@@ -603,21 +608,14 @@ fn an_input_beside_its_lockfile_is_information_and_an_older_baseline_is_not_an_a
         ),
     ]);
     let (_dir, baseline) = baseline_of(repo.path(), &[]);
-    git(repo.path(), &["checkout", "-q", "-b", "range"]);
-    write_files(repo.path(), &[("requirements.in", "torch>=2.1,<2.4\n")]);
-    git(repo.path(), &["commit", "-qam", "range only"]);
-    git(repo.path(), &["checkout", "-q", "main"]);
-    let (code, report) = check_json(
-        &["--baseline", &baseline, "--rev", "range"],
+    commit_on_branch(
         repo.path(),
-        &[],
+        "range",
+        &[("requirements.in", "torch>=2.1,<2.4\n")],
     );
+    let (code, report) = check_rev(repo.path(), &baseline, "range");
     assert_eq!((code, report.verdict.as_str()), (0, "none"), "{report:?}");
-    let c = report
-        .changes
-        .iter()
-        .find(|c| c.subject == "requirements.in: torch")
-        .expect("the declared change is listed");
+    let c = change(&report, "requirements.in: torch");
     assert!(
         c.reason.contains("`requirements.txt` decides"),
         "{}",
@@ -627,25 +625,14 @@ fn an_input_beside_its_lockfile_is_information_and_an_older_baseline_is_not_an_a
     // An input bumped past what its lockfile pins, without compiling again: the next
     // `pip-compile` (or `uv sync`, `poetry install`) resolves again, so torch moves to 2.3 at
     // least (PEP 440: `>=2.3` excludes 2.1.2).
-    git(repo.path(), &["checkout", "-q", "-b", "stale", "main"]);
-    write_files(repo.path(), &[("requirements.in", "torch>=2.3\n")]);
-    git(repo.path(), &["commit", "-qam", "input only"]);
-    git(repo.path(), &["checkout", "-q", "main"]);
-    let (code, report) = check_json(
-        &["--baseline", &baseline, "--rev", "stale"],
-        repo.path(),
-        &[],
-    );
+    commit_on_branch(repo.path(), "stale", &[("requirements.in", "torch>=2.3\n")]);
+    let (code, report) = check_rev(repo.path(), &baseline, "stale");
     assert_eq!(
         (code, report.verdict.as_str()),
         (4, "retrain"),
         "{report:?}"
     );
-    let c = report
-        .changes
-        .iter()
-        .find(|c| c.subject == "requirements.in: torch")
-        .expect("the stale lock is listed");
+    let c = change(&report, "requirements.in: torch");
     assert!(c.reason.contains("locks torch 2.1.2"), "{}", c.reason);
 
     // The same revision against a baseline that read only the pinned file.
@@ -669,15 +656,8 @@ fn an_input_beside_its_lockfile_is_information_and_an_older_baseline_is_not_an_a
         String::from_utf8_lossy(&out.stderr)
     );
     let only_pins = only_pins.display().to_string();
-    git(repo.path(), &["checkout", "-q", "-b", "same", "main"]);
-    write_files(repo.path(), &[("train.py", "# comment\n")]);
-    git(repo.path(), &["commit", "-qam", "comment"]);
-    git(repo.path(), &["checkout", "-q", "main"]);
-    let (_, report) = check_json(
-        &["--baseline", &only_pins, "--rev", "same"],
-        repo.path(),
-        &[],
-    );
+    commit_on_branch(repo.path(), "same", &[("train.py", "# comment\n")]);
+    let (_, report) = check_rev(repo.path(), &only_pins, "same");
     let first = report
         .changes
         .iter()

@@ -419,11 +419,11 @@ fn yarn_berry_matches_yarn_info() {
     assert_eq!(direct, wanted);
 }
 
-fn pnpm_case(tools: &Tools, script: &str, expected_version: &str) {
-    let dir = project();
-    let store = tools.cache("pnpm-store");
-    let store = store.to_str().unwrap();
+/// `pnpm install` (pnpm's entry `script`) in `dir`, scripts off, with the shared store;
+/// returns the environment pnpm ran with, for the listing that follows.
+fn pnpm_install(tools: &Tools, script: &str, dir: &Path) -> [(&'static str, &'static str); 1] {
     let env = [("CI", "true")];
+    let store = tools.cache("pnpm-store");
     tools.node(
         script,
         &[
@@ -431,11 +431,17 @@ fn pnpm_case(tools: &Tools, script: &str, expected_version: &str) {
             "--ignore-scripts",
             "--no-frozen-lockfile",
             "--store-dir",
-            store,
+            store.to_str().unwrap(),
         ],
-        dir.path(),
+        dir,
         &env,
     );
+    env
+}
+
+fn pnpm_case(tools: &Tools, script: &str, expected_version: &str) {
+    let dir = project();
+    let env = pnpm_install(tools, script, dir.path());
     let parsed = read(dir.path(), "pnpm-lock.yaml");
     assert_eq!(parsed.format_version.as_deref(), Some(expected_version));
     assert!(parsed.warnings.is_empty(), "{:?}", parsed.warnings);
@@ -551,6 +557,20 @@ fn write_workspace(dir: &Path, pnpm: bool) {
     }
 }
 
+/// The lockfile's packages equal the tool's listing, leaving out the workspace's own members
+/// (`kelp-*`), and both hold the members' dependencies.
+fn assert_same_dependencies(parsed: &Parsed, listed: impl Iterator<Item = NameVersion>) {
+    let theirs: BTreeSet<NameVersion> = listed.filter(|(n, _)| !n.starts_with("kelp-")).collect();
+    let ours: BTreeSet<NameVersion> = name_versions(parsed)
+        .into_iter()
+        .filter(|(n, _)| !n.starts_with("kelp-"))
+        .collect();
+    assert_eq!(ours, theirs);
+    assert!(
+        theirs.iter().any(|(n, _)| n == "debug") && theirs.iter().any(|(n, _)| n == "is-number")
+    );
+}
+
 #[test]
 fn npm_workspace_lock_matches_npm_ls() {
     let Some(tools) = tools() else { return };
@@ -572,18 +592,7 @@ fn npm_workspace_lock_matches_npm_ls() {
     .unwrap();
     let mut all = BTreeMap::new();
     walk_tree(&listing, &["dependencies"], &mut all);
-    let theirs: BTreeSet<NameVersion> = all
-        .into_keys()
-        .filter(|(n, _)| !n.starts_with("kelp-"))
-        .collect();
-    let ours: BTreeSet<NameVersion> = name_versions(&parsed)
-        .into_iter()
-        .filter(|(n, _)| !n.starts_with("kelp-"))
-        .collect();
-    assert_eq!(ours, theirs);
-    assert!(
-        theirs.iter().any(|(n, _)| n == "debug") && theirs.iter().any(|(n, _)| n == "is-number")
-    );
+    assert_same_dependencies(&parsed, all.into_keys());
 }
 
 #[test]
@@ -591,21 +600,8 @@ fn pnpm_workspace_lock_matches_pnpm_list() {
     let Some(tools) = tools() else { return };
     let dir = tempfile::tempdir().unwrap();
     write_workspace(dir.path(), true);
-    let store = tools.cache("pnpm-store");
-    let env = [("CI", "true")];
     let script = "pnpm/bin/pnpm.cjs";
-    tools.node(
-        script,
-        &[
-            "install",
-            "--ignore-scripts",
-            "--no-frozen-lockfile",
-            "--store-dir",
-            store.to_str().unwrap(),
-        ],
-        dir.path(),
-        &env,
-    );
+    let env = pnpm_install(&tools, script, dir.path());
     let parsed = read(dir.path(), "pnpm-lock.yaml");
     assert!(parsed.warnings.is_empty(), "{:?}", parsed.warnings);
     let listing: Value = serde_json::from_str(&tools.node(
@@ -620,16 +616,5 @@ fn pnpm_workspace_lock_matches_pnpm_list() {
     for project in listing.as_array().unwrap() {
         walk_tree(project, &maps, &mut all);
     }
-    let theirs: BTreeSet<NameVersion> = all
-        .into_keys()
-        .filter(|(n, _)| !n.starts_with("kelp-"))
-        .collect();
-    let ours: BTreeSet<NameVersion> = name_versions(&parsed)
-        .into_iter()
-        .filter(|(n, _)| !n.starts_with("kelp-"))
-        .collect();
-    assert_eq!(ours, theirs);
-    assert!(
-        theirs.iter().any(|(n, _)| n == "debug") && theirs.iter().any(|(n, _)| n == "is-number")
-    );
+    assert_same_dependencies(&parsed, all.into_keys());
 }

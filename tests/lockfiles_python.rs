@@ -654,6 +654,20 @@ print(json.dumps(out))
     }
 }
 
+/// A recorded Python version as the specifier clauses `packaging` prints for it, sorted: a
+/// pinned version (`1.26.4`) as `==1.26.4`, a range as its clauses (the form the references
+/// below compare with: `",".join(sorted(str(s) for s in SpecifierSet))`).
+fn sorted_clauses(version: &str) -> String {
+    let spec = if runprint::version::is_range(version) {
+        version.to_string()
+    } else {
+        format!("=={version}")
+    };
+    let mut parts: Vec<&str> = spec.split(',').filter(|s| !s.is_empty()).collect();
+    parts.sort_unstable();
+    parts.join(",")
+}
+
 /// The declared dependencies of a `pyproject.toml` written by uv itself (`uv init`, `uv add
 /// --frozen`, which edits the file without resolving): PEP 621 dependencies and extras and
 /// PEP 735 groups. Reference: Python's `tomllib` and pip's copy of `packaging` (its PEP 508
@@ -697,23 +711,13 @@ fn pyproject_written_by_uv_agrees_with_packaging() {
     assert!(parsed.warnings.is_empty(), "{:?}", parsed.warnings);
     // (name, sorted clauses, marker, dev, optional), as runprint records them.
     type Row = (String, String, Option<String>, bool, bool);
-    let clauses = |v: &str| -> String {
-        let spec = if runprint::version::is_range(v) {
-            v.to_string()
-        } else {
-            format!("=={v}")
-        };
-        let mut parts: Vec<&str> = spec.split(',').filter(|s| !s.is_empty()).collect();
-        parts.sort_unstable();
-        parts.join(",")
-    };
     let ours: BTreeSet<Row> = parsed
         .packages
         .iter()
         .map(|p| {
             (
                 p.name.clone(),
-                clauses(&p.version),
+                sorted_clauses(&p.version),
                 p.platform.clone().map(|m| m.replace(' ', "")),
                 p.dev,
                 p.optional,
@@ -787,16 +791,7 @@ pytest = "^8.0"
     let ours: BTreeSet<(String, String)> = parsed
         .packages
         .iter()
-        .map(|p| {
-            let spec = if runprint::version::is_range(&p.version) {
-                p.version.clone()
-            } else {
-                format!("=={}", p.version)
-            };
-            let mut parts: Vec<&str> = spec.split(',').collect();
-            parts.sort_unstable();
-            (p.name.clone(), parts.join(","))
-        })
+        .map(|p| (p.name.clone(), sorted_clauses(&p.version)))
         .collect();
     let script = r#"
 import json, sys
@@ -837,16 +832,7 @@ fn setup_cfg_agrees_with_setuptools() {
     let ours: BTreeSet<(String, String, bool)> = parsed
         .packages
         .iter()
-        .map(|p| {
-            let spec = if runprint::version::is_range(&p.version) {
-                p.version.clone()
-            } else {
-                format!("=={}", p.version)
-            };
-            let mut parts: Vec<&str> = spec.split(',').filter(|s| !s.is_empty()).collect();
-            parts.sort_unstable();
-            (p.name.clone(), parts.join(","), p.optional)
-        })
+        .map(|p| (p.name.clone(), sorted_clauses(&p.version), p.optional))
         .collect();
     let script = r#"
 import json, sys

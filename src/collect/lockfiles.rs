@@ -426,7 +426,6 @@ fn read_one(
     // A companion file (go.sum beside go.mod) is read with it; its hashes reach the packages.
     let mut source = DiskSource {
         ctx,
-        root: ctx.confine.root().to_path_buf(),
         read: &mut inputs.paths,
     };
     let companion = super::includes::companion(&mut source, &abs.to_path_buf(), format, warnings);
@@ -486,7 +485,6 @@ fn why_not_read(path: &Path, e: &std::io::Error) -> String {
 /// `read` (the lockfile cache's inputs).
 struct DiskSource<'c> {
     ctx: &'c Context<'c>,
-    root: PathBuf,
     read: &'c mut Vec<PathBuf>,
 }
 
@@ -519,7 +517,7 @@ impl super::includes::IncludeSource for DiskSource<'_> {
     }
 
     fn shown(&self, key: &PathBuf) -> String {
-        shown_path(&self.root, key)
+        shown_path(self.ctx.confine.root(), key)
     }
 
     fn beside(&mut self, of: &PathBuf, name: &str) -> Option<PathBuf> {

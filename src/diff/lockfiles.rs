@@ -82,7 +82,7 @@ fn compare_locked_input(
             out.push(c);
             continue;
         }
-        let v = |ps: &Vec<&Package>| Some(versions(ps)).filter(|s| !s.is_empty() || !ps.is_empty());
+        let v = |ps: &Vec<&Package>| (!ps.is_empty()).then(|| versions(ps));
         let mut c = Change::from_rule(
             &rules::PKG_INPUT_LOCKED,
             Section::Lockfiles,
@@ -91,8 +91,8 @@ fn compare_locked_input(
                 "{name}'s declaration changed, but `{}` decides what is installed",
                 lock.path
             ),
-            v(a).filter(|_| !a.is_empty()),
-            v(b).filter(|_| !b.is_empty()),
+            v(a),
+            v(b),
         );
         c.package = Some(name.to_string());
         c.lockfiles.push(path.to_string());
@@ -148,7 +148,7 @@ fn stale_lock(
         Section::Lockfiles,
         format!("{path}: {name}"),
         name,
-        false,
+        rules::Installed::Always,
         ctx.compiled(name),
         PackageChange::Version {
             ecosystem: "pypi",
@@ -256,21 +256,17 @@ fn one_side(
         ));
         return;
     }
+    // The other side's packages are none.
+    let (a, b): (&[Package], &[Package]) = if added {
+        (&[], &l.packages)
+    } else {
+        (&l.packages, &[])
+    };
     if l.ecosystem == "toolchain" {
-        let (a, b): (&[Package], &[Package]) = if added {
-            (&[], &l.packages)
-        } else {
-            (&l.packages, &[])
-        };
         compare_toolchain(&l.path, a, b, out);
         return;
     }
     if let Some(lock) = deciding_lockfile(l, this) {
-        let (a, b): (&[Package], &[Package]) = if added {
-            (&[], &l.packages)
-        } else {
-            (&l.packages, &[])
-        };
         compare_locked_input(&l.path, lock, a, b, ctx, out);
         return;
     }
@@ -457,10 +453,16 @@ fn compare_packages(
         let subject = format!("{path}: {name}");
         // In a dependency input, a package declared only in optional extras or non-default
         // groups (`[project.optional-dependencies] eval = [...]`) is installed only when asked
-        // for, like a development dependency; a numerical library keeps its own rules, and
-        // what an environment installed is compared under `python`.
-        let optional_input = is_input && a.iter().chain(b.iter()).all(|p| p.dev || p.optional);
-        let dev = optional_input || a.iter().chain(b.iter()).all(|p| p.dev);
+        // for; a numerical library keeps its own rules, and what an environment installed is
+        // compared under `python`.
+        let all = |f: fn(&Package) -> bool| a.iter().chain(b.iter()).all(|p| f(p));
+        let installed = if all(|p| p.dev) {
+            rules::Installed::ForDevelopment
+        } else if is_input && all(|p| p.dev || p.optional) {
+            rules::Installed::OnRequest
+        } else {
+            rules::Installed::Always
+        };
         // The installed copy first, else the wheels the lockfile lists (PEP 427 tags).
         let compiled = ctx.compiled(name).or_else(|| {
             a.iter()
@@ -468,34 +470,17 @@ fn compare_packages(
                 .filter_map(|p| p.compiled)
                 .reduce(|x, y| x || y)
         });
-        let only_extras = optional_input && !a.iter().chain(b.iter()).all(|p| p.dev);
         let pkg = |subject: String, change, values| {
-            let mut c = ctx.package_change(
+            ctx.package_change(
                 Some(path),
                 Section::Lockfiles,
                 subject,
                 name,
-                dev,
+                installed,
                 compiled,
                 change,
                 values,
-            );
-            if only_extras && c.rule.id == rules::PKG_DEV.id {
-                let lead = c
-                    .reason
-                    .strip_suffix(rules::PKG_DEV.reason)
-                    .unwrap_or(&c.reason)
-                    .replacen(
-                        "is a development-only dependency",
-                        "is declared only in optional extras or groups",
-                        1,
-                    );
-                c.rule = &rules::PKG_INPUT_EXTRA;
-                c.impact = rules::PKG_INPUT_EXTRA.impact;
-                c.source = rules::PKG_INPUT_EXTRA.source;
-                c.reason = format!("{lead}{}", rules::PKG_INPUT_EXTRA.reason);
-            }
-            c
+            )
         };
         if a.is_empty() || b.is_empty() {
             let change = if a.is_empty() {

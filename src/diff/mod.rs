@@ -468,7 +468,7 @@ impl<'a> Context<'a> {
         section: Section,
         subject: String,
         name: &str,
-        dev: bool,
+        installed: rules::Installed,
         compiled: Option<bool>,
         change: PackageChange<'_>,
         values: (Option<String>, Option<String>),
@@ -483,7 +483,15 @@ impl<'a> Context<'a> {
                 .map(String::as_str)
                 .collect(),
         };
+        let dev = installed != rules::Installed::Always;
         let mut class = rules::classify_package(name, dev, compiled, &versions, self.policy);
+        // Declared only in optional extras or groups: judged like a development dependency,
+        // under its own rule.
+        let on_request = installed == rules::Installed::OnRequest
+            && class.class == crate::classes::PackageClass::Dev;
+        if on_request {
+            class.how = "declared only in optional extras or groups".into();
+        }
         // A package the tables do not know that loads a numerical library does its arithmetic
         // through it: judged like compiled code.
         if class.class == crate::classes::PackageClass::Pure {
@@ -513,6 +521,12 @@ impl<'a> Context<'a> {
             };
         }
         let (rule, lead) = rules::package_rule(name, &class, change);
+        // The scope may have reclassed it since.
+        let rule = if on_request && class.class == crate::classes::PackageClass::Dev {
+            &rules::PKG_INPUT_EXTRA
+        } else {
+            rule
+        };
         let mut c = Change::from_rule(rule, section, subject, lead, values.0, values.1);
         c.package = Some(crate::lockfile::requirements::normalize_name(name));
         if let Some(path) = lockfile {

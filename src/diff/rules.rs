@@ -660,6 +660,17 @@ const COMPILED_HINTS: &[&str] = &[
     "-accel",
 ];
 
+/// When a package is installed, as its lockfile or input declares it.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Installed {
+    /// With the project.
+    Always,
+    /// Only for development or tests.
+    ForDevelopment,
+    /// Only when an optional extra or a non-default group of a dependency input asks for it.
+    OnRequest,
+}
+
 /// A package's class and how it was decided, as a phrase for reasons.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct Classified {
@@ -1444,8 +1455,6 @@ pub fn path_class(path: &str, policy: &Policy, lockfiles: &[&str]) -> PathClass 
         .is_some_and(|f| f != crate::lockfile::Format::Dockerfile);
     if read_format
         || DEPENDENCY_FILES.contains(&file)
-        || (file.starts_with("requirements") && (file.ends_with(".txt") || file.ends_with(".in")))
-        || (file.starts_with("constraints") && file.ends_with(".txt"))
         || ((file.ends_with(".in") || file.ends_with(".txt"))
             && folders.last() == Some(&"requirements"))
     {

@@ -31,7 +31,6 @@ use crate::error::LockfileError;
 use crate::lockfile::conda::name_version_of_url;
 use crate::lockfile::python::hash_pair;
 use crate::lockfile::requirements::normalize_name;
-use crate::lockfile::support::sort_packages;
 use crate::lockfile::Parsed;
 use crate::manifest::Package;
 use crate::redact::scrub_url_credentials;
@@ -121,13 +120,11 @@ pub fn parse_conda_lock(text: &str, path: &str) -> Result<Parsed, LockfileError>
             ..Package::default()
         });
     }
-    sort_packages(&mut packages);
-    Ok(Parsed {
-        format_version: Some(lock.version.to_string()),
+    Ok(Parsed::sorted(
+        Some(lock.version.to_string()),
         packages,
         warnings,
-        includes: Vec::new(),
-    })
+    ))
 }
 
 #[derive(Deserialize)]
@@ -256,13 +253,11 @@ pub fn parse_pixi(text: &str, path: &str) -> Result<Parsed, LockfileError> {
             ..Package::default()
         });
     }
-    sort_packages(&mut packages);
-    Ok(Parsed {
-        format_version: Some(lock.version.to_string()),
+    Ok(Parsed::sorted(
+        Some(lock.version.to_string()),
         packages,
         warnings,
-        includes: Vec::new(),
-    })
+    ))
 }
 
 #[cfg(test)]

@@ -45,6 +45,23 @@ pub struct Parsed {
     pub includes: Vec<Include>,
 }
 
+impl Parsed {
+    /// A parse result with its packages sorted (and exact duplicates dropped), no includes.
+    pub(crate) fn sorted(
+        format_version: Option<String>,
+        mut packages: Vec<Package>,
+        warnings: Vec<String>,
+    ) -> Parsed {
+        support::sort_packages(&mut packages);
+        Parsed {
+            format_version,
+            packages,
+            warnings,
+            includes: Vec::new(),
+        }
+    }
+}
+
 /// A file named inside another, whose packages belong to the includer.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct Include {

@@ -37,7 +37,6 @@ use serde::Deserialize;
 use crate::error::LockfileError;
 use crate::lockfile::python::toml_error;
 use crate::lockfile::requirements::{normalize_name, pep508};
-use crate::lockfile::support::sort_packages;
 use crate::lockfile::Parsed;
 use crate::manifest::Package;
 
@@ -110,7 +109,7 @@ enum PoetryDep {
     Several(Vec<PoetryTable>),
 }
 
-#[derive(Deserialize, Default)]
+#[derive(Deserialize, Default, Clone)]
 struct PoetryTable {
     #[serde(default)]
     version: Option<String>,
@@ -140,14 +139,8 @@ struct Out<'p> {
 }
 
 impl Out<'_> {
-    fn finish(mut self) -> Parsed {
-        sort_packages(&mut self.packages);
-        Parsed {
-            format_version: None,
-            packages: self.packages,
-            warnings: self.warnings,
-            includes: Vec::new(),
-        }
+    fn finish(self) -> Parsed {
+        Parsed::sorted(None, self.packages, self.warnings)
     }
 
     /// Adds one PEP 508 specification found at `place` (`[project] dependencies`…).
@@ -215,8 +208,8 @@ pub fn parse_pyproject(text: &str, path: &str) -> Result<Parsed, LockfileError> 
                         version: Some(c.clone()),
                         ..PoetryTable::default()
                     }],
-                    PoetryDep::Table(t) => vec![clone_table(t)],
-                    PoetryDep::Several(ts) => ts.iter().map(clone_table).collect(),
+                    PoetryDep::Table(t) => vec![t.clone()],
+                    PoetryDep::Several(ts) => ts.clone(),
                 };
                 for t in tables {
                     match poetry_package(name, &t) {
@@ -252,20 +245,6 @@ pub fn parse_pyproject(text: &str, path: &str) -> Result<Parsed, LockfileError> 
         }
     }
     Ok(out.finish())
-}
-
-fn clone_table(t: &PoetryTable) -> PoetryTable {
-    PoetryTable {
-        version: t.version.clone(),
-        optional: t.optional,
-        markers: t.markers.clone(),
-        git: t.git.clone(),
-        rev: t.rev.clone(),
-        tag: t.tag.clone(),
-        branch: t.branch.clone(),
-        path: t.path.clone(),
-        url: t.url.clone(),
-    }
 }
 
 /// The requirement strings of a PEP 735 group, following `include-group` entries; `stack`

@@ -45,10 +45,7 @@ fn pin(language: &str, version: &str) -> Package {
 }
 
 fn parsed(packages: Vec<Package>) -> Parsed {
-    Parsed {
-        packages,
-        ..Parsed::default()
-    }
+    Parsed::sorted(None, packages, Vec::new())
 }
 
 /// The lines of a one-value-per-line pin file that are not blank or comments.
