@@ -21,7 +21,7 @@ use crate::collect::{stamp_prepared, StampOptions};
 use crate::diff::rules::{render_table, TableFormat};
 use crate::manifest::{Manifest, ManifestFormat, Prepared};
 use crate::policy::{Policy, POLICY_FILE};
-use crate::report::{color_allowed, render, ReportFormat};
+use crate::report::{color_allowed, ReportFormat};
 
 /// Exit code for bad input.
 pub const EXIT_BAD_INPUT: u8 = 2;
@@ -499,7 +499,11 @@ fn run_diff(args: DiffArgs) -> ExitStatus {
     }
     report.all = args.all;
     let exit = policy.exit_code(report.verdict);
-    emit_report(&report, args.format, exit)
+    let status = emit_report(&report, args.format, exit);
+    // The process ends next (`main` exits without running destructors): freeing two large
+    // manifests string by string would only cost time.
+    std::mem::forget((old, new, report));
+    status
 }
 
 impl DiffFormat {
@@ -522,10 +526,15 @@ fn stdout_color() -> bool {
 
 /// Prints a report and returns `exit` (the verdict's code under the policy).
 fn emit_report(report: &crate::diff::Report, format: DiffFormat, exit: u8) -> ExitStatus {
-    if let Err(e) = emit(&render(report, format.report_format(), stdout_color())) {
-        return fail(format!("cannot write to stdout: {e}"));
+    let mut out = std::io::BufWriter::with_capacity(64 * 1024, std::io::stdout().lock());
+    let written = crate::report::write(report, format.report_format(), stdout_color(), &mut out)
+        .and_then(|()| out.flush());
+    match written {
+        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => {
+            fail(format!("cannot write to stdout: {e}"))
+        }
+        _ => exit,
     }
-    exit
 }
 
 fn run_check(args: CheckArgs) -> ExitStatus {

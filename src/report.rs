@@ -26,14 +26,26 @@ pub fn color_allowed(is_terminal: bool, no_color: Option<&str>, term: Option<&st
 
 /// Renders a report.
 pub fn render(report: &Report, format: ReportFormat, color: bool) -> String {
+    let mut out = Vec::new();
+    write(report, format, color, &mut out).expect("writing to memory cannot fail");
+    String::from_utf8(out).expect("reports are UTF-8")
+}
+
+/// Writes [`render`]'s text to `out`; JSON is serialized straight into it (a report of
+/// thousands of changes is never held whole).
+pub fn write(
+    report: &Report,
+    format: ReportFormat,
+    color: bool,
+    out: &mut dyn std::io::Write,
+) -> std::io::Result<()> {
     match format {
-        ReportFormat::Text => text(report, color),
+        ReportFormat::Text => out.write_all(text(report, color).as_bytes()),
         ReportFormat::Json => {
-            let mut s = serde_json::to_string_pretty(report).expect("report always serializes");
-            s.push('\n');
-            s
+            serde_json::to_writer_pretty(&mut *out, report).map_err(std::io::Error::from)?;
+            out.write_all(b"\n")
         }
-        ReportFormat::Markdown => markdown(report),
+        ReportFormat::Markdown => out.write_all(markdown(report).as_bytes()),
     }
 }
 

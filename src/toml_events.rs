@@ -5,6 +5,10 @@
 //! packages that tree is most of the time and memory of reading it. This reader uses the same
 //! lexer, parser and string decoders (`toml_parser`, the `toml` crate's own), keeps the
 //! parser's events in a flat list, and hands keys and values to serde as it walks the list.
+//! The text is read in pieces that end before a table header, each parsed when the walk
+//! reaches it; a piece in the plain form the `toml` writer produces is split into tokens by
+//! the small scanner in [`plain`] instead of `toml_parser`'s lexer and parser (the decoders
+//! still check every value).
 //!
 //! It reads documents whose tables come in nesting order: every sub-table follows its parent
 //! table (or array-of-tables element) before any other table, as `toml`'s writer emits them.
@@ -20,6 +24,7 @@ use std::fmt;
 
 use serde::de::{self, DeserializeSeed, IntoDeserializer, Visitor};
 use toml_parser::decoder::{Encoding, ScalarKind};
+use toml_parser::lexer::Token;
 use toml_parser::parser::{EventReceiver, RecursionGuard, ValidateWhitespace};
 use toml_parser::{ErrorSink, ParseError, Source, Span};
 
@@ -42,53 +47,32 @@ pub fn from_str<'a, T: de::Deserialize<'a>>(text: &'a str) -> Option<T> {
 pub fn from_str_in_pieces<'a, T: de::Deserialize<'a>>(text: &'a str, piece: usize) -> Option<T> {
     // Offsets are kept as `u32`; a larger text is left to the full parser.
     u32::try_from(text.len()).ok()?;
-    let mut failed = Failed(false);
-    let mut collect = Collect {
-        source: Source::new(""),
-        offset: 0,
-        // About one event for every eight bytes of a manifest.
-        events: Vec::with_capacity(text.len() / 8),
-        headers: Vec::new(),
-        header: None,
-        failed: false,
-    };
-    let mut tokens = Vec::new();
-    let mut start = 0;
-    loop {
-        let end = piece_end(text, start, piece);
-        collect.source = Source::new(&text[start..end]);
-        collect.offset = start;
-        tokens.clear();
-        tokens.extend(collect.source.lex());
-        {
-            let piece = collect.source;
-            let mut validate = ValidateWhitespace::new(&mut collect, piece);
-            let mut guard = RecursionGuard::new(&mut validate, MAX_DEPTH);
-            toml_parser::parser::parse_document(&tokens, &mut guard, &mut failed);
-        }
-        // A piece cut inside a multi-line string, array or inline table ends unterminated,
-        // which is an error here: the whole text then goes to the full parser.
-        if failed.0 || collect.failed || collect.header.is_some() {
-            return None;
-        }
-        if end == text.len() {
-            break;
-        }
-        start = end;
-    }
-    drop(tokens);
+    // The pieces are parsed as the deserializer reaches them: only one piece's tokens and
+    // events are held at a time, whatever the size of the text.
     let mut reader = Reader {
         source: Source::new(text),
-        events: collect.events,
-        headers: collect.headers,
+        text,
+        piece,
+        next_start: 0,
+        tokens: Vec::new(),
+        collect: Collect {
+            source: Source::new(""),
+            offset: 0,
+            events: Vec::new(),
+            headers: Vec::new(),
+            header: None,
+            failed: false,
+        },
         pos: 0,
+        broken: false,
     };
     let value = T::deserialize(TableDe {
         reader: &mut reader,
         kind: TableKind::Root,
     })
     .ok()?;
-    (reader.pos == reader.events.len()).then_some(value)
+    // The document ends where the text does: no piece left, no event left, none refused.
+    (reader.peek().is_none() && !reader.broken).then_some(value)
 }
 
 /// Where the piece of `text` that begins at `start` ends: at the start of the first line
@@ -98,7 +82,14 @@ fn piece_end(text: &str, start: usize, piece: usize) -> usize {
     if from >= text.len() {
         return text.len();
     }
-    memchr::memmem::find(&text.as_bytes()[from..], b"\n[").map_or(text.len(), |i| from + i + 1)
+    table_line(&text.as_bytes()[from..]).map_or(text.len(), |i| from + i + 1)
+}
+
+/// Where the first line break followed by `[` is in `bytes`.
+fn table_line(bytes: &[u8]) -> Option<usize> {
+    static FINDER: std::sync::LazyLock<memchr::memmem::Finder<'static>> =
+        std::sync::LazyLock::new(|| memchr::memmem::Finder::new(b"\n["));
+    FINDER.find(bytes)
 }
 
 /// Records that the parser or a decoder reported an error.
@@ -144,6 +135,8 @@ impl At {
 struct Header<'a> {
     array: bool,
     path: Vec<Cow<'a, str>>,
+    /// Where the header begins in the whole text (its first `[`).
+    start: u32,
 }
 
 struct Collect<'a> {
@@ -164,11 +157,45 @@ fn decode_key<'a>(
     encoding: Option<Encoding>,
 ) -> Option<Cow<'a, str>> {
     let raw = source.get(span)?;
+    if let Some(plain) = plain_key(raw.as_str(), encoding) {
+        return Some(Cow::Borrowed(plain));
+    }
     let raw = toml_parser::Raw::new_unchecked(raw.as_str(), encoding, span);
     let mut out = Cow::Borrowed("");
     let mut failed = Failed(false);
     raw.decode_key(&mut out, &mut failed);
     (!failed.0).then_some(out)
+}
+
+/// A key that needs no decoding: a bare key (ASCII letters, digits, `_` and `-`, TOML v1.0.0
+/// "Keys") or a quoted one for which [`plain_string`] answers. `None`: leave it to the decoder.
+fn plain_key(raw: &str, encoding: Option<Encoding>) -> Option<&str> {
+    match encoding {
+        None => (!raw.is_empty()
+            && raw
+                .bytes()
+                .all(|c| c.is_ascii_alphanumeric() || c == b'_' || c == b'-'))
+        .then_some(raw),
+        Some(encoding) => plain_string(raw, encoding),
+    }
+}
+
+/// The text between the quotes of a single-line string that needs no decoding: no escape in
+/// a basic string, and none of the characters TOML v1.0.0 admits in no string (the control
+/// characters other than tab: U+0000 to U+0008, U+000A to U+001F, U+007F; "String"). `None`:
+/// leave it to the decoder, which also names what is wrong.
+fn plain_string(raw: &str, encoding: Encoding) -> Option<&str> {
+    let (inner, escapes) = match encoding {
+        Encoding::BasicString => (raw.strip_prefix('"')?.strip_suffix('"')?, true),
+        Encoding::LiteralString => (raw.strip_prefix('\'')?.strip_suffix('\'')?, false),
+        Encoding::MlBasicString | Encoding::MlLiteralString => return None,
+    };
+    let backslash = if escapes { b'\\' } else { b'\t' };
+    // Without an early exit the loop is vectorized; strings here are short.
+    let plain = inner.bytes().fold(true, |ok, c| {
+        ok & ((c >= 0x20) & (c != 0x7f) & (c != backslash) | (c == b'\t'))
+    });
+    plain.then_some(inner)
 }
 
 impl<'a> Collect<'a> {
@@ -180,13 +207,14 @@ impl<'a> Collect<'a> {
         )
     }
 
-    fn open(&mut self, array: bool) {
+    fn open(&mut self, array: bool, span: Span) {
         if self.header.is_some() {
             self.failed = true;
         }
         self.header = Some(Header {
             array,
             path: Vec::new(),
+            start: self.at(span).0,
         });
     }
 
@@ -202,14 +230,14 @@ impl<'a> Collect<'a> {
 }
 
 impl EventReceiver for Collect<'_> {
-    fn std_table_open(&mut self, _span: Span, _error: &mut dyn ErrorSink) {
-        self.open(false);
+    fn std_table_open(&mut self, span: Span, _error: &mut dyn ErrorSink) {
+        self.open(false, span);
     }
     fn std_table_close(&mut self, _span: Span, _error: &mut dyn ErrorSink) {
         self.close();
     }
-    fn array_table_open(&mut self, _span: Span, _error: &mut dyn ErrorSink) {
-        self.open(true);
+    fn array_table_open(&mut self, span: Span, _error: &mut dyn ErrorSink) {
+        self.open(true, span);
     }
     fn array_table_close(&mut self, _span: Span, _error: &mut dyn ErrorSink) {
         self.close();
@@ -291,15 +319,78 @@ impl de::Error for GiveUp {
 }
 
 struct Reader<'a> {
+    /// The whole text: events' spans are spans of it.
     source: Source<'a>,
-    events: Vec<Ev>,
-    headers: Vec<Header<'a>>,
+    text: &'a str,
+    /// The least size of a piece.
+    piece: usize,
+    /// Where the next piece to parse begins; the text's length when all are parsed.
+    next_start: usize,
+    /// The lexer's tokens of the piece being parsed (kept for the next one's room).
+    tokens: Vec<Token>,
+    /// The events of the current piece, and every header so far.
+    collect: Collect<'a>,
+    /// The next event's index in `collect.events`.
     pos: usize,
+    /// A piece did not parse: the reader has given up.
+    broken: bool,
 }
 
 impl<'a> Reader<'a> {
-    fn peek(&self) -> Option<Ev> {
-        self.events.get(self.pos).copied()
+    /// The next event, parsing the next piece when this one's are used up; `None` at the end
+    /// of the text or once a piece failed to parse.
+    fn peek(&mut self) -> Option<Ev> {
+        if self.pos == self.collect.events.len() && !self.parse_next_piece() {
+            return None;
+        }
+        self.collect.events.get(self.pos).copied()
+    }
+
+    /// Replaces the events with the next piece's that has any; false when none is left or
+    /// the piece does not parse (then `broken`).
+    fn parse_next_piece(&mut self) -> bool {
+        while !self.broken && self.next_start < self.text.len() {
+            let start = self.next_start;
+            let end = piece_end(self.text, start, self.piece);
+            self.next_start = end;
+            let collect = &mut self.collect;
+            collect.events.clear();
+            self.pos = 0;
+            collect.source = Source::new(&self.text[start..end]);
+            collect.offset = start;
+            let headers = collect.headers.len();
+            if plain::scan(collect, &self.text[start..end]) {
+                if !collect.events.is_empty() {
+                    return true;
+                }
+                continue;
+            }
+            // Not in the plain form: the piece is parsed again by `toml_parser`.
+            collect.events.clear();
+            collect.headers.truncate(headers);
+            collect.header = None;
+            collect.failed = false;
+            self.tokens.clear();
+            self.tokens.extend(collect.source.lex());
+            let mut failed = Failed(false);
+            {
+                let piece = collect.source;
+                let mut validate = ValidateWhitespace::new(&mut *collect, piece);
+                let mut guard = RecursionGuard::new(&mut validate, MAX_DEPTH);
+                toml_parser::parser::parse_document(&self.tokens, &mut guard, &mut failed);
+            }
+            // A piece cut inside a multi-line string, array or inline table ends unterminated,
+            // which is an error here: the whole text then goes to the full parser.
+            if failed.0 || collect.failed || collect.header.is_some() {
+                self.broken = true;
+                collect.events.clear();
+                return false;
+            }
+            if !collect.events.is_empty() {
+                return true;
+            }
+        }
+        false
     }
 
     /// Steps over the `,` between values of an array or an inline table.
@@ -315,13 +406,17 @@ impl<'a> Reader<'a> {
         Ok(ev)
     }
 
+    fn header(&self, g: usize) -> &Header<'a> {
+        &self.collect.headers[g]
+    }
+
     fn key(&self, at: At, encoding: Option<Encoding>) -> Result<Cow<'a, str>, GiveUp> {
         decode_key(self.source, at.span(), encoding).ok_or(GiveUp)
     }
 
     /// The path of the table `(header, depth)`: the first `depth` keys of that header.
     fn path(&self, header: usize, depth: usize) -> &[Cow<'a, str>] {
-        &self.headers[header].path[..depth]
+        &self.header(header).path[..depth]
     }
 
     /// True when header `g` names a table below the table `at` (`None`: the root).
@@ -329,7 +424,7 @@ impl<'a> Reader<'a> {
         match at {
             None => true,
             Some((h, d)) => {
-                let p = &self.headers[g].path;
+                let p = &self.header(g).path;
                 p.len() > d && p[..d] == *self.path(h, d)
             }
         }
@@ -385,7 +480,7 @@ impl<'de, 'r> de::Deserializer<'de> for TableDe<'r, 'de> {
             TableKind::Root => None,
             TableKind::Header(h) => {
                 self.reader.next()?;
-                Some((h, self.reader.headers[h].path.len()))
+                Some((h, self.reader.header(h).path.len()))
             }
             TableKind::Implicit(h, d) => Some((h, d)),
             TableKind::Array(first) => {
@@ -468,7 +563,7 @@ impl<'de> de::MapAccess<'de> for TableAccess<'_, 'de> {
             }
             Ev::Header(g) if self.reader.is_below(g, self.at) => {
                 let depth = self.at.map_or(0, |(_, d)| d);
-                let header = &self.reader.headers[g];
+                let header = self.reader.header(g);
                 let key = header.path[depth].clone();
                 self.pending = Some(Pending::Table(if header.path.len() > depth + 1 {
                     TableKind::Implicit(g, depth + 1)
@@ -524,8 +619,8 @@ impl<'de> de::SeqAccess<'de> for ArrayOfTables<'_, 'de> {
     ) -> Result<Option<T::Value>, GiveUp> {
         match self.reader.peek() {
             Some(Ev::Header(g))
-                if self.reader.headers[g].array
-                    && self.reader.headers[g].path == self.reader.headers[self.first].path =>
+                if self.reader.header(g).array
+                    && self.reader.header(g).path == self.reader.header(self.first).path =>
             {
                 seed.deserialize(TableDe {
                     reader: &mut *self.reader,
@@ -540,20 +635,36 @@ impl<'de> de::SeqAccess<'de> for ArrayOfTables<'_, 'de> {
         }
     }
 
-    /// The number of elements: headers of this array's path from the first one on, sub-tables
-    /// of its elements between them (so that a vector of them is allocated once).
+    /// The number of elements, counted in the text (the headers after this piece are not
+    /// parsed yet): lines written exactly as the first element's header, sub-tables of its
+    /// elements between them; the count stops at any other line that opens a table. Only a
+    /// hint for the room of the vector: a header written another way ends the count early.
     fn size_hint(&self) -> Option<usize> {
-        let headers = &self.reader.headers;
-        let path = &headers.get(self.first)?.path;
+        let reader = &*self.reader;
+        let first = reader.collect.headers.get(self.first)?;
+        let text = reader.text;
+        let line_at = |at: usize| {
+            let rest = &text[at..];
+            rest[..memchr::memchr(b'\n', rest.as_bytes()).unwrap_or(rest.len())].trim_end()
+        };
+        let header = line_at(first.start as usize);
+        let inner = header.trim_start_matches('[').trim_end_matches(']');
         let mut n = 0;
-        for h in &headers[self.first..] {
-            if h.path == *path {
-                if !h.array {
-                    break;
-                }
+        let mut at = first.start as usize;
+        loop {
+            let line = line_at(at);
+            if line == header {
                 n += 1;
-            } else if !(h.path.len() > path.len() && h.path[..path.len()] == path[..]) {
+            } else if !line
+                .trim_start_matches('[')
+                .strip_prefix(inner)
+                .is_some_and(|rest| rest.starts_with('.'))
+            {
                 break;
+            }
+            match table_line(&text.as_bytes()[at..]) {
+                Some(i) => at += i + 1,
+                None => break,
             }
         }
         Some(n)
@@ -597,6 +708,9 @@ impl<'a> ValueDe<'_, 'a> {
     fn scalar(&self, at: At, encoding: Option<Encoding>) -> Result<Scalar<'a>, GiveUp> {
         let span = at.span();
         let raw = self.reader.source.get(span).ok_or(GiveUp)?;
+        if let Some(plain) = encoding.and_then(|e| plain_string(raw.as_str(), e)) {
+            return Ok(Scalar::Str(Cow::Borrowed(plain)));
+        }
         let raw = toml_parser::Raw::new_unchecked(raw.as_str(), encoding, span);
         let mut out = Cow::Borrowed("");
         let mut failed = Failed(false);
@@ -768,6 +882,246 @@ impl<'de> de::MapAccess<'de> for InlineAccess<'_, 'de> {
     }
 }
 
+/// A scanner for the plain form of TOML that runprint's writer (the `toml` crate's) produces:
+/// one table header or `key = value` per line, bare or single-line quoted keys, single-line
+/// strings, bare scalars, arrays of those over one or more lines, spaces and tabs, `\n` or
+/// `\r\n` line ends. It finds where each token begins and ends and hands them to [`Collect`] as
+/// `toml_parser` would; decoding and checking the strings, keys, numbers and booleans is left
+/// to `toml_parser`'s decoders, as for any piece. Anything else (a comment, a dotted key, an
+/// inline table, a multi-line string, a date-time written with a space, a byte it does not
+/// expect) makes it answer `false`, and the piece is lexed and parsed by `toml_parser`.
+///
+/// The lexer and parser of `toml_parser` take most of the time of reading a large manifest;
+/// this scanner walks each byte once.
+mod plain {
+    use super::{Collect, Failed};
+    use toml_parser::decoder::Encoding;
+    use toml_parser::parser::EventReceiver;
+    use toml_parser::Span;
+
+    /// Arrays nested deeper than this are left to `toml_parser`.
+    const MAX_NESTING: u32 = 16;
+
+    /// Scans `piece` (the text `c.source` holds) into `c`'s events; false when it is not in
+    /// the plain form or a header's key does not decode.
+    pub(super) fn scan(c: &mut Collect<'_>, piece: &str) -> bool {
+        let b = piece.as_bytes();
+        let mut sink = Failed(false);
+        let mut i = 0;
+        loop {
+            i = skip_blanks(b, i);
+            match b.get(i) {
+                None => break,
+                Some(b'\n') => i += 1,
+                Some(b'\r') if b.get(i + 1) == Some(&b'\n') => i += 2,
+                Some(b'[') => {
+                    let array = b.get(i + 1) == Some(&b'[');
+                    let width = if array { 2 } else { 1 };
+                    if array {
+                        c.array_table_open(span(i, i + 2), &mut sink);
+                    } else {
+                        c.std_table_open(span(i, i + 1), &mut sink);
+                    }
+                    i += width;
+                    loop {
+                        i = skip_blanks(b, i);
+                        let Some((end, encoding)) = key(b, i) else {
+                            return false;
+                        };
+                        c.simple_key(span(i, end), encoding, &mut sink);
+                        i = skip_blanks(b, end);
+                        match b.get(i) {
+                            Some(b'.') => {
+                                c.key_sep(span(i, i + 1), &mut sink);
+                                i += 1;
+                            }
+                            Some(b']') => break,
+                            _ => return false,
+                        }
+                    }
+                    if array {
+                        if b.get(i + 1) != Some(&b']') {
+                            return false;
+                        }
+                        c.array_table_close(span(i, i + 2), &mut sink);
+                    } else {
+                        c.std_table_close(span(i, i + 1), &mut sink);
+                    }
+                    i += width;
+                    let Some(next) = line_end(b, i) else {
+                        return false;
+                    };
+                    i = next;
+                }
+                Some(_) => {
+                    let Some((end, encoding)) = key(b, i) else {
+                        return false;
+                    };
+                    c.simple_key(span(i, end), encoding, &mut sink);
+                    i = skip_blanks(b, end);
+                    if b.get(i) != Some(&b'=') {
+                        return false;
+                    }
+                    c.key_val_sep(span(i, i + 1), &mut sink);
+                    i = skip_blanks(b, i + 1);
+                    let Some(end) = value(c, b, i, 0, &mut sink) else {
+                        return false;
+                    };
+                    let Some(next) = line_end(b, end) else {
+                        return false;
+                    };
+                    i = next;
+                }
+            }
+            if sink.0 || c.failed {
+                return false;
+            }
+        }
+        !sink.0 && !c.failed && c.header.is_none()
+    }
+
+    fn span(start: usize, end: usize) -> Span {
+        Span::new_unchecked(start, end)
+    }
+
+    /// The first byte at or after `i` that is not a space or a tab.
+    fn skip_blanks(b: &[u8], mut i: usize) -> usize {
+        while matches!(b.get(i), Some(b' ' | b'\t')) {
+            i += 1;
+        }
+        i
+    }
+
+    /// After a header or a value: blanks, then the end of the line (or of the piece). Where
+    /// the next line begins.
+    fn line_end(b: &[u8], i: usize) -> Option<usize> {
+        let i = skip_blanks(b, i);
+        match b.get(i) {
+            None => Some(i),
+            Some(b'\n') => Some(i + 1),
+            Some(b'\r') if b.get(i + 1) == Some(&b'\n') => Some(i + 2),
+            _ => None,
+        }
+    }
+
+    /// A bare or single-line quoted key at `i`: where it ends, and its quoting.
+    fn key(b: &[u8], i: usize) -> Option<(usize, Option<Encoding>)> {
+        match b.get(i)? {
+            b'"' | b'\'' => quoted(b, i),
+            _ => {
+                let end = bare_end(b, i, |c| {
+                    c.is_ascii_alphanumeric() || c == b'_' || c == b'-'
+                });
+                (end > i).then_some((end, None))
+            }
+        }
+    }
+
+    /// A single-line basic (`"`) or literal (`'`) string at `i`; `None` for a multi-line one
+    /// or one not closed on its line.
+    fn quoted(b: &[u8], i: usize) -> Option<(usize, Option<Encoding>)> {
+        let quote = b[i];
+        if b.get(i + 1) == Some(&quote) && b.get(i + 2) == Some(&quote) {
+            return None;
+        }
+        // A `\r` inside is left to the decoder, which refuses it as a control character.
+        let mut j = i + 1;
+        loop {
+            let rest = b.get(j..)?;
+            j += if quote == b'"' {
+                memchr::memchr3(quote, b'\\', b'\n', rest)?
+            } else {
+                memchr::memchr2(quote, b'\n', rest)?
+            };
+            match b[j] {
+                b'\n' => return None,
+                b'\\' => j += 2,
+                _ => break,
+            }
+        }
+        let encoding = if quote == b'"' {
+            Encoding::BasicString
+        } else {
+            Encoding::LiteralString
+        };
+        Some((j + 1, Some(encoding)))
+    }
+
+    fn bare_end(b: &[u8], mut i: usize, admits: impl Fn(u8) -> bool) -> usize {
+        while b.get(i).is_some_and(|&c| admits(c)) {
+            i += 1;
+        }
+        i
+    }
+
+    /// A value at `i`: a string, a bare scalar (number or boolean, checked when decoded) or an
+    /// array of values. Where it ends.
+    fn value(
+        c: &mut Collect<'_>,
+        b: &[u8],
+        i: usize,
+        depth: u32,
+        sink: &mut Failed,
+    ) -> Option<usize> {
+        match *b.get(i)? {
+            b'"' | b'\'' => {
+                let (end, encoding) = quoted(b, i)?;
+                c.scalar(span(i, end), encoding, sink);
+                Some(end)
+            }
+            b'[' if depth < MAX_NESTING => {
+                if !c.array_open(span(i, i + 1), sink) {
+                    return None;
+                }
+                let mut j = i + 1;
+                loop {
+                    j = skip_blanks_and_lines(b, j)?;
+                    if b.get(j) == Some(&b']') {
+                        c.array_close(span(j, j + 1), sink);
+                        return Some(j + 1);
+                    }
+                    j = value(c, b, j, depth + 1, sink)?;
+                    j = skip_blanks_and_lines(b, j)?;
+                    match b.get(j)? {
+                        b',' => {
+                            c.value_sep(span(j, j + 1), sink);
+                            j += 1;
+                        }
+                        b']' => {
+                            c.array_close(span(j, j + 1), sink);
+                            return Some(j + 1);
+                        }
+                        _ => return None,
+                    }
+                }
+            }
+            _ => {
+                let end = bare_end(b, i, |c| {
+                    c.is_ascii_alphanumeric() || matches!(c, b'_' | b'+' | b'-' | b'.' | b':')
+                });
+                if end == i {
+                    return None;
+                }
+                c.scalar(span(i, end), None, sink);
+                Some(end)
+            }
+        }
+    }
+
+    /// Inside an array: blanks and line ends.
+    fn skip_blanks_and_lines(b: &[u8], mut i: usize) -> Option<usize> {
+        loop {
+            i = skip_blanks(b, i);
+            match b.get(i) {
+                Some(b'\n') => i += 1,
+                Some(b'\r') if b.get(i + 1) == Some(&b'\n') => i += 2,
+                Some(b'\r') => return None,
+                _ => return Some(i),
+            }
+        }
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -914,6 +1268,105 @@ a = 1
             "a = [1,\n",                       // syntax error
             "a = { b = 1, b = 2 }\n",          // duplicate key in an inline table
         ] {
+            assert!(same(doc).is_none(), "{doc}");
+        }
+    }
+
+    /// Every piece of a manifest as the `toml` crate writes it is taken by the plain scanner
+    /// (so `toml_parser`'s lexer is not run), and reads as `toml` reads it.
+    #[test]
+    fn the_writers_output_is_in_the_plain_form() {
+        let mut doc = toml::Table::new();
+        doc.insert("s".into(), "tab\there \"quoted\" \\ é \u{1F600}".into());
+        doc.insert("empty".into(), "".into());
+        doc.insert("n".into(), toml::Value::Integer(-42));
+        doc.insert("f".into(), toml::Value::Float(1.5e-7));
+        doc.insert("b".into(), true.into());
+        doc.insert("key with spaces".into(), "v".into());
+        let short = vec![toml::Value::from("a"), "b".into()];
+        doc.insert("short".into(), toml::Value::Array(short));
+        let long: Vec<toml::Value> = (0..40).map(|i| format!("item-{i}").into()).collect();
+        doc.insert("long".into(), toml::Value::Array(long));
+        let nested = toml::Value::Array(vec![toml::Value::Array(vec![1.into(), 2.into()])]);
+        doc.insert("nested".into(), nested);
+        let mut table = toml::Table::new();
+        table.insert("x".into(), "y".into());
+        let mut sub = toml::Table::new();
+        sub.insert("z".into(), 3.into());
+        table.insert("sub".into(), toml::Value::Table(sub));
+        doc.insert("t".into(), toml::Value::Table(table.clone()));
+        let rows = vec![toml::Value::Table(table.clone()), table.into()];
+        doc.insert("rows".into(), toml::Value::Array(rows));
+        let text = toml::to_string(&toml::Value::Table(doc.clone())).unwrap();
+        let mut collect = Collect {
+            source: Source::new(&text),
+            offset: 0,
+            events: Vec::new(),
+            headers: Vec::new(),
+            header: None,
+            failed: false,
+        };
+        assert!(plain::scan(&mut collect, &text), "{text}");
+        assert_eq!(same(&text), Some(toml::Value::Table(doc)));
+        let crlf = text.replace('\n', "\r\n");
+        assert!(same(&crlf).is_some(), "{crlf}");
+    }
+
+    /// What the plain scanner does not take goes to `toml_parser` (the same answer as `toml`,
+    /// or none); what TOML refuses is refused whichever reads it. Each case is checked alone
+    /// and after a plain piece, so that both readers see it.
+    #[test]
+    fn the_plain_scanner_hands_over_or_refuses() {
+        for doc in [
+            "a = 1 # a comment\n",
+            "# a comment\na = 1\n",
+            "a = [\"x\", # inside\n \"y\"]\n",
+            "a = { b = 1 }\n",
+            "a = \"\"\"multi\nline\"\"\"\n",
+            "a = '''lit'''\n",
+            "a = '\\no escapes'\n",
+            "\"\" = 1\n",
+            "'quoted' = 'literal \"x\"'\n",
+            "[ a . \"b c\" ]\nx = 1\n",
+            "[[ a ]]\n[[a]]\n",
+            "a = [ ]\n",
+            "a = [1, 2,]\n",
+            "a = [\n  [1],\n  [\"x\"],\n]\n",
+            "a=1\nb =2\n",
+            "a = \"x\u{1}\"\n",
+            "a = \"x\u{7f}\"\n",
+            "a = 'x\u{1}'\n",
+            "a = \"x\ry\"\n",
+            "a = 1 2\n",
+            "a = [1,,2]\n",
+            "[a]]\n",
+            "[a\n",
+            "a = \"open\n",
+            "a = \"esc \\\"\n",
+            "a =\n",
+            "= 1\n",
+            "a = 1\rb = 2\n",
+            "a = [1\r 2]\n",
+            "a = 0x1F\nb = 1e3\nc = -inf\nd = +1.5\ne = 1_000\n",
+            "a = 01\n",
+            "a = truee\n",
+            "d = 1979-05-27 07:32:00\n",
+            "t = 07:32:00\n",
+            "a = \"\\u00E9\\t\"\n",
+            "a\u{c} = 1\n",
+            "a = 1\u{c}\n",
+        ] {
+            same(doc);
+            same(&format!("[first]\nx = \"plain\"\n[second]\n{doc}"));
+        }
+        // Taken by the plain scanner and refused by the decoders, as by `toml`.
+        for doc in [
+            "a = \"x\u{1}\"\n",
+            "a = 'x\u{7f}'\n",
+            "a = truee\n",
+            "a = 01\n",
+        ] {
+            assert!(toml::from_str::<toml::Value>(doc).is_err(), "{doc}");
             assert!(same(doc).is_none(), "{doc}");
         }
     }

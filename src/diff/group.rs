@@ -18,7 +18,7 @@
 //! under its head. The head carries the highest impact and weight of its group, so the verdict
 //! and the most likely cause never get weaker by grouping.
 
-use std::collections::{BTreeMap, BTreeSet};
+use std::collections::{BTreeMap, BTreeSet, HashMap};
 
 use super::{Change, Impact};
 use crate::lockfile::requirements::normalize_name;
@@ -77,7 +77,7 @@ pub fn group(mut changes: Vec<Change>, edges: &Edges) -> Vec<Change> {
     // Keyed by what follows the lockfile's path in the subject (`name`, or `name 1.0
     // features`), the rule and the values.
     type Key<'c> = (&'c str, &'c str, Option<&'c str>, Option<&'c str>);
-    let mut first: BTreeMap<Key<'_>, usize> = BTreeMap::new();
+    let mut first: HashMap<Key<'_>, usize> = HashMap::new();
     let mut merged_into: Vec<Option<usize>> = vec![None; changes.len()];
     for i in 0..changes.len() {
         let c = &changes[i];
@@ -154,23 +154,33 @@ pub fn group(mut changes: Vec<Change>, edges: &Edges) -> Vec<Change> {
         ))
     });
     let mut head_of: Vec<Option<usize>> = vec![None; changes.len()];
+    // Package name → the positions in `order` of its rows (ascending).
+    let mut rows_of: HashMap<&str, Vec<usize>> = HashMap::new();
+    for (pos, &r) in order.iter().enumerate() {
+        let name = changes[r].package.as_deref().unwrap_or_default();
+        rows_of.entry(name).or_default().push(pos);
+    }
     // Package name → the row that heads it (itself or its group's head).
     let mut package_head: BTreeMap<String, usize> = BTreeMap::new();
     for (pos, &r) in order.iter().enumerate() {
         if head_of[r].is_some() {
             continue;
         }
-        let p = changes[r].package.clone().unwrap_or_default();
-        package_head.entry(p.clone()).or_insert(r);
-        for &q in &order[pos + 1..] {
-            if head_of[q].is_some() {
+        let p = changes[r].package.as_deref().unwrap_or_default();
+        package_head.entry(p.to_string()).or_insert(r);
+        // The later rows of the same package (seen again in the python section) and of its
+        // dependencies join this row's group, unless an earlier head took them.
+        let names = std::iter::once(p).chain(reaches[r].iter().map(String::as_str));
+        for name in names {
+            let Some(positions) = rows_of.get(name) else {
                 continue;
-            }
-            let qp = changes[q].package.as_deref().unwrap_or_default();
-            // The same package seen again (in the python section), or a dependency.
-            if qp == p || reaches[r].contains(qp) {
-                head_of[q] = Some(r);
-                package_head.entry(qp.to_string()).or_insert(r);
+            };
+            for &later in positions.iter().filter(|&&at| at > pos) {
+                let q = order[later];
+                if head_of[q].is_none() {
+                    head_of[q] = Some(r);
+                    package_head.entry(name.to_string()).or_insert(r);
+                }
             }
         }
     }
