@@ -37,7 +37,8 @@ pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<(), WriteError> {
         .tempfile_in(dir)
         .map_err(err)?;
     tmp.write_all(bytes).map_err(err)?;
-    tmp.as_file().sync_all().map_err(err)?;
+    // The data and what is needed to read it back (its size); not the times.
+    tmp.as_file().sync_data().map_err(err)?;
     tmp.persist(path).map_err(|e| err(e.error))?;
     Ok(())
 }

@@ -537,10 +537,7 @@ impl Policy {
         if let Some(p) = explicit {
             return Policy::load(p);
         }
-        let root = crate::collect::git::discover(dir)
-            .ok()
-            .and_then(|r| r.workdir().map(Path::to_path_buf))
-            .unwrap_or_else(|| dir.to_path_buf());
+        let root = crate::collect::git::work_tree_root(dir).unwrap_or_else(|| dir.to_path_buf());
         let candidate = root.join(POLICY_FILE);
         if candidate.is_file() {
             Policy::load(&candidate)

@@ -7,7 +7,7 @@
 //! parser's events in a flat list, and hands keys and values to serde as it walks the list.
 //! The text is read in pieces that end before a table header, each parsed when the walk
 //! reaches it; a piece in the plain form the `toml` writer produces is split into tokens by
-//! the small scanner in [`plain`] instead of `toml_parser`'s lexer and parser (the decoders
+//! the small scanner in `plain` instead of `toml_parser`'s lexer and parser (the decoders
 //! still check every value).
 //!
 //! It reads documents whose tables come in nesting order: every sub-table follows its parent

@@ -637,6 +637,28 @@ pub fn discover(dir: &Path) -> Result<Repository, git2::Error> {
     discover_checked(dir, &checked)
 }
 
+/// The root of the work tree that contains `dir`, without opening the repository: the nearest
+/// folder from `dir` (its real path) up that holds a `.git` entry, a folder or a `gitdir:`
+/// file, as git looks for it (gitrepository-layout(5)). Anything less plain (no `.git` on the
+/// way, or a folder on the way that is itself a git folder: a bare repository, or `dir`
+/// inside `.git`) is answered by [`discover`], as before. For finding the policy file, which
+/// happens before git's status can start.
+pub fn work_tree_root(dir: &Path) -> Option<PathBuf> {
+    let real = std::fs::canonicalize(dir).ok()?;
+    for folder in real.ancestors() {
+        if std::fs::symlink_metadata(folder.join(".git")).is_ok() {
+            return Some(folder.to_path_buf());
+        }
+        let is_git_folder = folder.join("HEAD").is_file() && folder.join("objects").is_dir();
+        if is_git_folder {
+            break;
+        }
+    }
+    discover(dir)
+        .ok()
+        .and_then(|r| r.workdir().map(Path::to_path_buf))
+}
+
 /// Proof that [`preflight`] found nothing in the repository containing a folder: what lets
 /// [`work_tree`] open it without looking again.
 #[derive(Debug)]
@@ -972,6 +994,60 @@ mod tests {
         std::fs::create_dir_all(path.parent().unwrap()).unwrap();
         std::fs::write(path, "#!/bin/sh\n").unwrap();
         std::fs::set_permissions(path, std::fs::Permissions::from_mode(mode)).unwrap();
+    }
+
+    /// The work tree's root as `git rev-parse --show-toplevel` (run here) gives it: from a
+    /// sub-folder, from a linked work tree (a `.git` file), from a repository nested in
+    /// another; `None` where git finds no work tree (a bare repository, no repository).
+    #[test]
+    fn work_tree_root_agrees_with_git() {
+        let top = tempfile::tempdir().unwrap();
+        let base = std::fs::canonicalize(top.path()).unwrap();
+        let run = |dir: &Path, args: &[&str]| {
+            std::process::Command::new("git")
+                .args(args)
+                .current_dir(dir)
+                .env("GIT_CONFIG_NOSYSTEM", "1")
+                .env("GIT_CEILING_DIRECTORIES", base.parent().unwrap())
+                .output()
+                .unwrap()
+        };
+        let main = base.join("main");
+        std::fs::create_dir_all(main.join("a/b")).unwrap();
+        std::fs::write(main.join("a/b/f.txt"), "x\n").unwrap();
+        run(&main, &["init", "-q"]);
+        let commit = [
+            "-c",
+            "user.name=t",
+            "-c",
+            "user.email=t@example.invalid",
+            "commit",
+            "-qm",
+            "x",
+        ];
+        run(&main, &["add", "-A"]);
+        run(&main, &commit);
+        run(&main, &["worktree", "add", "-q", "../linked"]);
+        std::fs::create_dir_all(main.join("a/inner")).unwrap();
+        run(&main.join("a/inner"), &["init", "-q"]);
+        run(&base, &["init", "-q", "--bare", "bare.git"]);
+        std::fs::create_dir_all(base.join("plain")).unwrap();
+        for dir in [
+            main.clone(),
+            main.join("a/b"),
+            base.join("linked/a"),
+            main.join("a/inner"),
+            base.join("bare.git"),
+            base.join("plain"),
+        ] {
+            let out = run(&dir, &["rev-parse", "--show-toplevel"]);
+            let expected = out
+                .status
+                .success()
+                .then(|| PathBuf::from(String::from_utf8_lossy(&out.stdout).trim()))
+                .filter(|p| !p.as_os_str().is_empty());
+            assert_eq!(work_tree_root(&dir), expected, "{}", dir.display());
+        }
     }
 
     /// Includes as git-config(1) ("Includes", "Conditional includes") writes them: a `path`
