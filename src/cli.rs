@@ -368,6 +368,7 @@ impl CollectArgs {
 }
 
 fn run_stamp(args: StampArgs) -> ExitStatus {
+    small_pages_from_now_on();
     let format = match args.format {
         StampFormat::Toml => ManifestFormat::Toml,
         StampFormat::Json => ManifestFormat::Json,
@@ -401,6 +402,18 @@ fn run_stamp(args: StampArgs) -> ExitStatus {
         }
     }
     EXIT_NONE
+}
+
+/// A stamp allocates little: memory it touches from now on comes in 4 KiB pages instead of
+/// the allocator's 2 MiB transparent huge pages, each of which the kernel zeroes whole on first
+/// touch (about a millisecond of a warm stamp). A large `diff` keeps them (fewer faults).
+/// Linux prctl(2) `PR_SET_THP_DISABLE`; inherited by child processes, which are small too.
+fn small_pages_from_now_on() {
+    #[cfg(target_os = "linux")]
+    // SAFETY: plain integer arguments; the call only sets a flag of this process.
+    unsafe {
+        libc::prctl(libc::PR_SET_THP_DISABLE, 1, 0, 0, 0);
+    }
 }
 
 /// The manifest's text within the size runprint reads ([`Manifest::fit_within`]), printing a

@@ -4,6 +4,7 @@
 mod common;
 
 use std::collections::BTreeSet;
+use std::path::Path;
 use std::process::Command;
 
 use common::{git, repo_with, runprint, stamp_to, write_files};
@@ -701,4 +702,158 @@ fn which(program: &str) -> String {
     runprint::collect::python::which(program, &env)
         .map(|p| p.display().to_string())
         .unwrap_or_else(|| program.to_string())
+}
+
+/// git's status kept between stamps (`collect::status_cache`): a warm stamp of an unchanged
+/// checkout does not start `git` (a wrapper on PATH counts its starts), and after each kind of
+/// change the stamp's changed paths are again what `git status --porcelain -uall` (run here,
+/// the reference) lists. One repository per change, all kept in the cache first (files are
+/// trusted two seconds after their last change, hence one wait).
+#[test]
+fn a_kept_status_is_used_only_while_nothing_that_decides_it_changed() {
+    use std::os::unix::fs::PermissionsExt;
+    let tools = tempfile::tempdir().unwrap();
+    let starts = tools.path().join("starts");
+    let wrapper = tools.path().join("git");
+    std::fs::write(
+        &wrapper,
+        format!(
+            "#!/bin/sh\necho x >> '{}'\nexec '{}' \"$@\"\n",
+            starts.display(),
+            which("git")
+        ),
+    )
+    .unwrap();
+    std::fs::set_permissions(&wrapper, std::fs::Permissions::from_mode(0o755)).unwrap();
+    let path = format!(
+        "{}:{}",
+        tools.path().display(),
+        std::env::var("PATH").unwrap()
+    );
+    let git_starts = || {
+        std::fs::read_to_string(&starts)
+            .map(|s| s.lines().count())
+            .unwrap_or(0)
+    };
+    type Change = fn(&Path);
+    let changes: Vec<(&str, Change)> = vec![
+        ("nothing", |_| {}),
+        ("a tracked file, same size", |r| {
+            std::fs::write(r.join("src/train.py"), "b = 2\n").unwrap()
+        }),
+        ("a new file in a tracked folder", |r| {
+            std::fs::write(r.join("src/new.py"), "x\n").unwrap()
+        }),
+        ("a file in an empty untracked folder", |r| {
+            std::fs::write(r.join("empty/new.txt"), "x\n").unwrap()
+        }),
+        ("a file in a folder of ignored files only", |r| {
+            std::fs::write(r.join("build/new.txt"), "x\n").unwrap()
+        }),
+        ("a deleted file", |r| {
+            std::fs::remove_file(r.join("src/util.py")).unwrap()
+        }),
+        ("an untracked .gitignore edited", |r| {
+            std::fs::write(r.join("notes/.gitignore"), "*.log\n").unwrap()
+        }),
+        ("info/exclude edited", |r| {
+            std::fs::write(r.join(".git/info/exclude"), "notes/\n").unwrap()
+        }),
+        ("a file staged", |r| {
+            std::fs::write(r.join("staged.txt"), "s\n").unwrap();
+            git(r, &["add", "staged.txt"]);
+        }),
+        ("a commit", |r| {
+            std::fs::write(r.join("src/train.py"), "c = 3\n").unwrap();
+            git(r, &["commit", "-qam", "next"]);
+        }),
+        ("a mode change", |r| {
+            let p = r.join("src/util.py");
+            std::fs::set_permissions(&p, std::fs::Permissions::from_mode(0o755)).unwrap();
+        }),
+    ];
+    let repos: Vec<tempfile::TempDir> = changes
+        .iter()
+        .map(|_| {
+            let repo = repo_with(&[
+                ("src/train.py", "a = 1\n"),
+                ("src/util.py", "u\n"),
+                (".gitignore", "*.o\n"),
+                ("requirements.txt", "numpy==1.26.4\n"),
+            ]);
+            write_files(
+                repo.path(),
+                &[
+                    ("build/a.o", "o\n"),
+                    ("notes/a.log", "l\n"),
+                    ("notes/todo.txt", "t\n"),
+                    ("notes/.gitignore", "# nothing\n"),
+                ],
+            );
+            std::fs::create_dir_all(repo.path().join("empty")).unwrap();
+            repo
+        })
+        .collect();
+    let cache = tempfile::tempdir().unwrap();
+    let out = tempfile::tempdir().unwrap();
+    let cache_dir = cache.path().to_str().unwrap().to_string();
+    let stamp = |repo: &Path| {
+        let file = out.path().join("m.toml");
+        let mut cmd = runprint();
+        cmd.args(["stamp", "--cache", &cache_dir, "--repo"])
+            .arg(repo)
+            .arg("--out")
+            .arg(&file)
+            .env("PATH", &path);
+        let result = cmd.output().unwrap();
+        assert!(result.status.success(), "{result:?}");
+        runprint::manifest::Manifest::load(&file).unwrap()
+    };
+    // Without optional locks, as the stamp runs it: a plain `git status` also refreshes the
+    // index's stat data, which rewrites the index (and so, rightly, makes the next stamp ask
+    // git again).
+    let reference = |repo: &Path| -> BTreeSet<String> {
+        let args = [
+            "--no-optional-locks",
+            "status",
+            "--porcelain",
+            "-uall",
+            "--no-renames",
+        ];
+        git(repo, &args)
+            .lines()
+            .map(|l| l[3..].to_string())
+            .collect()
+    };
+    std::thread::sleep(std::time::Duration::from_millis(2100));
+    for repo in &repos {
+        stamp(repo.path()); // runs git, keeps its answer
+    }
+    for ((what, change), repo) in changes.iter().zip(&repos) {
+        let before = git_starts();
+        let kept = stamp(repo.path());
+        assert_eq!(git_starts(), before, "{what}: the kept answer is used");
+        let changed: BTreeSet<String> = kept.content.git.changed_paths.iter().cloned().collect();
+        assert_eq!(changed, reference(repo.path()), "{what}: before the change");
+        change(repo.path());
+        let before = git_starts();
+        let m = stamp(repo.path());
+        let changed: BTreeSet<String> = m.content.git.changed_paths.iter().cloned().collect();
+        assert_eq!(changed, reference(repo.path()), "{what}");
+        let expected = if *what == "nothing" {
+            before
+        } else {
+            before + 1
+        };
+        assert_eq!(
+            git_starts(),
+            expected,
+            "{what}: git runs again only after a change"
+        );
+        assert_eq!(
+            m.content.git.commit,
+            Some(git(repo.path(), &["rev-parse", "HEAD"]).trim().to_string()),
+            "{what}"
+        );
+    }
 }

@@ -17,6 +17,7 @@ use sha2::{Digest, Sha256};
 
 use crate::cache::FileStamp;
 use crate::collect::change_cache::{self, ChangeCache};
+use crate::collect::status_cache;
 use crate::manifest::{hex, GitInfo, Submodule};
 use crate::redact::scrub_url_credentials;
 
@@ -152,23 +153,39 @@ pub fn collect(
         let failed = |e: String| format!("git: cannot read the work tree status: {e}");
         // Loaded while git's status runs.
         let digests = ChangeCache::open(cache.dir.as_deref(), root, cache.rehash);
+        let mut fresh = None;
         let entries = match started {
             Ok(Some(running)) => {
-                let (entries, said) = finish_git_status(root, control, running).map_err(failed)?;
+                let (entries, said, ran) =
+                    finish_git_status(root, control, running).map_err(failed)?;
                 warnings = said;
+                fresh = ran;
                 entries
             }
             Err(e) => return Err(failed(e)),
             Ok(None) => status_with_libgit2(&repo, root)
                 .map_err(|e| format!("git: cannot read the work tree status: {}", e.message()))?,
         };
-        untracked = Some(
-            entries
-                .iter()
-                .filter(|e| e.untracked)
-                .map(|e| e.path.clone())
-                .collect(),
-        );
+        let listed: Vec<String> = entries
+            .iter()
+            .filter(|e| e.untracked)
+            .map(|e| e.path.clone())
+            .collect();
+        if let (Some(dir_), Some(fresh)) = (cache.dir.as_deref(), fresh) {
+            if !cache.rehash {
+                status_cache::save(
+                    dir_,
+                    dir,
+                    &cache.env,
+                    Some(&fresh.program),
+                    &repo,
+                    &listed,
+                    &fresh.output,
+                    fresh.started_ns,
+                );
+            }
+        }
+        untracked = Some(listed);
         let (paths, digest, keep) = uncommitted_change(entries, &digests);
         digests.save(keep);
         info.dirty = !paths.is_empty();
@@ -219,7 +236,7 @@ struct StatusEntry {
 /// git finds the repository from any folder inside it, and its porcelain paths are relative to
 /// the work tree's root wherever it runs (git-status(1)), so it can start before the
 /// repository is opened.
-pub fn start_status(dir: &Path, control: &GitControl) -> Started {
+pub fn start_status(dir: &Path, control: &GitControl, kept: Option<KeptStatus<'_>>) -> Started {
     use std::process::{Command, Stdio};
     let search = control
         .path_env
@@ -228,7 +245,13 @@ pub fn start_status(dir: &Path, control: &GitControl) -> Started {
     let Some(program) = find_program("git", search.as_deref(), dir) else {
         return Ok(None);
     };
-    let mut cmd = Command::new(program);
+    if let Some(k) = kept {
+        if let Some(output) = status_cache::lookup(k.cache_dir, dir, k.env, Some(&program)) {
+            return Ok(Some(RunningStatus::Kept(output)));
+        }
+    }
+    let started_ns = crate::cache::now_ns();
+    let mut cmd = Command::new(&program);
     cmd.args([
         // A repository's configuration may name a file-system monitor program, which
         // `status` would run (git-config(1), `core.fsmonitor`): none is run.
@@ -262,7 +285,12 @@ pub fn start_status(dir: &Path, control: &GitControl) -> Started {
     let pipes = (child.stdout.take(), child.stderr.take());
     *slot = Some(child);
     match pipes {
-        (Some(stdout), Some(stderr)) => Ok(Some(RunningStatus { stdout, stderr })),
+        (Some(stdout), Some(stderr)) => Ok(Some(RunningStatus::Child {
+            stdout,
+            stderr,
+            program,
+            started_ns,
+        })),
         _ => Err("cannot read the output of `git`".into()),
     }
 }
@@ -318,22 +346,62 @@ pub fn abandon_git_status(control: &GitControl) {
 /// What [`start_status`] gives [`collect`].
 pub type Started = Result<Option<RunningStatus>, String>;
 
-/// A `git status` started by [`start_status`].
-pub struct RunningStatus {
-    stdout: std::process::ChildStdout,
-    stderr: std::process::ChildStderr,
+/// A `git status` started by [`start_status`], or its answer kept from an earlier stamp.
+pub enum RunningStatus {
+    /// The child's pipes, the program and when it started (wall clock, nanoseconds).
+    Child {
+        /// The child's standard output.
+        stdout: std::process::ChildStdout,
+        /// The child's standard error.
+        stderr: std::process::ChildStderr,
+        /// The `git` executable it runs.
+        program: PathBuf,
+        /// When it was started (wall clock, nanoseconds since the epoch).
+        started_ns: i128,
+    },
+    /// What `git status` answered for the same files ([`status_cache`]).
+    Kept(status_cache::Output),
 }
 
-/// Reads the output of a started `git status` and waits for it.
+/// Where [`start_status`] may find `git status`'s answer kept ([`status_cache`]), and the
+/// environment that decides which setting files it depends on.
+#[derive(Debug, Clone, Copy)]
+pub struct KeptStatus<'a> {
+    /// The cache folder.
+    pub cache_dir: &'a Path,
+    /// The environment the stamp reads.
+    pub env: &'a std::collections::BTreeMap<String, String>,
+}
+
+/// A `git status` that ran to its end this time: its output, its program and when it started
+/// (for [`status_cache::save`]).
+struct FreshStatus {
+    output: status_cache::Output,
+    program: PathBuf,
+    started_ns: i128,
+}
+
+/// The changed paths, git's warnings, and the status itself when it ran this time.
+type Finished = (Vec<StatusEntry>, Vec<String>, Option<FreshStatus>);
+
+/// Reads the output of a started `git status` and waits for it (or takes the answer kept).
 fn finish_git_status(
     root: &Path,
     control: &GitControl,
     running: RunningStatus,
-) -> Result<(Vec<StatusEntry>, Vec<String>), String> {
-    let RunningStatus {
-        mut stdout,
-        mut stderr,
-    } = running;
+) -> Result<Finished, String> {
+    let (mut stdout, mut stderr, program, started_ns) = match running {
+        RunningStatus::Kept(output) => {
+            let (entries, said) = parse_status(root, &output.stdout, &output.stderr);
+            return Ok((entries, said, None));
+        }
+        RunningStatus::Child {
+            stdout,
+            stderr,
+            program,
+            started_ns,
+        } => (stdout, stderr, program, started_ns),
+    };
     // Both pipes at once, so that neither can fill up and block git; a kill by
     // `GitControl::stop` closes them.
     let (out, err) = std::thread::scope(|s| {
@@ -367,9 +435,23 @@ fn finish_git_status(
             return Err(crate::redact::scrub_secrets(message.trim()));
         }
     }
+    let (entries, said) = parse_status(root, &out, &err);
+    let fresh = FreshStatus {
+        output: status_cache::Output {
+            stdout: out,
+            stderr: err,
+        },
+        program,
+        started_ns,
+    };
+    Ok((entries, said, Some(fresh)))
+}
+
+/// The entries and warnings of a successful `git status --porcelain=v1 -z`'s output.
+fn parse_status(root: &Path, out: &[u8], err: &[u8]) -> (Vec<StatusEntry>, Vec<String>) {
     // git goes on past a folder it cannot open, saying so on stderr ("warning: could not
     // open directory 'x/': Permission denied"): the files in it are missing from the list.
-    let said: Vec<String> = String::from_utf8_lossy(&err)
+    let said: Vec<String> = String::from_utf8_lossy(err)
         .lines()
         .filter_map(|l| l.trim().strip_prefix("warning:"))
         .map(|l| {
@@ -395,7 +477,7 @@ fn finish_git_status(
             abs,
         });
     }
-    Ok((entries, said))
+    (entries, said)
 }
 
 /// The same list through libgit2, for machines without the `git` executable.
@@ -447,6 +529,8 @@ pub struct CacheUse {
     pub dir: Option<PathBuf>,
     /// `--rehash`: hash every changed file again.
     pub rehash: bool,
+    /// The environment the stamp reads (which setting files git's status depends on).
+    pub env: std::collections::BTreeMap<String, String>,
 }
 
 /// Changed paths (tracked changes and untracked, not-ignored files), the digest over them, and

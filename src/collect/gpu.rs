@@ -66,6 +66,22 @@ impl GpuPaths {
 
 /// Collects the GPU section.
 pub fn collect(paths: &GpuPaths, scans: &[PythonScan], warnings: &mut Vec<String>) -> GpuInfo {
+    finish(probe(paths), scans, warnings)
+}
+
+/// What [`probe`] found on the machine itself: everything but the CUDA libraries that Python
+/// environments installed as wheels, which [`finish`] adds. The two halves let the probe run
+/// while the Python environments are read.
+pub struct Probe {
+    info: GpuInfo,
+    libraries: BTreeSet<GpuLibrary>,
+    warnings: Vec<String>,
+}
+
+/// The driver, toolkits, headers, libraries in the system's folders, and the devices.
+pub fn probe(paths: &GpuPaths) -> Probe {
+    let mut warnings = Vec::new();
+    let warnings = &mut warnings;
     let mut info = GpuInfo {
         nvidia_driver: crate::limits::read_regular_text(&paths.proc_nvidia.join("version"))
             .ok()
@@ -131,25 +147,6 @@ pub fn collect(paths: &GpuPaths, scans: &[PythonScan], warnings: &mut Vec<String
             }
         }
     }
-    // NVIDIA's CUDA wheels: the distribution's version is the library's.
-    for scan in scans {
-        for d in &scan.env.distributions {
-            let lib = match d.name.as_str() {
-                n if n.starts_with("nvidia-cudnn-") || n == "nvidia-cudnn" => "cudnn",
-                n if n.starts_with("nvidia-cublas-") || n == "nvidia-cublas" => "cublas",
-                n if n.starts_with("nvidia-nccl-") || n == "nvidia-nccl" => "nccl",
-                n if n.starts_with("nvidia-cuda-runtime") => "cudart",
-                _ => continue,
-            };
-            libraries.insert(GpuLibrary {
-                name: lib.into(),
-                version: d.version.clone(),
-                owner: d.name.clone(),
-                from: "metadata".into(),
-            });
-        }
-    }
-    info.libraries = libraries.into_iter().collect();
 
     // GPUs: the driver's per-device files, completed by nvidia-smi where it answers.
     let mut devices: BTreeMap<String, GpuDevice> = BTreeMap::new();
@@ -176,6 +173,41 @@ pub fn collect(paths: &GpuPaths, scans: &[PythonScan], warnings: &mut Vec<String
         }
     }
     info.devices = devices.into_values().collect();
+    Probe {
+        info,
+        libraries,
+        warnings: std::mem::take(warnings),
+    }
+}
+
+/// The GPU section: `probe`'s findings with the CUDA libraries of the Python environments'
+/// wheels; the probe's warnings join `warnings`.
+pub fn finish(probe: Probe, scans: &[PythonScan], warnings: &mut Vec<String>) -> GpuInfo {
+    let Probe {
+        mut info,
+        mut libraries,
+        warnings: found,
+    } = probe;
+    warnings.extend(found);
+    // NVIDIA's CUDA wheels: the distribution's version is the library's.
+    for scan in scans {
+        for d in &scan.env.distributions {
+            let lib = match d.name.as_str() {
+                n if n.starts_with("nvidia-cudnn-") || n == "nvidia-cudnn" => "cudnn",
+                n if n.starts_with("nvidia-cublas-") || n == "nvidia-cublas" => "cublas",
+                n if n.starts_with("nvidia-nccl-") || n == "nvidia-nccl" => "nccl",
+                n if n.starts_with("nvidia-cuda-runtime") => "cudart",
+                _ => continue,
+            };
+            libraries.insert(GpuLibrary {
+                name: lib.into(),
+                version: d.version.clone(),
+                owner: d.name.clone(),
+                from: "metadata".into(),
+            });
+        }
+    }
+    info.libraries = libraries.into_iter().collect();
     info
 }
 

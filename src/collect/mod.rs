@@ -23,6 +23,7 @@ pub mod patch;
 pub mod python;
 pub mod scope;
 pub mod stack_cache;
+pub mod status_cache;
 pub mod system;
 
 use std::collections::BTreeMap;
@@ -136,6 +137,7 @@ fn start_git_collector(
     let cache_use = git::CacheUse {
         dir: opts.data.cache_dir.clone(),
         rehash: opts.data.rehash,
+        env: opts.env.clone(),
     };
     let cache = cache_use.clone();
     let (repo, private, ctl, done_key, done) = (
@@ -263,74 +265,78 @@ impl GitPending {
 fn stamp_stack(opts: &StampOptions, content: &mut Content, warnings: &mut Vec<String>) {
     let timings = opts.env.contains_key("RUNPRINT_TIMINGS");
     let start = std::time::Instant::now();
-    let (interpreters, explicit) = if opts.python.is_empty() {
-        (
-            python::default_interpreter(&opts.env).into_iter().collect(),
-            false,
-        )
-    } else {
-        (opts.python.clone(), true)
-    };
-    let key = stack_cache::Key::new(&interpreters, explicit, opts.private, &opts.env);
-    let cache_dir = opts.data.cache_dir.as_deref();
-    let cached = cache_dir
-        .filter(|_| !opts.data.rehash)
-        .and_then(|dir| stack_cache::load(dir, &key));
-    let from_cache = cached.is_some();
-    let mut python_done = None;
-    let scanned = cached.unwrap_or_else(|| {
-        stack_cache::scan_and_save(cache_dir, &key, || {
-            let mut w = Vec::new();
-            let mut scans = Vec::new();
-            for interpreter in &interpreters {
-                match python::collect(interpreter, &opts.env, opts.private, &mut w) {
-                    Ok(scan) => scans.push(scan),
-                    // A default interpreter that cannot be read is not worth a warning; a
-                    // named one is.
-                    Err(e) if explicit => w.push(format!("python: {e}")),
-                    Err(_) => {}
+    // The GPU probe reads only the machine's own folders: it runs beside the Python and
+    // native parts (usually a cache check), and is completed with their findings below.
+    std::thread::scope(|s| {
+        let probe = s.spawn(|| gpu::probe(&gpu::GpuPaths::host(&opts.env)));
+        let (interpreters, explicit) = if opts.python.is_empty() {
+            (
+                python::default_interpreter(&opts.env).into_iter().collect(),
+                false,
+            )
+        } else {
+            (opts.python.clone(), true)
+        };
+        let key = stack_cache::Key::new(&interpreters, explicit, opts.private, &opts.env);
+        let cache_dir = opts.data.cache_dir.as_deref();
+        let cached = cache_dir
+            .filter(|_| !opts.data.rehash)
+            .and_then(|dir| stack_cache::load(dir, &key));
+        let from_cache = cached.is_some();
+        let mut python_done = None;
+        let scanned = cached.unwrap_or_else(|| {
+            stack_cache::scan_and_save(cache_dir, &key, || {
+                let mut w = Vec::new();
+                let mut scans = Vec::new();
+                for interpreter in &interpreters {
+                    match python::collect(interpreter, &opts.env, opts.private, &mut w) {
+                        Ok(scan) => scans.push(scan),
+                        // A default interpreter that cannot be read is not worth a warning; a
+                        // named one is.
+                        Err(e) if explicit => w.push(format!("python: {e}")),
+                        Err(_) => {}
+                    }
                 }
-            }
-            python_done = Some(std::time::Instant::now());
-            let native = native::collect(
-                &scans,
-                &opts.env,
-                opts.private,
-                &native::SystemPaths::host(),
-                &mut w,
-            );
-            stack_cache::Scanned {
-                scans,
-                native,
-                warnings: w,
-            }
-        })
-    });
-    let native_done = std::time::Instant::now();
-    warnings.extend(scanned.warnings);
-    content.python = scanned.scans.iter().map(|s| s.env.clone()).collect();
-    content.native = scanned.native;
-    content.gpu = Some(gpu::collect(
-        &gpu::GpuPaths::host(&opts.env),
-        &scanned.scans,
-        warnings,
-    ));
-    if timings {
-        let ms = |d: std::time::Duration| d.as_secs_f64() * 1e3;
-        match python_done {
-            Some(p) => eprintln!(
-                "timing: python {:.3} ms, native {:.3} ms, gpu {:.3} ms",
-                ms(p - start),
-                ms(native_done - p),
-                ms(native_done.elapsed())
-            ),
-            None => eprintln!(
+                python_done = Some(std::time::Instant::now());
+                let native = native::collect(
+                    &scans,
+                    &opts.env,
+                    opts.private,
+                    &native::SystemPaths::host(),
+                    &mut w,
+                );
+                stack_cache::Scanned {
+                    scans,
+                    native,
+                    warnings: w,
+                }
+            })
+        });
+        let native_done = std::time::Instant::now();
+        warnings.extend(scanned.warnings);
+        content.python = scanned.scans.iter().map(|s| s.env.clone()).collect();
+        content.native = scanned.native;
+        let probe = probe
+            .join()
+            .unwrap_or_else(|_| gpu::probe(&gpu::GpuPaths::host(&opts.env)));
+        content.gpu = Some(gpu::finish(probe, &scanned.scans, warnings));
+        if timings {
+            let ms = |d: std::time::Duration| d.as_secs_f64() * 1e3;
+            match python_done {
+                Some(p) => eprintln!(
+                    "timing: python {:.3} ms, native {:.3} ms, gpu {:.3} ms",
+                    ms(p - start),
+                    ms(native_done - p),
+                    ms(native_done.elapsed())
+                ),
+                None => eprintln!(
                 "timing: python and native {:.3} ms (from the cache: {from_cache}), gpu {:.3} ms",
                 ms(native_done - start),
                 ms(native_done.elapsed())
             ),
+            }
         }
-    }
+    });
 }
 
 /// Lets the numerical-stack thread yield the CPU to git's status, which is the longest step
@@ -364,8 +370,9 @@ fn timed<T>(on: bool, name: &str, f: impl FnOnce() -> T) -> T {
 /// The independent collectors run at the same time, each keeping its own warnings, merged
 /// afterwards in a fixed order so that the manifest does not depend on scheduling:
 ///
-/// * git's status (a child process) on one thread;
-/// * the numerical stack on another;
+/// * git's status (a child process, or its answer kept from an earlier stamp of the same
+///   unchanged checkout: [`status_cache`]) on one thread;
+/// * the numerical stack on another, the GPU probe beside it on a third;
 /// * on this one, the data digests, then the lockfiles found among the files in git's index,
 ///   the system, CPU and environment sections, while the status is still running. Untracked
 ///   files come only with the status; when one of them is a lockfile (or a `Cargo.toml`) the
@@ -387,7 +394,19 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
     let checked = git::preflight(&opts.repo).ok();
     let started = match &checked {
         None => Ok(None),
-        Some(_) => git::start_status(&opts.repo, &control),
+        Some(_) => {
+            // A warm stamp of an unchanged checkout takes git's answer from the cache.
+            let kept = opts
+                .data
+                .cache_dir
+                .as_deref()
+                .filter(|_| !opts.data.rehash)
+                .map(|cache_dir| git::KeptStatus {
+                    cache_dir,
+                    env: &opts.env,
+                });
+            git::start_status(&opts.repo, &control, kept)
+        }
     };
     let (work_tree, opened) = match checked.and_then(|c| git::work_tree(&opts.repo, &c)) {
         Some((root, repo)) => (Some((root, repo.path().join("index"))), Some(repo)),
