@@ -461,7 +461,14 @@ fn compare_native<'a>(old: &'a Content, new: &'a Content, out: &mut Vec<Change>)
     };
     let group = |c: &'a Content| -> BTreeMap<Key, Vec<&'a NativeLibrary>> {
         let mut m: BTreeMap<Key, Vec<&NativeLibrary>> = BTreeMap::new();
-        for l in &c.native.libraries {
+        // Older manifests list files that ship beside an OpenMP runtime without being one:
+        // not compared, so that a new stamp against such a baseline raises nothing.
+        let runtimes = c
+            .native
+            .libraries
+            .iter()
+            .filter(|l| !crate::stack::blas::is_beside_a_runtime(&l.file));
+        for l in runtimes {
             m.entry(key(l)).or_default().push(l);
         }
         m
@@ -666,6 +673,37 @@ mod tests {
             version: Some(version.into()),
             ..NativeLibrary::default()
         }
+    }
+
+    /// A baseline stamped before the files beside an OpenMP runtime were left out (the
+    /// intel-openmp wheel's `libomptarget.so`, `libiomp5_db.so`) against a new stamp of the
+    /// same environment: nothing to report. A runtime that really changed still is.
+    #[test]
+    fn files_beside_an_openmp_runtime_in_old_manifests_are_not_compared() {
+        let omp = |file: &str, implementation: &str, version: Option<&str>| NativeLibrary {
+            role: "openmp".into(),
+            implementation: implementation.into(),
+            owner: "intel-openmp".into(),
+            path: format!("../../{file}"),
+            file: file.into(),
+            version: version.map(str::to_string),
+            ..NativeLibrary::default()
+        };
+        let runtime = omp("libiomp5.so", "intel", Some("5.0.20260828"));
+        let mut old = Content::default();
+        old.native.libraries = vec![
+            runtime.clone(),
+            omp("libiomp5_db.so", "intel", None),
+            omp("libomptarget.so", "llvm", None),
+        ];
+        let mut new = Content::default();
+        new.native.libraries = vec![runtime.clone()];
+        let mut out = Vec::new();
+        compare(&old, &new, &ctx(), &mut out);
+        assert!(out.is_empty(), "{out:?}");
+        new.native.libraries[0].version = Some("5.0.20270101".into());
+        compare(&old, &new, &ctx(), &mut out);
+        assert_eq!(out.len(), 1, "{out:?}");
     }
 
     #[test]

@@ -42,6 +42,15 @@ impl Role {
     }
 }
 
+/// True for a file shipped beside an OpenMP runtime that is not one (see [`classify`]).
+/// Manifests written before these were left out list them; the diff ignores them there.
+pub fn is_beside_a_runtime(file_name: &str) -> bool {
+    let f = file_name.to_ascii_lowercase();
+    ["libiomp5_db", "libiompstubs", "libomptarget"]
+        .iter()
+        .any(|p| f.starts_with(p))
+}
+
 /// Classifies a library by its (real) file name; `dir` is the name of the folder it resolves
 /// into, used for the generic `libblas`/`liblapack` names.
 pub fn classify(file_name: &str, dir: &str) -> Option<(Role, &'static str)> {
@@ -61,6 +70,14 @@ pub fn classify(file_name: &str, dir: &str) -> Option<(Role, &'static str)> {
     }
     if is("libatlas") || is("libsatlas") || is("libtatlas") {
         return Some((Role::Blas, "atlas"));
+    }
+    // Shipped beside the OpenMP runtimes but not one themselves, so never the runtime a
+    // process threads with: Intel's debugger-support library (`libiomp5_db`) and serial stubs
+    // (`libiompstubs5`), LLVM's device-offloading runtime and its plugins (`libomptarget*`).
+    // (Value from memory of the Intel and LLVM OpenMP documentation; the file names are those
+    // of the intel-openmp 2026.2.0 wheel.)
+    if is_beside_a_runtime(&f) {
+        return None;
     }
     if is("libiomp") {
         return Some((Role::OpenMp, "intel"));
@@ -394,6 +411,28 @@ mod tests {
             classify("libgfortran-040039e1.so.5.0.0", "numpy.libs"),
             None
         );
+    }
+
+    /// The shared objects of PyPI's intel-openmp 2026.2.0 wheel (its file list, read
+    /// 2026-12-03): only `libiomp5.so` is an OpenMP runtime a process threads with.
+    #[test]
+    fn only_the_runtime_of_an_openmp_package_is_one() {
+        let wheel = [
+            "libarcher.so",
+            "libiomp5.so",
+            "libiomp5_db.so",
+            "libiompstubs5.so",
+            "libomptarget.so",
+            "libomptarget.sycl.wrap.so",
+        ];
+        let runtimes: Vec<&str> = wheel
+            .into_iter()
+            .filter(|f| classify(f, "lib").is_some())
+            .collect();
+        assert_eq!(runtimes, ["libiomp5.so"]);
+        // LLVM's offloading plugins, as Debian's libomp packages name them.
+        assert_eq!(classify("libomptarget.rtl.x86_64.so", "lib"), None);
+        assert_eq!(classify("libomp.so.5", "lib"), Some((Role::OpenMp, "llvm")));
     }
 
     #[test]
