@@ -377,10 +377,16 @@ fn compare_builds<'a>(
         let gpu = |x: &FrameworkBuild| (x.cuda.clone(), x.cudnn.clone(), x.rocm.clone());
         if gpu(a) != gpu(b) {
             let show = |x: &FrameworkBuild| {
+                // A CUDA build whose files do not say its cuDNN (torch's `version.py` does not)
+                // has one, of a version not recorded: not "none".
+                let cudnn = match (&x.cudnn, &x.cuda) {
+                    (Some(v), _) => v.as_str(),
+                    (None, Some(_)) => "not recorded",
+                    (None, None) => "none",
+                };
                 format!(
-                    "cuda {}, cudnn {}, rocm {}",
+                    "cuda {}, cudnn {cudnn}, rocm {}",
                     x.cuda.as_deref().unwrap_or("none"),
-                    x.cudnn.as_deref().unwrap_or("none"),
                     x.rocm.as_deref().unwrap_or("none")
                 )
             };
@@ -704,6 +710,40 @@ mod tests {
         new.native.libraries[0].version = Some("5.0.20270101".into());
         compare(&old, &new, &ctx(), &mut out);
         assert_eq!(out.len(), 1, "{out:?}");
+    }
+
+    /// torch's `version.py` names its CUDA but not its cuDNN: the report says the cuDNN of a
+    /// CUDA build is not recorded, not that there is none.
+    #[test]
+    fn an_unrecorded_cudnn_is_not_shown_as_none() {
+        let torch = |cuda: Option<&str>| FrameworkBuild {
+            name: "torch".into(),
+            version: Some("2.5.1".into()),
+            cuda: cuda.map(str::to_string),
+            ..FrameworkBuild::default()
+        };
+        let (mut a, mut b) = (Content::default(), Content::default());
+        a.python.push(PythonEnv {
+            interpreter: "p".into(),
+            builds: vec![torch(Some("12.4"))],
+            ..PythonEnv::default()
+        });
+        b.python.push(PythonEnv {
+            interpreter: "p".into(),
+            builds: vec![torch(None)],
+            ..PythonEnv::default()
+        });
+        let mut out = Vec::new();
+        compare(&a, &b, &ctx(), &mut out);
+        let row = out
+            .iter()
+            .find(|c| c.old.as_deref().is_some_and(|o| o.contains("cuda 12.4")))
+            .unwrap_or_else(|| panic!("{out:?}"));
+        assert_eq!(
+            row.old.as_deref(),
+            Some("cuda 12.4, cudnn not recorded, rocm none")
+        );
+        assert_eq!(row.new.as_deref(), Some("cuda none, cudnn none, rocm none"));
     }
 
     #[test]
