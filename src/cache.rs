@@ -271,6 +271,19 @@ impl FileStamp {
         self.mtime_ns >= limit || self.ctime_ns >= limit
     }
 
+    /// The stamp of `path`, following links; `None` when absent or unreadable.
+    pub fn of_path(path: &Path) -> Option<FileStamp> {
+        std::fs::metadata(path).ok().map(|m| FileStamp::of(&m))
+    }
+
+    /// The stamp of `path` itself (a link's own, not its target's); `None` when absent or
+    /// unreadable.
+    pub fn of_link(path: &Path) -> Option<FileStamp> {
+        std::fs::symlink_metadata(path)
+            .ok()
+            .map(|m| FileStamp::of(&m))
+    }
+
     /// Reads a file's stamp from its metadata.
     pub fn of(meta: &std::fs::Metadata) -> FileStamp {
         #[cfg(unix)]

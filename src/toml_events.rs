@@ -51,7 +51,6 @@ pub fn from_str_in_pieces<'a, T: de::Deserialize<'a>>(text: &'a str, piece: usiz
     // events are held at a time, whatever the size of the text.
     let mut reader = Reader {
         source: Source::new(text),
-        text,
         piece,
         next_start: 0,
         tokens: Vec::new(),
@@ -321,7 +320,6 @@ impl de::Error for GiveUp {
 struct Reader<'a> {
     /// The whole text: events' spans are spans of it.
     source: Source<'a>,
-    text: &'a str,
     /// The least size of a piece.
     piece: usize,
     /// Where the next piece to parse begins; the text's length when all are parsed.
@@ -349,17 +347,18 @@ impl<'a> Reader<'a> {
     /// Replaces the events with the next piece's that has any; false when none is left or
     /// the piece does not parse (then `broken`).
     fn parse_next_piece(&mut self) -> bool {
-        while !self.broken && self.next_start < self.text.len() {
+        let text = self.source.input();
+        while !self.broken && self.next_start < text.len() {
             let start = self.next_start;
-            let end = piece_end(self.text, start, self.piece);
+            let end = piece_end(text, start, self.piece);
             self.next_start = end;
             let collect = &mut self.collect;
             collect.events.clear();
             self.pos = 0;
-            collect.source = Source::new(&self.text[start..end]);
+            collect.source = Source::new(&text[start..end]);
             collect.offset = start;
             let headers = collect.headers.len();
-            if plain::scan(collect, &self.text[start..end]) {
+            if plain::scan(collect, &text[start..end]) {
                 if !collect.events.is_empty() {
                     return true;
                 }
@@ -642,7 +641,7 @@ impl<'de> de::SeqAccess<'de> for ArrayOfTables<'_, 'de> {
     fn size_hint(&self) -> Option<usize> {
         let reader = &*self.reader;
         let first = reader.collect.headers.get(self.first)?;
-        let text = reader.text;
+        let text = reader.source.input();
         let line_at = |at: usize| {
             let rest = &text[at..];
             rest[..memchr::memchr(b'\n', rest.as_bytes()).unwrap_or(rest.len())].trim_end()

@@ -153,37 +153,28 @@ pub fn collect(
         let failed = |e: String| format!("git: cannot read the work tree status: {e}");
         // Loaded while git's status runs.
         let digests = ChangeCache::open(cache.dir.as_deref(), root, cache.rehash);
-        let mut fresh = None;
-        let entries = match started {
+        let (entries, fresh) = match started {
             Ok(Some(running)) => {
-                let (entries, said, ran) =
+                let (entries, said, fresh) =
                     finish_git_status(root, control, running).map_err(failed)?;
                 warnings = said;
-                fresh = ran;
-                entries
+                (entries, fresh)
             }
             Err(e) => return Err(failed(e)),
-            Ok(None) => status_with_libgit2(&repo, root)
-                .map_err(|e| format!("git: cannot read the work tree status: {}", e.message()))?,
+            Ok(None) => (
+                status_with_libgit2(&repo, root).map_err(|e| {
+                    format!("git: cannot read the work tree status: {}", e.message())
+                })?,
+                None,
+            ),
         };
         let listed: Vec<String> = entries
             .iter()
             .filter(|e| e.untracked)
             .map(|e| e.path.clone())
             .collect();
-        if let (Some(dir_), Some(fresh)) = (cache.dir.as_deref(), fresh) {
-            if !cache.rehash {
-                status_cache::save(
-                    dir_,
-                    dir,
-                    &cache.env,
-                    Some(&fresh.program),
-                    &repo,
-                    &listed,
-                    &fresh.output,
-                    fresh.started_ns,
-                );
-            }
+        if let (Some(cache_dir), Some(fresh)) = (cache.kept_dir(), fresh) {
+            status_cache::save(cache_dir, dir, &cache.env, &repo, &listed, &fresh);
         }
         untracked = Some(listed);
         let (paths, digest, keep) = uncommitted_change(entries, &digests);
@@ -236,7 +227,7 @@ struct StatusEntry {
 /// git finds the repository from any folder inside it, and its porcelain paths are relative to
 /// the work tree's root wherever it runs (git-status(1)), so it can start before the
 /// repository is opened.
-pub fn start_status(dir: &Path, control: &GitControl, kept: Option<KeptStatus<'_>>) -> Started {
+pub fn start_status(dir: &Path, control: &GitControl, cache: &CacheUse) -> Started {
     use std::process::{Command, Stdio};
     let search = control
         .path_env
@@ -245,8 +236,9 @@ pub fn start_status(dir: &Path, control: &GitControl, kept: Option<KeptStatus<'_
     let Some(program) = find_program("git", search.as_deref(), dir) else {
         return Ok(None);
     };
-    if let Some(k) = kept {
-        if let Some(output) = status_cache::lookup(k.cache_dir, dir, k.env, Some(&program)) {
+    // A warm stamp of an unchanged checkout takes git's answer from the cache.
+    if let Some(cache_dir) = cache.kept_dir() {
+        if let Some(output) = status_cache::lookup(cache_dir, dir, &cache.env, Some(&program)) {
             return Ok(Some(RunningStatus::Kept(output)));
         }
     }
@@ -363,26 +355,8 @@ pub enum RunningStatus {
     Kept(status_cache::Output),
 }
 
-/// Where [`start_status`] may find `git status`'s answer kept ([`status_cache`]), and the
-/// environment that decides which setting files it depends on.
-#[derive(Debug, Clone, Copy)]
-pub struct KeptStatus<'a> {
-    /// The cache folder.
-    pub cache_dir: &'a Path,
-    /// The environment the stamp reads.
-    pub env: &'a std::collections::BTreeMap<String, String>,
-}
-
-/// A `git status` that ran to its end this time: its output, its program and when it started
-/// (for [`status_cache::save`]).
-struct FreshStatus {
-    output: status_cache::Output,
-    program: PathBuf,
-    started_ns: i128,
-}
-
 /// The changed paths, git's warnings, and the status itself when it ran this time.
-type Finished = (Vec<StatusEntry>, Vec<String>, Option<FreshStatus>);
+type Finished = (Vec<StatusEntry>, Vec<String>, Option<status_cache::Fresh>);
 
 /// Reads the output of a started `git status` and waits for it (or takes the answer kept).
 fn finish_git_status(
@@ -436,7 +410,7 @@ fn finish_git_status(
         }
     }
     let (entries, said) = parse_status(root, &out, &err);
-    let fresh = FreshStatus {
+    let fresh = status_cache::Fresh {
         output: status_cache::Output {
             stdout: out,
             stderr: err,
@@ -531,6 +505,13 @@ pub struct CacheUse {
     pub rehash: bool,
     /// The environment the stamp reads (which setting files git's status depends on).
     pub env: std::collections::BTreeMap<String, String>,
+}
+
+impl CacheUse {
+    /// The folder whose kept answers may be used and replaced: none under `--rehash`.
+    pub fn kept_dir(&self) -> Option<&Path> {
+        self.dir.as_deref().filter(|_| !self.rehash)
+    }
 }
 
 /// Changed paths (tracked changes and untracked, not-ignored files), the digest over them, and

@@ -72,6 +72,7 @@ pub fn collect(paths: &GpuPaths, scans: &[PythonScan], warnings: &mut Vec<String
 /// What [`probe`] found on the machine itself: everything but the CUDA libraries that Python
 /// environments installed as wheels, which [`finish`] adds. The two halves let the probe run
 /// while the Python environments are read.
+#[derive(Default)]
 pub struct Probe {
     info: GpuInfo,
     libraries: BTreeSet<GpuLibrary>,
@@ -81,7 +82,6 @@ pub struct Probe {
 /// The driver, toolkits, headers, libraries in the system's folders, and the devices.
 pub fn probe(paths: &GpuPaths) -> Probe {
     let mut warnings = Vec::new();
-    let warnings = &mut warnings;
     let mut info = GpuInfo {
         nvidia_driver: crate::limits::read_regular_text(&paths.proc_nvidia.join("version"))
             .ok()
@@ -176,7 +176,17 @@ pub fn probe(paths: &GpuPaths) -> Probe {
     Probe {
         info,
         libraries,
-        warnings: std::mem::take(warnings),
+        warnings,
+    }
+}
+
+impl Probe {
+    /// What is left of a probe that stopped unexpectedly: nothing but the warning.
+    pub fn stopped() -> Probe {
+        Probe {
+            warnings: vec!["gpu: the probe stopped unexpectedly".into()],
+            ..Probe::default()
+        }
     }
 }
 

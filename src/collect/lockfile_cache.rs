@@ -259,7 +259,7 @@ impl LockfileCache {
         list: impl FnOnce() -> Option<Vec<String>>,
     ) -> Option<Vec<String>> {
         let started = SystemTime::now();
-        let stamp = stamp_of(index);
+        let stamp = FileStamp::of_path(index);
         if let (Some(old), Some(stamp)) = (&self.old_listing, stamp) {
             if old.index == index && old.stamp == stamp {
                 self.listing = Some(old.clone());
@@ -269,7 +269,7 @@ impl LockfileCache {
         }
         let candidates: Vec<String> = list()?.into_iter().filter(|f| is_candidate(f)).collect();
         // Metadata taken after the reading, trusted only if older than the racy window.
-        let now = stamp_of(index);
+        let now = FileStamp::of_path(index);
         self.listing = match now {
             Some(s) if now == stamp && !recent(&s, started) => Some(Listing {
                 index: index.to_path_buf(),
@@ -290,7 +290,7 @@ impl LockfileCache {
         let current = |e: &Entry| {
             e.inputs.first().is_some_and(|(p, _)| p == abs)
                 && e.manifests == manifests
-                && e.inputs.iter().all(|(p, s)| stamp_of(p) == *s)
+                && e.inputs.iter().all(|(p, s)| FileStamp::of_path(p) == *s)
         };
         let result = |e: &Entry| {
             (
@@ -331,7 +331,7 @@ impl LockfileCache {
         paths.extend(inputs.manifests.iter().cloned());
         let mut stamped = Vec::with_capacity(paths.len());
         for p in paths {
-            let s = stamp_of(&p);
+            let s = FileStamp::of_path(&p);
             if s.is_some_and(|s| recent(&s, started)) {
                 return None;
             }
@@ -416,11 +416,6 @@ pub fn is_candidate(path: &str) -> bool {
     name == "Cargo.toml" || crate::lockfile::Format::detect_path(path).is_some()
 }
 
-/// Metadata following links, as the readers open files; `None` when absent or unreadable.
-fn stamp_of(path: &Path) -> Option<FileStamp> {
-    std::fs::metadata(path).ok().map(|m| FileStamp::of(&m))
-}
-
 /// Modified (or its status changed) less than the racy window before `started`, or later.
 fn recent(s: &FileStamp, started: SystemTime) -> bool {
     started
@@ -451,7 +446,7 @@ mod tests {
         // Read long after it was written (as if): kept, with its metadata.
         let later = now + std::time::Duration::from_secs(5);
         let e = LockfileCache::entry("a", &lock, inputs(), later, &result()).unwrap();
-        assert_eq!(e.inputs[0].1, stamp_of(&lock));
+        assert_eq!(e.inputs[0].1, FileStamp::of_path(&lock));
         // A result its reader marks as not reusable is never kept.
         let mut no = inputs();
         no.reusable = false;

@@ -111,6 +111,7 @@ fn start_git_collector(
     control: std::sync::Arc<git::GitControl>,
     started: git::Started,
     opened: Option<git2::Repository>,
+    cache_use: git::CacheUse,
 ) -> GitPending {
     let secs = opts
         .env
@@ -134,11 +135,6 @@ fn start_git_collector(
     // Set by the thread when it ends, under the STUCK_GIT lock, so that the watchdog never
     // marks as stuck a thread that has just finished.
     let finished = std::sync::Arc::new(std::sync::atomic::AtomicBool::new(false));
-    let cache_use = git::CacheUse {
-        dir: opts.data.cache_dir.clone(),
-        rehash: opts.data.rehash,
-        env: opts.env.clone(),
-    };
     let cache = cache_use.clone();
     let (repo, private, ctl, done_key, done) = (
         opts.repo.clone(),
@@ -316,9 +312,7 @@ fn stamp_stack(opts: &StampOptions, content: &mut Content, warnings: &mut Vec<St
         warnings.extend(scanned.warnings);
         content.python = scanned.scans.iter().map(|s| s.env.clone()).collect();
         content.native = scanned.native;
-        let probe = probe
-            .join()
-            .unwrap_or_else(|_| gpu::probe(&gpu::GpuPaths::host(&opts.env)));
+        let probe = probe.join().unwrap_or_else(|_| gpu::Probe::stopped());
         content.gpu = Some(gpu::finish(probe, &scanned.scans, warnings));
         if timings {
             let ms = |d: std::time::Duration| d.as_secs_f64() * 1e3;
@@ -392,21 +386,14 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
     // A FIFO or device where git reads (its index, a configuration include) would hold git
     // and libgit2 forever: then neither starts, and the git collector reports the file.
     let checked = git::preflight(&opts.repo).ok();
+    let cache_use = git::CacheUse {
+        dir: opts.data.cache_dir.clone(),
+        rehash: opts.data.rehash,
+        env: opts.env.clone(),
+    };
     let started = match &checked {
         None => Ok(None),
-        Some(_) => {
-            // A warm stamp of an unchanged checkout takes git's answer from the cache.
-            let kept = opts
-                .data
-                .cache_dir
-                .as_deref()
-                .filter(|_| !opts.data.rehash)
-                .map(|cache_dir| git::KeptStatus {
-                    cache_dir,
-                    env: &opts.env,
-                });
-            git::start_status(&opts.repo, &control, kept)
-        }
+        Some(_) => git::start_status(&opts.repo, &control, &cache_use),
     };
     let (work_tree, opened) = match checked.and_then(|c| git::work_tree(&opts.repo, &c)) {
         Some((root, repo)) => (Some((root, repo.path().join("index"))), Some(repo)),
@@ -444,7 +431,7 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
         };
     let mut lock_cache = lockfile_cache::LockfileCache::disabled();
     let git_started = std::time::Instant::now();
-    let git = start_git_collector(opts, control, started, opened);
+    let git = start_git_collector(opts, control, started, opened, cache_use);
     let (git_result, mut content, early, mut prepared, early_warnings) = std::thread::scope(|s| {
         let stack = s.spawn(|| {
             lower_this_threads_priority();

@@ -42,6 +42,17 @@ const CACHE_VERSION: u32 = 1;
 /// refresh is then the faster way).
 pub const MAX_PATHS: usize = 4000;
 
+/// A `git status` that ran to its end this time: what it printed, the `git` it ran and when
+/// it started (wall clock, nanoseconds since the epoch).
+pub struct Fresh {
+    /// What it printed.
+    pub output: Output,
+    /// The `git` executable it ran.
+    pub program: PathBuf,
+    /// When it started.
+    pub started_ns: i128,
+}
+
 /// What `git status` printed.
 #[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
 pub struct Output {
@@ -62,7 +73,7 @@ struct CacheFile {
     output: Output,
 }
 
-/// The work tree's root and its `.git` folder when the layout is plain enough to cache (see
+/// The root of the work tree containing `dir` when its layout is plain enough to cache (see
 /// the module docs); `None` otherwise.
 fn plain_layout(dir: &Path, env: &std::collections::BTreeMap<String, String>) -> Option<PathBuf> {
     // git's variables for networking, identities, editors and tracing do not touch a
@@ -153,12 +164,6 @@ fn setting_files(
     files
 }
 
-fn stamp_of(path: &Path) -> Option<FileStamp> {
-    std::fs::symlink_metadata(path)
-        .ok()
-        .map(|m| FileStamp::of(&m))
-}
-
 /// The kept answer for the work tree containing `dir`, when everything that decides it is as
 /// it was; `None` otherwise (then `git status` runs).
 pub fn lookup(
@@ -181,36 +186,36 @@ pub fn lookup(
     if !settings.iter().zip(recorded).all(|(a, b)| a == b) || file.sources.len() < settings.len() {
         return None;
     }
-    let same = file.sources.iter().all(|(p, stamp)| stamp_of(p) == *stamp);
+    let same = file
+        .sources
+        .iter()
+        .all(|(p, stamp)| FileStamp::of_link(p) == *stamp);
     if same {
         crate::cache::mark_used(&path);
     }
     same.then_some(file.output)
 }
 
-/// Keeps `output`, the answer of a `git status` started at `started_ns` (wall clock,
-/// nanoseconds) in `dir`, when the layout is plain and nothing that decides it changed too
-/// recently. `tracked` are the index's paths; `untracked` those git listed. Best effort.
-#[allow(clippy::too_many_arguments)]
+/// Keeps what `fresh`, a `git status` run in `dir`, answered, when the layout is plain and
+/// nothing that decides the answer changed too recently. `untracked` are the paths git listed
+/// as untracked; the tracked ones come from `repo`'s index. Best effort.
 pub fn save(
     cache_dir: &Path,
     dir: &Path,
     env: &std::collections::BTreeMap<String, String>,
-    git_program: Option<&Path>,
     repo: &git2::Repository,
     untracked: &[String],
-    output: &Output,
-    started_ns: i128,
+    fresh: &Fresh,
 ) {
     let Some(root) = plain_layout(dir, env) else {
         return;
     };
-    let Some(sources) = sources(&root, env, git_program, repo, untracked) else {
+    let Some(sources) = sources(&root, env, Some(&fresh.program), repo, untracked) else {
         return;
     };
     let racy = sources
         .iter()
-        .any(|(_, s)| s.is_some_and(|s| s.is_racy(started_ns)));
+        .any(|(_, s)| s.is_some_and(|s| s.is_racy(fresh.started_ns)));
     if racy {
         return;
     }
@@ -219,7 +224,7 @@ pub fn save(
         version: CACHE_VERSION,
         root: root.clone(),
         sources,
-        output: output.clone(),
+        output: fresh.output.clone(),
     };
     if let Ok(text) = serde_json::to_vec(&file) {
         let path = crate::cache::per_repository_file(cache_dir, "status", &root);
@@ -309,5 +314,12 @@ fn sources(
     if all.len() > 3 * MAX_PATHS {
         return None;
     }
-    Some(all.into_iter().map(|p| (p.clone(), stamp_of(&p))).collect())
+    Some(
+        all.into_iter()
+            .map(|p| {
+                let stamp = FileStamp::of_link(&p);
+                (p, stamp)
+            })
+            .collect(),
+    )
 }
