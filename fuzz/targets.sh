@@ -30,6 +30,7 @@ seeds() { # target -> seed folders
     pixi_lock) echo tests/corpus/pixi.lock ;;
     manifest) echo tests/corpus/manifest tests/corpus/manifest-json fixtures/demo ;;
     policy) echo fuzz/seeds/policy ;;
+    openblas_library) echo fuzz/seeds/openblas ;;
     *) echo "fuzz: no seeds listed for target $1 (fuzz/targets.sh)" >&2; return 1 ;;
   esac
 }

@@ -620,9 +620,19 @@ pub struct NativeLibrary {
     /// Largest thread count it was built for.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub max_threads: Option<u32>,
-    /// The kernel family it will pick on this CPU (predicted for dynamic-architecture builds).
+    /// Written by earlier versions: the family `OPENBLAS_CORETYPE` named, which is not always
+    /// the one that runs. Read for old manifests, no longer written nor compared.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub architecture: Option<String>,
+    /// The kernel family it runs, spelled as the library reports it: for a
+    /// dynamic-architecture OpenBLAS, the one its dispatcher picks on this CPU with
+    /// `OPENBLAS_CORETYPE` as set ([`crate::stack::openblas_core`]); for a build for one CPU,
+    /// that CPU's.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub kernel_family: Option<String>,
+    /// `OPENBLAS_CORETYPE` as set: the family asked for (the library may run another).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub requested_kernel_family: Option<String>,
     /// Compiler or symbol-version facts that stand in for a version (OpenMP runtimes).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub build_hint: Option<String>,

@@ -244,8 +244,26 @@ fn openblas_and_blis_query_functions_are_decoded() {
     // Shared objects exporting the query functions threadpoolctl calls, compiled here: the
     // values the C code returns are the reference.
     let dir = tempfile::tempdir().unwrap();
-    let openblas = "const char *openblas_get_config(void) { return \"OpenBLAS 0.3.99 DYNAMIC_ARCH USE_OPENMP \"; }\n\
-                    int openblas_get_parallel(void) { return 2; }\n";
+    // The shape of OpenBLAS's `driver/others/openblas_get_config.c` (v0.3.28): the constant
+    // part copied into a static buffer (compilers inline the copy as immediate and vector
+    // stores), the kernel name appended at run time, then " MAX_THREADS=%d" with
+    // MAX_CPU_NUMBER; the kernel tables of a DYNAMIC_LIST build exported as `gotoblas_*`.
+    let openblas = "#include <stdio.h>\n#include <string.h>\n\
+                    typedef struct { int dtb_entries; } gotoblas_t;\n\
+                    gotoblas_t gotoblas_PRESCOTT, gotoblas_NEHALEM, gotoblas_SANDYBRIDGE, gotoblas_HASWELL, gotoblas_SKYLAKEX;\n\
+                    char *gotoblas_corename(void);\n\
+                    int openblas_get_parallel(void) { return 2; }\n\
+                    static char tmp_config_str[256];\n\
+                    char *openblas_get_config(void) {\n\
+                      char tmpstr[20];\n\
+                      strcpy(tmp_config_str, \"OpenBLAS 0.3.99 DYNAMIC_ARCH NO_AFFINITY USE_OPENMP \");\n\
+                      strcat(tmp_config_str, gotoblas_corename());\n\
+                      if (openblas_get_parallel() == 0) sprintf(tmpstr, \" SINGLE_THREADED\");\n\
+                      else snprintf(tmpstr, 19, \" MAX_THREADS=%d\", 128);\n\
+                      strcat(tmp_config_str, tmpstr);\n\
+                      return tmp_config_str;\n\
+                    }\n\
+                    char *gotoblas_corename(void) { return \"Haswell\"; }\n";
     let blis = "const char *bli_info_get_version_str(void) { return \"1.2.3\"; }\n\
                 int bli_info_get_enable_openmp(void) { return 0; }\n\
                 int bli_info_get_enable_pthreads(void) { return 1; }\n";
@@ -279,7 +297,17 @@ fn openblas_and_blis_query_functions_are_decoded() {
     assert_eq!(ob.version.as_deref(), Some("0.3.99"));
     assert_eq!(ob.threading_layer.as_deref(), Some("openmp"));
     assert_eq!(ob.dynamic_arch, Some(true));
-    assert_eq!(ob.architecture.as_deref(), Some("Zen"));
+    assert_eq!(
+        ob.build_config.as_deref(),
+        Some("DYNAMIC_ARCH NO_AFFINITY USE_OPENMP")
+    );
+    assert_eq!(ob.max_threads, Some(128));
+    // Asked for Zen; a build without Zen tables runs Haswell's (dynamic.c's
+    // `#define gotoblas_ZEN gotoblas_HASWELL` for DYNAMIC_LIST builds), on any x86-64 CPU.
+    assert_eq!(ob.requested_kernel_family.as_deref(), Some("zen"));
+    if cfg!(target_arch = "x86_64") {
+        assert_eq!(ob.kernel_family.as_deref(), Some("Haswell"));
+    }
     let bl = get("blis");
     assert_eq!(bl.version.as_deref(), Some("1.2.3"));
     assert_eq!(bl.threading_layer.as_deref(), Some("pthreads"));

@@ -106,6 +106,20 @@ fn distributions_equal_importlib_metadata() {
     assert_eq!(ours, theirs);
 }
 
+/// The manifest's entry for the library a reference found at `filepath`, and its file name.
+fn library_at<'a>(ours: &'a [Value], filepath: &Value) -> (String, &'a Value) {
+    let file = Path::new(filepath.as_str().unwrap())
+        .file_name()
+        .unwrap()
+        .to_string_lossy()
+        .into_owned();
+    let lib = ours
+        .iter()
+        .find(|l| l["file"] == file.as_str())
+        .unwrap_or_else(|| panic!("runprint did not find {file}; it found {ours:#?}"));
+    (file, lib)
+}
+
 /// threadpoolctl's view after importing the packages that load BLAS and OpenMP.
 const THREADPOOLCTL: &str =
     "import json, numpy, scipy.linalg, sklearn.utils._openmp_helpers, threadpoolctl\n\
@@ -123,15 +137,7 @@ fn check_against_threadpoolctl(python: &Path, coretype: Option<&str>) {
         "threadpoolctl found too little: {reference}"
     );
     for entry in entries {
-        let file = Path::new(entry["filepath"].as_str().unwrap())
-            .file_name()
-            .unwrap()
-            .to_string_lossy()
-            .into_owned();
-        let lib = ours
-            .iter()
-            .find(|l| l["file"] == file.as_str())
-            .unwrap_or_else(|| panic!("runprint did not find {file}; it found {ours:#?}"));
+        let (file, lib) = library_at(ours, &entry["filepath"]);
         match entry["user_api"].as_str().unwrap() {
             "openmp" => assert_eq!(lib["role"], "openmp", "{file}"),
             _ => {
@@ -149,17 +155,9 @@ fn check_against_threadpoolctl(python: &Path, coretype: Option<&str>) {
             assert_eq!(lib["threading-layer"], *layer, "threading layer of {file}");
         }
         if let Some(arch) = entry.get("architecture") {
-            match coretype {
-                // Forced by the variable: runprint must say which kernels will run.
-                Some(_) => assert_eq!(lib["architecture"], *arch, "architecture of {file}"),
-                // Chosen at load time from the CPU by a dynamic-architecture build: runprint
-                // records the inputs (CPU, build) and must not claim a family.
-                None => assert!(
-                    lib.get("architecture").is_none() || lib["architecture"] == *arch,
-                    "{file}: claimed {} but threadpoolctl saw {arch}",
-                    lib["architecture"]
-                ),
-            }
+            // Forced by the variable or chosen from the CPU at load time: runprint must say
+            // which kernels run.
+            assert_eq!(lib["kernel-family"], *arch, "kernel family of {file}");
         }
     }
 }
@@ -224,5 +222,147 @@ fn numpy_major_change_is_a_retrain_naming_numpy_and_its_blas() {
             blas.contains(of[1].as_str().unwrap()) && blas.contains(nf[1].as_str().unwrap()),
             "{blas}"
         );
+    }
+}
+
+/// threadpoolctl's `architecture` and the whole `openblas_get_config()` (called through
+/// ctypes under every prefix and suffix the wheels use) of each OpenBLAS the packages load.
+const OPENBLAS_REFERENCE: &str = r#"
+import ctypes, json, importlib, threadpoolctl
+for m in ('numpy', 'scipy.linalg'):
+    try:
+        importlib.import_module(m)
+    except ImportError:
+        pass
+out = []
+for i in threadpoolctl.threadpool_info():
+    if i['internal_api'] != 'openblas':
+        continue
+    lib = ctypes.CDLL(i['filepath'])
+    config = None
+    for p in ('', 'scipy_'):
+        for s in ('', '64_', '_64'):
+            f = getattr(lib, p + 'openblas_get_config' + s, None)
+            if f is not None and config is None:
+                f.restype = ctypes.c_char_p
+                config = f().decode()
+    out.append([i['filepath'], i['architecture'], config])
+print(json.dumps(out))
+"#;
+
+/// Every spelling OpenBLAS's `force_coretype` (driver/others/dynamic.c) treats in its own way:
+/// each of the names it accepts (compared without case), names it does not accept or that
+/// carry spaces (ignored: the CPU decides through the feature fallback), empty, and unset.
+fn coretype_values() -> Vec<Option<String>> {
+    let names = [
+        "Katmai",
+        "Coppermine",
+        "Northwood",
+        "Prescott",
+        "Banias",
+        "Atom",
+        "Core2",
+        "Penryn",
+        "Dunnington",
+        "Nehalem",
+        "Athlon",
+        "Opteron",
+        "Opteron_SSE3",
+        "Barcelona",
+        "Nano",
+        "Sandybridge",
+        "Bobcat",
+        "Bulldozer",
+        "Piledriver",
+        "Haswell",
+        "Steamroller",
+        "Excavator",
+        "Zen",
+        "SkylakeX",
+        "Cooperlake",
+        "SapphireRapids",
+    ];
+    let mut v: Vec<Option<String>> = names.iter().map(|n| Some(n.to_string())).collect();
+    for odd in ["HASWELL", "skylakex", "Haswell ", " Zen", "", "Pentium9"] {
+        v.push(Some(odd.to_string()));
+    }
+    v.push(None);
+    v
+}
+
+/// For every value: the kernel family runprint records for each OpenBLAS equals the
+/// `architecture` threadpoolctl reads from the loaded library, and runprint's
+/// version, option list, kernel family and thread limit put together give back the string
+/// the library's own `openblas_get_config()` returns.
+fn kernel_families_equal_the_loaded_libraries(python: &Path) {
+    let values = coretype_values();
+    let results: Vec<(Option<String>, Value, Value)> = std::thread::scope(|scope| {
+        let handles: Vec<_> = values
+            .chunks(values.len().div_ceil(4))
+            .map(|chunk| {
+                scope.spawn(move || {
+                    chunk
+                        .iter()
+                        .map(|v| {
+                            let v_ref = v.as_deref();
+                            (
+                                v.clone(),
+                                python_json(python, OPENBLAS_REFERENCE, v_ref),
+                                stamp(python, v_ref),
+                            )
+                        })
+                        .collect::<Vec<_>>()
+                })
+            })
+            .collect();
+        handles
+            .into_iter()
+            .flat_map(|h| h.join().unwrap())
+            .collect()
+    });
+    for (value, reference, manifest) in results {
+        let ours = manifest["native"]["libraries"].as_array().unwrap();
+        let entries = reference.as_array().unwrap();
+        assert!(!entries.is_empty(), "no OpenBLAS loaded: {reference}");
+        for entry in entries {
+            let (file, lib) = library_at(ours, &entry[0]);
+            assert_eq!(
+                lib["kernel-family"], entry[1],
+                "OPENBLAS_CORETYPE={value:?}: kernel family of {file}"
+            );
+            assert_eq!(
+                lib.get("requested-kernel-family").and_then(Value::as_str),
+                value.as_deref(),
+                "{file}"
+            );
+            let mut rebuilt = format!(
+                "OpenBLAS {} {} {}",
+                lib["version"].as_str().unwrap(),
+                lib["build-config"].as_str().expect("a whole option list"),
+                lib["kernel-family"].as_str().unwrap()
+            );
+            match lib.get("max-threads") {
+                Some(n) => rebuilt.push_str(&format!(" MAX_THREADS={n}")),
+                None => rebuilt.push_str(" SINGLE_THREADED"),
+            }
+            let words = |s: &str| s.split_whitespace().map(str::to_string).collect::<Vec<_>>();
+            assert_eq!(
+                words(&rebuilt),
+                words(entry[2].as_str().unwrap()),
+                "OPENBLAS_CORETYPE={value:?}: configuration of {file}"
+            );
+        }
+    }
+}
+
+#[test]
+fn kernel_families_and_build_strings_equal_the_loaded_openblas() {
+    for var in [
+        "RUNPRINT_TEST_STACK_PYTHON",
+        "RUNPRINT_TEST_STACK_PYTHON_OLD",
+    ] {
+        if let Some(python) = interpreter(var) {
+            kernel_families_equal_the_loaded_libraries(&python);
+        }
     }
 }

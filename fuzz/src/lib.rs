@@ -122,3 +122,17 @@ pub fn policy(data: &[u8]) {
         assert!(e.to_string().contains("fuzz/runprint.toml"), "{e}");
     }
 }
+
+/// Reads the fuzzer's bytes as an OpenBLAS library file, as the native collector does: its
+/// configuration from the code of `openblas_get_config` or from constants, its thread limit
+/// and kernel tables; then follows the bytes as x86-64 code from their first byte. Nothing
+/// may panic, whatever the headers, symbols or instructions say.
+pub fn openblas_library(data: &[u8]) {
+    use runprint::stack::{blas, elf::ElfFile, x86};
+    let elf = ElfFile::parse(data).ok();
+    let _ = blas::read_openblas(elf.as_ref(), data);
+    if let Some(e) = &elf {
+        let _ = x86::string_built_before_first_call(e, 0, data);
+        let _ = x86::integer_after_format(e, 0, data, "MAX_THREADS=%d");
+    }
+}

@@ -9,9 +9,10 @@
 //! threading layer and build options.
 //!
 //! What decides thread counts and kernels is recorded beside each library: its threading
-//! layer, `MAX_THREADS`, whether it picks kernels at run time (`DYNAMIC_ARCH`) and, when
-//! `OPENBLAS_CORETYPE` forces one, the kernel family it will use. The variables themselves
-//! and the CPU count are in the `env` and `cpu` sections.
+//! layer, `MAX_THREADS`, whether it picks kernels at run time (`DYNAMIC_ARCH`), the family
+//! `OPENBLAS_CORETYPE` asks for and the kernel family it will really use on this CPU
+//! ([`crate::stack::openblas_core`]). The variables themselves and the CPU count are in the
+//! `env` and `cpu` sections.
 
 use crate::collect::fsdeps;
 use std::collections::{BTreeMap, BTreeSet};
@@ -22,6 +23,7 @@ use crate::manifest::{FastMathModule, NativeInfo, NativeLibrary};
 use crate::stack::blas::{self, Role};
 use crate::stack::elf::{is_elf, is_fast_math_constructor, ElfFile};
 use crate::stack::ldcache;
+use crate::stack::openblas_core;
 
 /// Where system libraries are looked for.
 #[derive(Debug, Clone)]
@@ -219,12 +221,15 @@ pub fn collect(
         }
     }
 
-    let coretype = env.get("OPENBLAS_CORETYPE").map(String::as_str);
+    let kernels = Kernels {
+        coretype: env.get("OPENBLAS_CORETYPE").map(String::as_str),
+        cpu: openblas_core::Cpu::this_machine(),
+    };
     let mut libraries: Vec<NativeLibrary> = candidates
         .into_iter()
         .filter_map(|(real, c)| {
             let users = used_by.remove(&real).unwrap_or_default();
-            match describe(&real, c, &versions, &blas_configs, coretype) {
+            match describe(&real, c, &versions, &blas_configs, &kernels) {
                 Ok(mut lib) => {
                     lib.used_by = users.into_iter().collect();
                     Some(lib)
@@ -366,13 +371,20 @@ fn resolve(
         .and_then(|p| fsdeps::canonicalize(p).ok())
 }
 
+/// What decides which kernels a dynamic-architecture BLAS runs: the variable that forces a
+/// family (`None`: unset) and this machine's CPU.
+struct Kernels<'a> {
+    coretype: Option<&'a str>,
+    cpu: Option<openblas_core::Cpu>,
+}
+
 /// Reads one library's facts.
 fn describe(
     real: &Path,
     c: Candidate,
     versions: &BTreeMap<String, String>,
     blas_configs: &BTreeMap<String, String>,
-    coretype: Option<&str>,
+    kernels: &Kernels,
 ) -> Result<NativeLibrary, String> {
     let data = map(real).map_err(|e| e.to_string())?;
     let file = real
@@ -399,22 +411,39 @@ fn describe(
         .unwrap_or(&data[..]);
     match (c.role, c.implementation) {
         (Role::Blas, "openblas") => {
-            if let Some(cfg) = blas::parse_openblas_config(rodata) {
+            if let Some(build) = blas::read_openblas(elf.as_ref(), rodata) {
+                let cfg = &build.config;
                 lib.version = Some(cfg.version.clone());
                 lib.version_source = Some("binary".into());
                 lib.ilp64 = Some(cfg.is_ilp64());
                 lib.dynamic_arch = Some(cfg.is_dynamic_arch());
-                lib.build_config = Some(cfg.options.clone()).filter(|o| !o.is_empty());
-                // MAX_THREADS is appended at run time; the owning package's build record
-                // keeps the whole line when it describes this same version.
-                if let Some(full) = blas_configs.get(&c.owner) {
-                    if full.split_whitespace().nth(1) == Some(cfg.version.as_str()) {
-                        lib.max_threads = blas::max_threads(full);
-                    }
-                }
+                // An option list glued from pieces is left out rather than recorded wrong.
+                lib.build_config =
+                    Some(cfg.options.clone()).filter(|o| build.whole && !o.is_empty());
+                // MAX_THREADS is appended at run time from a constant in the code; without
+                // it, the owning package's build record keeps the whole line when it
+                // describes this same version.
+                lib.max_threads = build.max_threads.or_else(|| {
+                    let full = blas_configs.get(&c.owner)?;
+                    (full.split_whitespace().nth(1) == Some(cfg.version.as_str()))
+                        .then(|| blas::max_threads(full))
+                        .flatten()
+                });
                 if cfg.is_dynamic_arch() {
-                    lib.architecture = coretype
-                        .and_then(blas::forced_openblas_core)
+                    lib.requested_kernel_family = kernels.coretype.map(str::to_string);
+                    let model = openblas_core::release(&cfg.version)
+                        .and_then(|r| openblas_core::Build::new(r, build.tables.clone()));
+                    if let (Some(model), Some(cpu)) = (model, kernels.cpu) {
+                        let (_, name) = openblas_core::chosen(&model, &cpu, kernels.coretype);
+                        lib.kernel_family = Some(name.to_string());
+                    }
+                } else if build.whole {
+                    // A build for one CPU names its only kernel last (`CHAR_CORENAME`).
+                    lib.kernel_family = cfg
+                        .options
+                        .split_whitespace()
+                        .last()
+                        .filter(|w| !w.starts_with("NO_") && !w.starts_with("USE"))
                         .map(str::to_string);
                 }
             } else if let Some(v) = openblas_version_from_name(&blas::unhashed_name(&file)) {

@@ -6,7 +6,7 @@
 //! with the metadata of each of those paths (size, times, inode: [`crate::cache::FileStamp`])
 //! and a key of everything else the scan depends on: the interpreters asked for, `--private`,
 //! the working folder, the environment variables the collectors read, the runprint build
-//! itself and the host. A later stamp with the same key whose paths all look the same takes the result from
+//! itself, the host and the CPU's dispatch facts. A later stamp with the same key whose paths all look the same takes the result from
 //! the cache; anything else scans again. A file changed within two seconds of the scan is not
 //! trusted (see [`fsdeps::Dependencies::snapshot`]), so no cached result is ever saved from a
 //! half-finished installation.
@@ -27,7 +27,7 @@ use crate::collect::python::PythonScan;
 use crate::manifest::{hex, NativeInfo};
 
 const CACHE_KIND: &str = "runprint-stack-cache";
-const CACHE_VERSION: u32 = 3;
+const CACHE_VERSION: u32 = 4;
 
 /// Environment variables the Python and native collectors read (`src/collect/python.rs`,
 /// `src/collect/native.rs`); every variable whose name starts with `PYTHON` counts too, since
@@ -61,6 +61,10 @@ pub struct Key {
     /// SHA-256 of the host name: nodes sharing a home folder (and so a cache folder) keep
     /// one cache file each instead of replacing each other's.
     pub host: Option<String>,
+    /// The CPUID facts an OpenBLAS dispatcher reads (the kernel family recorded for each
+    /// dynamic-architecture build depends on them; a cache folder can move between CPUs).
+    #[serde(default)]
+    pub cpu: Option<String>,
     /// One of those variables looks like it holds a credential (`crate::redact`): the scan
     /// then probes paths cut from it (PYTHONPATH is split at `:`), so it is never cached.
     #[serde(skip)]
@@ -92,6 +96,7 @@ impl Key {
                 .collect(),
             program: crate::cache::program_stamp(),
             host: crate::collect::system::hostname().map(|h| hex(&Sha256::digest(h.as_bytes()))),
+            cpu: crate::stack::openblas_core::Cpu::this_machine().map(|c| c.signature()),
         }
     }
 

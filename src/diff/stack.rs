@@ -444,7 +444,7 @@ fn describe(l: &NativeLibrary) -> String {
     if let Some(m) = l.max_threads {
         extra.push(format!("max {m} threads"));
     }
-    if let Some(a) = &l.architecture {
+    if let Some(a) = &l.kernel_family {
         extra.push(format!("{a} kernels"));
     }
     if !extra.is_empty() {
@@ -503,9 +503,33 @@ fn compare_native<'a>(old: &'a Content, new: &'a Content, out: &mut Vec<Change>)
         } else {
             format!("system {what} {place}")
         };
+        // A fact recorded on one side only (a manifest from an earlier version, a library
+        // that could not be read as far) is left out of the comparison, so that reading more
+        // never looks like a change; an OpenBLAS option list glued from pieces is never
+        // compared.
+        let all = |f: &dyn Fn(&NativeLibrary) -> bool| a.iter().chain(&b).all(|l| f(l));
+        let kernels = all(&|l| l.kernel_family.is_some());
+        let threads = all(&|l| l.max_threads.is_some());
+        let config = all(&|l| {
+            l.build_config.as_deref().is_some_and(|c| {
+                l.implementation != "openblas" || crate::stack::blas::openblas_options_are_whole(c)
+            })
+        });
         let facts = |ls: &[&NativeLibrary]| -> Vec<String> {
             ls.iter()
-                .map(|l| format!("{}|{:?}|{:?}", describe(l), l.dynamic_arch, l.build_config))
+                .map(|l| {
+                    let mut l = (*l).clone();
+                    if !kernels {
+                        l.kernel_family = None;
+                    }
+                    if !threads {
+                        l.max_threads = None;
+                    }
+                    if !config {
+                        l.build_config = None;
+                    }
+                    format!("{}|{:?}|{:?}", describe(&l), l.dynamic_arch, l.build_config)
+                })
                 .collect()
         };
         if facts(&a) == facts(&b) {
@@ -526,10 +550,19 @@ fn compare_native<'a>(old: &'a Content, new: &'a Content, out: &mut Vec<Change>)
         {
             (&BLAS_VENDOR, format!("{owner} uses another BLAS vendor"))
         } else {
-            (
-                &BLAS_VERSION,
-                format!("{owner}'s {what} changed version or build"),
-            )
+            let family = |ls: &[&NativeLibrary]| -> Vec<Option<String>> {
+                ls.iter().map(|l| l.kernel_family.clone()).collect()
+            };
+            let version = |ls: &[&NativeLibrary]| -> Vec<Option<String>> {
+                ls.iter().map(|l| l.version.clone()).collect()
+            };
+            let lead = match (family(&a).as_slice(), family(&b).as_slice()) {
+                ([Some(x)], [Some(y)]) if kernels && x != y && version(&a) == version(&b) => {
+                    format!("{owner}'s {what} runs {y} kernels instead of {x}")
+                }
+                _ => format!("{owner}'s {what} changed version or build"),
+            };
+            (&BLAS_VERSION, lead)
         };
         let mut c = change(rule, Section::Native, subject, lead, show(&a), show(&b));
         if owner != "system" {
@@ -710,6 +743,43 @@ mod tests {
         new.native.libraries[0].version = Some("5.0.20270101".into());
         compare(&old, &new, &ctx(), &mut out);
         assert_eq!(out.len(), 1, "{out:?}");
+    }
+
+    /// A baseline written before OpenBLAS's configuration was read whole (scipy 1.17's
+    /// OpenBLAS 0.3.30 then gave `DYNAMIC_ARCH NO_ SINGLE_THREADEDOPENBLAS_VERBOSE`, no thread
+    /// limit, and the forced family under `architecture`) against a new stamp of the same
+    /// library: nothing to report. Two new stamps whose libraries run other kernels are a
+    /// row that names both families.
+    #[test]
+    fn facts_read_on_one_side_only_are_not_a_change() {
+        let mut old_lib = lib("scipy", "0.3.30");
+        old_lib.build_config = Some("DYNAMIC_ARCH NO_ SINGLE_THREADEDOPENBLAS_VERBOSE".into());
+        old_lib.architecture = Some("Zen".into());
+        let mut new_lib = lib("scipy", "0.3.30");
+        new_lib.build_config = Some("DYNAMIC_ARCH NO_AFFINITY".into());
+        new_lib.max_threads = Some(64);
+        new_lib.kernel_family = Some("Haswell".into());
+        new_lib.requested_kernel_family = Some("Zen".into());
+        let (mut old, mut new) = (Content::default(), Content::default());
+        old.native.libraries = vec![old_lib];
+        new.native.libraries = vec![new_lib.clone()];
+        let mut out = Vec::new();
+        compare(&old, &new, &ctx(), &mut out);
+        assert!(out.is_empty(), "{out:?}");
+        let mut other = new_lib;
+        other.kernel_family = Some("SkylakeX".into());
+        other.requested_kernel_family = None;
+        old.native.libraries = vec![other];
+        compare(&old, &new, &ctx(), &mut out);
+        assert_eq!(out.len(), 1, "{out:?}");
+        assert_eq!(out[0].impact, Impact::Verify);
+        assert!(
+            out[0]
+                .reason
+                .starts_with("scipy's BLAS runs Haswell kernels instead of SkylakeX"),
+            "{}",
+            out[0].reason
+        );
     }
 
     /// torch's `version.py` names its CUDA but not its cuDNN: the report says the cuDNN of a

@@ -177,6 +177,100 @@ pub fn parse_openblas_config(rodata: &[u8]) -> Option<OpenBlasConfig> {
     None
 }
 
+/// The words `openblas_get_config.c` (v0.3.28) can put in the constant part of the string,
+/// after the version: build options, each followed by a space.
+const OPENBLAS_OPTIONS: &[&str] = &[
+    "USE64BITINT",
+    "NO_CBLAS",
+    "NO_LAPACK",
+    "NO_LAPACKE",
+    "DYNAMIC_ARCH",
+    "DYNAMIC_OLDER",
+    "NO_AFFINITY",
+    "USE_OPENMP",
+    "USE_TLS",
+    "USE_LOCKING",
+];
+
+/// True when an option list read from a library is whole: every word a known option, except
+/// that a build for one CPU ends with its kernel name (`CHAR_CORENAME`, capitals). A list
+/// glued from pieces (`DYNAMIC_ARCH NO_ SINGLE_THREADEDOPENBLAS_VERBOSE`) is not.
+pub fn openblas_options_are_whole(options: &str) -> bool {
+    let words: Vec<&str> = options.split_whitespace().collect();
+    let dynamic = words.contains(&"DYNAMIC_ARCH");
+    words.iter().enumerate().all(|(i, w)| {
+        OPENBLAS_OPTIONS.contains(w)
+            || (!dynamic
+                && i + 1 == words.len()
+                && w.bytes()
+                    .all(|b| b.is_ascii_uppercase() || b.is_ascii_digit() || b == b'_'))
+    })
+}
+
+/// What an OpenBLAS library file says about its build.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct OpenBlasBuild {
+    /// Version and option list.
+    pub config: OpenBlasConfig,
+    /// The option list is whole ([`openblas_options_are_whole`]).
+    pub whole: bool,
+    /// `MAX_CPU_NUMBER`, the `%d` of `" MAX_THREADS=%d"` in `openblas_get_config`.
+    pub max_threads: Option<u32>,
+    /// The kernel tables it carries (exported `gotoblas_<FAMILY>` symbols).
+    pub tables: std::collections::BTreeSet<crate::stack::openblas_core::Family>,
+}
+
+/// The exported name of an OpenBLAS function under the prefixes and suffixes the wheels use
+/// (`scipy_`, `64_`, `_64`).
+fn openblas_function<'a>(elf: &ElfFile<'a>, base: &str, max: usize) -> Option<(u64, &'a [u8])> {
+    ["", "scipy_"].iter().find_map(|prefix| {
+        ["", "64_", "_64"]
+            .iter()
+            .find_map(|suffix| elf.function(&format!("{prefix}{base}{suffix}"), max))
+    })
+}
+
+/// Reads an OpenBLAS build. The configuration string is taken, in order of trust, from the
+/// code of `openblas_get_config` (x86-64: the constant part is copied into a buffer with
+/// immediate and vector stores before the kernel name is appended; [`crate::stack::x86`]),
+/// else from `.rodata` (whole when the compiler kept the literal in one piece).
+pub fn read_openblas(elf: Option<&ElfFile>, rodata: &[u8]) -> Option<OpenBlasBuild> {
+    let code = elf
+        .filter(|e| e.machine() == crate::stack::elf::Machine::X86_64)
+        .and_then(|e| Some((e, openblas_function(e, "openblas_get_config", 1024)?)));
+    let from_code = code.and_then(|(e, (addr, bytes))| {
+        let built = crate::stack::x86::string_built_before_first_call(e, addr, bytes)?;
+        parse_openblas_config(&built).filter(|c| openblas_options_are_whole(&c.options))
+    });
+    let config = match from_code {
+        Some(c) => c,
+        None => parse_openblas_config(rodata)?,
+    };
+    let max_threads = code
+        .and_then(|(e, (addr, bytes))| {
+            crate::stack::x86::integer_after_format(e, addr, bytes, "MAX_THREADS=%d")
+        })
+        .and_then(|n| u32::try_from(n).ok());
+    let tables = elf
+        .map(|e| {
+            e.exported_with_prefix("gotoblas_")
+                .iter()
+                .filter_map(|n| {
+                    crate::stack::openblas_core::Family::of_symbol_suffix(
+                        n.strip_prefix("gotoblas_")?,
+                    )
+                })
+                .collect()
+        })
+        .unwrap_or_default();
+    Some(OpenBlasBuild {
+        whole: openblas_options_are_whole(&config.options),
+        config,
+        max_threads,
+        tables,
+    })
+}
+
 /// The threading layer of an OpenBLAS build, decoded from `openblas_get_parallel` (with the
 /// `scipy_` prefix and `64_`/`_64` suffixes the wheels use): 0 `disabled`, 1 `pthreads`,
 /// 2 `openmp`, the words threadpoolctl reports.
@@ -316,56 +410,6 @@ fn version_key(name: &str) -> Vec<u32> {
         .collect()
 }
 
-/// OpenBLAS's kernel families by the names `openblas_get_corename` reports, for turning an
-/// `OPENBLAS_CORETYPE` value into what the library will use. The list follows the x86-64 and
-/// ARM core names in OpenBLAS's documentation and `DYNAMIC_ARCH` lists (from memory; the
-/// names checked against threadpoolctl in `tests/stack_python.rs` are Haswell and Nehalem).
-const OPENBLAS_CORES: &[&str] = &[
-    "Prescott",
-    "Core2",
-    "Penryn",
-    "Dunnington",
-    "Nehalem",
-    "Sandybridge",
-    "Haswell",
-    "SkylakeX",
-    "Cooperlake",
-    "SapphireRapids",
-    "Atom",
-    "Opteron",
-    "Barcelona",
-    "Bobcat",
-    "Bulldozer",
-    "Piledriver",
-    "Steamroller",
-    "Excavator",
-    "Zen",
-    "armv8",
-    "cortexa53",
-    "cortexa57",
-    "cortexa72",
-    "cortexa73",
-    "neoversen1",
-    "neoversen2",
-    "neoversev1",
-    "neoversev2",
-    "thunderx",
-    "thunderx2t99",
-    "tsv110",
-    "emag8180",
-    "falkor",
-    "a64fx",
-];
-
-/// The core an `OPENBLAS_CORETYPE` value forces, spelled as OpenBLAS reports it.
-pub fn forced_openblas_core(value: &str) -> Option<&'static str> {
-    let v = value.trim();
-    OPENBLAS_CORES
-        .iter()
-        .copied()
-        .find(|c| c.eq_ignore_ascii_case(v))
-}
-
 /// `MAX_THREADS=n` from an OpenBLAS configuration line.
 pub fn max_threads(config: &str) -> Option<u32> {
     config
@@ -468,6 +512,15 @@ mod tests {
         .unwrap();
         assert_eq!(c.version, "0.3.30");
         assert!(!c.is_ilp64());
+        // The pieces of scipy 1.17's OpenBLAS as `.rodata` holds them (the rest of the
+        // string is in the code): not a whole option list.
+        assert!(!openblas_options_are_whole(&c.options));
+        assert!(openblas_options_are_whole(
+            "USE64BITINT DYNAMIC_ARCH NO_AFFINITY"
+        ));
+        // A build for one CPU ends with its kernel name (`CHAR_CORENAME`).
+        assert!(openblas_options_are_whole("NO_AFFINITY USE_OPENMP HASWELL"));
+        assert!(!openblas_options_are_whole("DYNAMIC_ARCH HASWELL"));
         let c = parse_openblas_config(b"OpenBLAS 0.3.23.dev DYNAMIC_ARCH\0").unwrap();
         assert_eq!(c.version, "0.3.23.dev");
         assert_eq!(parse_openblas_config(b"OpenBLAS is great\0"), None);
@@ -494,9 +547,6 @@ mod tests {
             Some("Clang 14.0")
         );
         assert!(is_llvm_openmp(data));
-        assert_eq!(forced_openblas_core("haswell"), Some("Haswell"));
-        assert_eq!(forced_openblas_core("SKYLAKEX"), Some("SkylakeX"));
-        assert_eq!(forced_openblas_core("pentium9"), None);
         assert_eq!(
             max_threads("OpenBLAS 0.3.30 DYNAMIC_ARCH Haswell MAX_THREADS=64"),
             Some(64)

@@ -174,6 +174,30 @@ impl<'a> ElfFile<'a> {
         self.bytes_at(addr, len)
     }
 
+    /// An exported function's address and code bytes (at most `max` bytes).
+    pub fn function(&self, name: &str, max: usize) -> Option<(u64, &'a [u8])> {
+        let (addr, _) = self.dynamic_symbol(name)?;
+        Some((addr, self.function_bytes(name, max)?))
+    }
+
+    /// The names of the defined dynamic symbols that start with `prefix`, in one pass.
+    pub fn exported_with_prefix(&self, prefix: &str) -> Vec<String> {
+        let Ok(table) = self
+            .sections
+            .symbols(self.endian, self.data, elf::SHT_DYNSYM)
+        else {
+            return Vec::new();
+        };
+        let strings = table.strings();
+        table
+            .iter()
+            .filter(|sym| sym.st_shndx(self.endian) != elf::SHN_UNDEF)
+            .filter_map(|sym| sym.name(self.endian, strings).ok())
+            .filter(|n| n.starts_with(prefix.as_bytes()))
+            .map(|n| String::from_utf8_lossy(n).into_owned())
+            .collect()
+    }
+
     /// Maps a virtual address to a file offset through the `PT_LOAD` segments.
     pub fn offset_of(&self, addr: u64) -> Option<usize> {
         let phdrs = self.header.program_headers(self.endian, self.data).ok()?;
@@ -182,8 +206,10 @@ impl<'a> ElfFile<'a> {
                 return None;
             }
             let (vaddr, filesz) = (ph.p_vaddr(self.endian), ph.p_filesz(self.endian));
-            (addr >= vaddr && addr < vaddr + filesz)
-                .then(|| (ph.p_offset(self.endian) + (addr - vaddr)) as usize)
+            (addr >= vaddr && addr - vaddr < filesz)
+                .then(|| ph.p_offset(self.endian).checked_add(addr - vaddr))
+                .flatten()
+                .and_then(|o| usize::try_from(o).ok())
         })
     }
 

@@ -11,4 +11,6 @@ pub mod elf;
 pub mod framework;
 pub mod gpu;
 pub mod ldcache;
+pub mod openblas_core;
 pub mod python;
+pub mod x86;
