@@ -65,6 +65,8 @@ pub enum Section {
     Native,
     /// The GPU stack.
     Gpu,
+    /// A running process (`stamp --pid`).
+    Process,
     /// Environment variables.
     Env,
     /// The processor.
@@ -85,6 +87,7 @@ impl Section {
             Section::Python => "python",
             Section::Native => "native",
             Section::Gpu => "gpu",
+            Section::Process => "process",
             Section::Env => "env",
             Section::Cpu => "cpu",
             Section::System => "system",

@@ -109,14 +109,21 @@ struct StampArgs {
     /// Manifest format.
     #[arg(long, value_enum, default_value_t = StampFormat::Toml)]
     format: StampFormat,
+    /// Describe this running process as well, from /proc only: its command line, working
+    /// folder, environment, allowed CPUs and the libraries it has loaded. Its environment
+    /// replaces this one for the recorded variables and for finding its Python; --repo
+    /// defaults to its working folder and --python to its executable when that is a Python.
+    #[arg(long, value_name = "PID")]
+    pid: Option<u32>,
 }
 
 /// What to collect: shared by `stamp` and `check`.
 #[derive(Debug, clap::Args)]
 struct CollectArgs {
-    /// A folder inside the checkout to stamp.
-    #[arg(long, value_name = "DIR", default_value = ".")]
-    repo: PathBuf,
+    /// A folder inside the checkout to stamp (default: the current folder; with --pid, the
+    /// process's working folder).
+    #[arg(long, value_name = "DIR")]
+    repo: Option<PathBuf>,
     /// A note stored with the manifest (not part of the fingerprint).
     #[arg(long, value_name = "TEXT")]
     label: Option<String>,
@@ -298,9 +305,15 @@ fn emit(text: &str) -> Result<(), std::io::Error> {
 }
 
 impl CollectArgs {
+    /// The folder to stamp: `--repo`, else the current folder.
+    fn repo_dir(&self) -> PathBuf {
+        self.repo.clone().unwrap_or_else(|| PathBuf::from("."))
+    }
+
     /// The stamping options these arguments ask for.
     fn options(self) -> StampOptions {
-        let mut opts = StampOptions::new(&self.repo);
+        let repo = self.repo_dir();
+        let mut opts = StampOptions::new(&repo);
         opts.label = self.label;
         opts.private = self.private;
         opts.extra_lockfiles = self.lockfile;
@@ -308,7 +321,7 @@ impl CollectArgs {
         opts.keep_patch = self.keep_patch;
         opts.python = self.python;
         // The policy's [scope] gives the lockfiles and reads; --entry replaces its entries.
-        let declared = match crate::policy::Policy::discover(None, &self.repo) {
+        let declared = match crate::policy::Policy::discover(None, &repo) {
             Ok(p) => p.scope,
             Err(e) => {
                 eprintln!(
@@ -343,17 +356,48 @@ impl CollectArgs {
 
     /// Stamps, printing warnings; `Err` carries the exit code when `--strict` refuses.
     fn stamp(self) -> Result<Manifest, ExitStatus> {
-        self.stamp_prepared(false).map(|(m, _)| m)
+        self.stamp_prepared(false, None).map(|(m, _)| m)
     }
 
     /// As [`CollectArgs::stamp`]; with `prepare`, also the parts of the TOML text serialized
     /// while git's status ran ([`stamp_prepared`]).
-    fn stamp_prepared(self, prepare: bool) -> Result<(Manifest, Option<Prepared>), ExitStatus> {
-        if !self.repo.is_dir() {
-            return Err(fail(format!("`{}` is not a folder", self.repo.display())));
+    fn stamp_prepared(
+        mut self,
+        prepare: bool,
+        process: Option<crate::collect::process::ProcessFacts>,
+    ) -> Result<(Manifest, Option<Prepared>), ExitStatus> {
+        if let Some(facts) = &process {
+            // The process's working folder and interpreter, unless named.
+            if self.repo.is_none() {
+                self.repo = facts.cwd.clone();
+            }
+            if self.python.is_empty() {
+                self.python = crate::collect::process::python_interpreter(facts)
+                    .into_iter()
+                    .collect();
+            }
+        }
+        if !self.repo_dir().is_dir() {
+            return Err(fail(format!(
+                "`{}` is not a folder",
+                self.repo_dir().display()
+            )));
         }
         let strict = self.strict;
-        let (manifest, prepared) = stamp_prepared(&self.options(), prepare);
+        let mut opts = self.options();
+        if let Some(facts) = process {
+            // runprint's own settings (RUNPRINT_*) stay this shell's.
+            let own: Vec<(String, String)> = opts
+                .env
+                .iter()
+                .filter(|(k, _)| k.starts_with("RUNPRINT_"))
+                .map(|(k, v)| (k.clone(), v.clone()))
+                .collect();
+            opts.env = facts.environ.clone();
+            opts.env.extend(own);
+            opts.process = Some(facts);
+        }
+        let (manifest, prepared) = stamp_prepared(&opts, prepare);
         for w in &manifest.run.warnings {
             eprintln!("warning: {}", crate::escape::printable(w));
         }
@@ -374,7 +418,14 @@ fn run_stamp(args: StampArgs) -> ExitStatus {
         StampFormat::Json => ManifestFormat::Json,
     };
     let strict = args.collect.strict;
-    let (manifest, prepared) = match args.collect.stamp_prepared(format == ManifestFormat::Toml) {
+    let process = match args.pid.map(crate::collect::process::read).transpose() {
+        Ok(p) => p,
+        Err(e) => return fail(e.to_string()),
+    };
+    let (manifest, prepared) = match args
+        .collect
+        .stamp_prepared(format == ManifestFormat::Toml, process)
+    {
         Ok(m) => m,
         Err(code) => return code,
     };
@@ -555,17 +606,18 @@ fn run_check(args: CheckArgs) -> ExitStatus {
         Ok(m) => m,
         Err(e) => return fail(e),
     };
-    let policy =
-        match Policy::discover(args.policy.as_deref(), &args.collect.repo).and_then(known_rules) {
-            Ok(p) => p,
-            Err(e) => return fail(e),
-        };
+    let policy = match Policy::discover(args.policy.as_deref(), &args.collect.repo_dir())
+        .and_then(known_rules)
+    {
+        Ok(p) => p,
+        Err(e) => return fail(e),
+    };
     let baseline_name = args.baseline.display().to_string();
     let mut report = if let Some(rev) = &args.rev {
         match crate::check::against_revision(
             &baseline_name,
             &baseline,
-            &args.collect.repo,
+            &args.collect.repo_dir(),
             rev,
             &policy,
         ) {
@@ -573,7 +625,7 @@ fn run_check(args: CheckArgs) -> ExitStatus {
             Err(e) => return fail(e),
         }
     } else {
-        let repo = args.collect.repo.clone();
+        let repo = args.collect.repo_dir();
         let mut current = match args.collect.stamp() {
             Ok(m) => m,
             Err(code) => return code,

@@ -70,6 +70,8 @@ struct ManifestFile {
     gpu: Option<GpuInfo>,
     #[serde(default)]
     scope: Option<Scope>,
+    #[serde(default)]
+    process: Option<ProcessInfo>,
 }
 
 impl From<ManifestFile> for Manifest {
@@ -89,6 +91,7 @@ impl From<ManifestFile> for Manifest {
                 native: f.native,
                 gpu: f.gpu,
                 scope: f.scope,
+                process: f.process,
             },
         }
     }
@@ -150,6 +153,61 @@ pub struct Content {
     /// points, the repository files they import and the packages they can load.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub scope: Option<Scope>,
+    /// A running training process as `/proc` shows it (`stamp --pid`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub process: Option<ProcessInfo>,
+}
+
+/// A running process read from `/proc` (`stamp --pid`): what it really runs.
+#[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct ProcessInfo {
+    /// Its command line, credentials redacted (left out with `--private`).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub command: Vec<String>,
+    /// Its executable (left out with `--private`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub executable: Option<String>,
+    /// Its working folder (left out with `--private`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub cwd: Option<String>,
+    /// The CPUs it may run on (`Cpus_allowed_list`, e.g. `0-7`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub cpus_allowed: Option<String>,
+    /// How many CPUs that is (OpenMP runtimes and BLAS size their thread pools from it).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub cpu_count: Option<u32>,
+    /// The numerical libraries it has mapped (BLAS, OpenMP, CUDA, cuDNN, NCCL, framework
+    /// libraries), in the order it mapped them.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub libraries: Vec<LoadedLibrary>,
+}
+
+/// A shared object a process has mapped.
+#[derive(Debug, Clone, Default, PartialEq, Eq, PartialOrd, Ord, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub struct LoadedLibrary {
+    /// `blas`, `openmp`, `cuda`, `cudnn`, `nccl`, `framework`.
+    pub kind: String,
+    /// For BLAS and OpenMP: as in `[[native.libraries]]` (`openblas`, `gnu`…); else the
+    /// library's name (`cudart`, `torch_cpu`).
+    pub implementation: String,
+    /// The distribution that ships it (from the numerical-stack scan, else the folder
+    /// under `site-packages`), or `system`.
+    pub owner: String,
+    /// File name.
+    pub file: String,
+    /// Where it was mapped from (hashed with `--private`).
+    pub path: String,
+    /// Version read from this file, when it says.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub version: Option<String>,
+    /// For BLAS: the kernel family it runs (see `[[native.libraries]]`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub kernel_family: Option<String>,
+    /// Named in the process's `LD_PRELOAD`.
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub preloaded: bool,
 }
 
 /// What the training job runs and reads. A change outside it cannot change the model; the
@@ -633,6 +691,10 @@ pub struct NativeLibrary {
     /// `OPENBLAS_CORETYPE` as set: the family asked for (the library may run another).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub requested_kernel_family: Option<String>,
+    /// With `stamp --pid`: whether the process has this file mapped (`false`: installed
+    /// only). Absent without `--pid`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub loaded: Option<bool>,
     /// Compiler or symbol-version facts that stand in for a version (OpenMP runtimes).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub build_hint: Option<String>,

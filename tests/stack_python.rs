@@ -366,3 +366,126 @@ fn kernel_families_and_build_strings_equal_the_loaded_openblas() {
         }
     }
 }
+
+/// A Python child that loads numpy, scipy and scikit-learn (OpenBLAS twice, GNU OpenMP),
+/// prints what threadpoolctl sees in it, its CPU affinity and the native id of a second
+/// thread, then waits for its standard input to close.
+const CHILD: &str = r#"
+import json, os, sys, threading
+import numpy, scipy.linalg, sklearn.utils._openmp_helpers, threadpoolctl
+done = threading.Event()
+t = threading.Thread(target=done.wait)
+t.start()
+info = [[os.path.realpath(i['filepath']), i.get('version'), i.get('architecture'), i['user_api']]
+        for i in threadpoolctl.threadpool_info()]
+print(json.dumps({'libraries': info, 'cpus': len(os.sched_getaffinity(0)), 'thread': t.native_id}), flush=True)
+sys.stdin.read()
+done.set()
+"#;
+
+/// `stamp --pid` of that child, with a second OpenMP runtime preloaded when the system has
+/// GNU's: every BLAS and OpenMP library threadpoolctl reports in the process is in
+/// `[process]` with the same file, version and kernel family, the preloaded one marked, the
+/// scanned copies marked loaded; the allowed CPUs equal `os.sched_getaffinity`. A thread id,
+/// a finished process and PID 0 are refused with exit 2 and a sentence naming the PID.
+#[test]
+fn a_running_process_is_read_as_threadpoolctl_sees_it() {
+    use std::io::{BufRead, BufReader};
+    let Some(python) = interpreter("RUNPRINT_TEST_STACK_PYTHON") else {
+        return;
+    };
+    // Debian's and Ubuntu's GNU OpenMP runtime (libgomp1), when installed.
+    let gomp = [
+        "/usr/lib/x86_64-linux-gnu/libgomp.so.1",
+        "/usr/lib/aarch64-linux-gnu/libgomp.so.1",
+    ]
+    .into_iter()
+    .find(|p| Path::new(p).exists());
+    let mut cmd = Command::new(&python);
+    cmd.args(["-c", CHILD])
+        .env_remove("OPENBLAS_CORETYPE")
+        .stdin(std::process::Stdio::piped())
+        .stdout(std::process::Stdio::piped());
+    if let Some(g) = gomp {
+        cmd.env("LD_PRELOAD", g);
+    }
+    let mut child = cmd.spawn().expect("start the Python child");
+    let mut line = String::new();
+    BufReader::new(child.stdout.take().unwrap())
+        .read_line(&mut line)
+        .unwrap();
+    let reference: Value = serde_json::from_str(&line).expect("the child printed JSON");
+    let repo = tempfile::tempdir().unwrap();
+    let run = |pid: String| {
+        Command::cargo_bin("runprint")
+            .unwrap()
+            .args(["stamp", "--format", "json", "--pid", &pid, "--repo"])
+            .arg(repo.path())
+            .arg("--cache")
+            .arg(repo.path().join("cache"))
+            .output()
+            .unwrap()
+    };
+    let out = run(child.id().to_string());
+    let thread_out = run(reference["thread"].to_string());
+    drop(child.stdin.take());
+    child.wait().unwrap();
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let manifest: Value = serde_json::from_slice(&out.stdout).unwrap();
+    let process = &manifest["process"];
+    let loaded = process["libraries"].as_array().expect("loaded libraries");
+    let expected = reference["libraries"].as_array().unwrap();
+    assert!(expected.len() >= 3, "{reference}");
+    for entry in expected {
+        let path = entry[0].as_str().unwrap();
+        let lib = loaded
+            .iter()
+            .find(|l| l["path"] == path)
+            .unwrap_or_else(|| panic!("{path} not in {loaded:#?}"));
+        // threadpoolctl's `user_api` is runprint's `kind` (`blas`, `openmp`); it reports no
+        // version for OpenMP runtimes.
+        assert_eq!(lib["kind"], entry[3], "{path}");
+        if entry[3] == "blas" {
+            assert_eq!(lib["version"], entry[1], "{path}");
+            assert_eq!(lib["kernel-family"], entry[2], "{path}");
+        }
+        let preloaded = gomp.is_some_and(|g| std::fs::canonicalize(g).unwrap() == Path::new(path));
+        assert_eq!(lib.get("preloaded").is_some(), preloaded, "{path}");
+        let file = Path::new(path)
+            .file_name()
+            .unwrap()
+            .to_string_lossy()
+            .into_owned();
+        let scanned = manifest["native"]["libraries"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .find(|l| l["file"] == file.as_str())
+            .unwrap_or_else(|| panic!("{file} not scanned"));
+        assert_eq!(scanned["loaded"], true, "{file}");
+    }
+    if gomp.is_some() {
+        let openmp = loaded.iter().filter(|l| l["kind"] == "openmp").count();
+        assert!(openmp >= 2, "two OpenMP runtimes expected: {loaded:#?}");
+    }
+    assert_eq!(process["cpu-count"], reference["cpus"]);
+    assert_eq!(process["command"][1], "-c");
+    // A thread of the child is not a process.
+    assert_eq!(thread_out.status.code(), Some(2));
+    let text = String::from_utf8_lossy(&thread_out.stderr);
+    assert!(text.contains("a thread of process"), "{text}");
+    // The child has ended: no such process.
+    let gone = run(child.id().to_string());
+    assert_eq!(gone.status.code(), Some(2));
+    let text = String::from_utf8_lossy(&gone.stderr);
+    assert!(
+        text.contains(&format!("process {}", child.id())) && text.contains("no such process"),
+        "{text}"
+    );
+    let zero = run("0".into());
+    assert_eq!(zero.status.code(), Some(2));
+}

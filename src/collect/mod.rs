@@ -20,6 +20,7 @@ pub mod lockfile_cache;
 pub mod lockfiles;
 pub mod native;
 pub mod patch;
+pub mod process;
 pub mod python;
 pub mod scope;
 pub mod stack_cache;
@@ -58,6 +59,9 @@ pub struct StampOptions {
     /// The training job's declared scope (`--entry`, the policy's `[scope]`); `None`: no
     /// scope is recorded.
     pub scope: Option<scope::Request>,
+    /// A running process to describe (`stamp --pid`), already read: its libraries are
+    /// recorded in `[process]` and marked in `[[native.libraries]]`.
+    pub process: Option<process::ProcessFacts>,
 }
 
 impl StampOptions {
@@ -81,6 +85,7 @@ impl StampOptions {
             python: Vec::new(),
             keep_patch: None,
             scope: None,
+            process: None,
         }
     }
 }
@@ -486,6 +491,9 @@ pub fn stamp_prepared(opts: &StampOptions, prepare: bool) -> (Manifest, Option<P
         });
         content.python = stack.python;
         content.native = stack.native;
+        if let Some(facts) = &opts.process {
+            content.process = Some(process::describe(facts, &mut content.native, opts.private));
+        }
         content.gpu = stack.gpu;
         // Lockfiles are final unless the status names an untracked one (checked below).
         let lockfiles_known = !discover || early.is_some();

@@ -273,6 +273,37 @@ fn normalize_rel(rel: &str) -> String {
     parts.join("/")
 }
 
+/// Reads one BLAS or OpenMP file the way [`collect`] reads those it finds, for a library a
+/// running process has mapped (`stamp --pid`); `env` is that process's environment. `None`
+/// for a file that is neither, or cannot be read as one.
+pub fn describe_mapped(
+    real: &Path,
+    owner: &str,
+    env: &BTreeMap<String, String>,
+    private: bool,
+) -> Option<NativeLibrary> {
+    let name = real.file_name()?.to_string_lossy().into_owned();
+    let (role, implementation) = blas::classify(&name, &parent_name(real))?;
+    let kernels = Kernels {
+        coretype: env.get("OPENBLAS_CORETYPE").map(String::as_str),
+        cpu: openblas_core::Cpu::this_machine(),
+    };
+    let candidate = Candidate {
+        role,
+        implementation,
+        owner: owner.to_string(),
+        shown: system_path(real, private),
+    };
+    describe(
+        real,
+        candidate,
+        &BTreeMap::new(),
+        &BTreeMap::new(),
+        &kernels,
+    )
+    .ok()
+}
+
 fn parent_name(p: &Path) -> String {
     p.parent()
         .and_then(|d| d.file_name())

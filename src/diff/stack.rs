@@ -23,7 +23,10 @@ use std::collections::{BTreeMap, BTreeSet};
 
 use super::rules::{self, PackageChange, Rule};
 use super::{Change, Context, Section};
-use crate::manifest::{Content, FrameworkBuild, GpuInfo, NativeLibrary, PythonEnv};
+use crate::classes::Impact;
+use crate::manifest::{
+    Content, FrameworkBuild, GpuInfo, LoadedLibrary, NativeLibrary, ProcessInfo, PythonEnv,
+};
 
 rule_group! {
     /// The rules of the Python interpreter (the conditions: `compare_python` below).
@@ -74,6 +77,22 @@ rule_group! {
         "BLAS or OpenMP runtime present on one side only",
         "the code that does linear algebra or runs threads differs",
         "https://github.com/mne-tools/mne-python/issues/4922";
+    PROCESS_LIBRARIES = "process.libraries", "process", Verify, 60,
+        "numerical libraries a running process has loaded (stamp --pid)",
+        "the code that ran differs: another BLAS, OpenMP runtime, CUDA library or framework build was in the process, whatever was installed",
+        "https://github.com/numpy/numpy/issues/25100; https://github.com/mne-tools/mne-python/issues/4922";
+    PROCESS_CPUS = "process.cpus", "process", Verify, 44,
+        "CPUs a running process may use (its affinity)",
+        "OpenMP runtimes and BLAS size their thread pools from the CPUs a process may run on, and the thread count changes how reductions are split",
+        "https://www.openmp.org/spec-html/5.0/openmpse50.html; https://github.com/OpenMathLib/OpenBLAS/issues/2779";
+    PROCESS_COMMAND = "process.command", "process", Verify, 42,
+        "command line of a running process",
+        "the arguments the training program was started with differ (options, configuration files, seeds)",
+        "common practice";
+    NOT_LOADED = "native.not-loaded", "native", None, 8,
+        "library installed but loaded by neither stamped process",
+        "both stamps read the running process, and it did not load this library",
+        "common practice";
     OPENMP_RUNTIME = "native.openmp", "native", Verify, 46,
         "OpenMP runtime or its version",
         "each runtime reads its own variables, sizes its thread pool and splits parallel reductions its own way",
@@ -153,6 +172,9 @@ fn change(
 pub fn compare(old: &Content, new: &Content, ctx: &Context<'_>, out: &mut Vec<Change>) {
     compare_python(&old.python, &new.python, ctx, out);
     compare_native(old, new, out);
+    if let (Some(o), Some(n)) = (&old.process, &new.process) {
+        compare_process(o, n, out);
+    }
     if let (Some(o), Some(n)) = (&old.gpu, &new.gpu) {
         compare_gpu(o, n, out);
     }
@@ -564,6 +586,15 @@ fn compare_native<'a>(old: &'a Content, new: &'a Content, out: &mut Vec<Change>)
             };
             (&BLAS_VERSION, lead)
         };
+        // Both stamps read the running process and neither had these files loaded: the
+        // change could not have reached the run.
+        let unused =
+            !a.is_empty() && !b.is_empty() && a.iter().chain(&b).all(|l| l.loaded == Some(false));
+        let (rule, lead) = if unused && rule.impact != Impact::None {
+            (&NOT_LOADED, format!("{lead} (was {})", rule.id))
+        } else {
+            (rule, lead)
+        };
         let mut c = change(rule, Section::Native, subject, lead, show(&a), show(&b));
         if owner != "system" {
             c.shipped_by = Some(owner.clone());
@@ -597,6 +628,88 @@ fn compare_native<'a>(old: &'a Content, new: &'a Content, out: &mut Vec<Change>)
             format!("the fast-math module of {owner} is gone, so subnormals are no longer flushed"),
             Some(owner.clone()),
             None,
+        ));
+    }
+}
+
+/// One loaded library in a report: what it is, its version and kernels, where it came from.
+fn describe_loaded(l: &LoadedLibrary) -> String {
+    let mut s = format!(
+        "{} {}",
+        l.implementation,
+        l.version.as_deref().unwrap_or("version unknown")
+    );
+    if let Some(k) = &l.kernel_family {
+        s.push_str(&format!(" ({k} kernels)"));
+    }
+    if l.preloaded {
+        s.push_str(", preloaded");
+    }
+    s
+}
+
+/// Two stamps of running processes: the libraries each had loaded (by kind and owner, so a
+/// wheel's renamed copy compares with its predecessor), the CPUs each could use, and the
+/// command lines.
+fn compare_process(o: &ProcessInfo, n: &ProcessInfo, out: &mut Vec<Change>) {
+    type Key = (String, String, String);
+    let group = |p: &ProcessInfo| -> BTreeMap<Key, Vec<String>> {
+        let mut m: BTreeMap<Key, Vec<String>> = BTreeMap::new();
+        for l in &p.libraries {
+            m.entry((l.kind.clone(), l.implementation.clone(), l.owner.clone()))
+                .or_default()
+                .push(describe_loaded(l));
+        }
+        m
+    };
+    let (og, ng) = (group(o), group(n));
+    for (k, a, b) in super::outer_join(&og, &ng) {
+        if a == b {
+            continue;
+        }
+        let (kind, implementation, owner) = k;
+        let join = |v: Option<&Vec<String>>| v.map(|v| v.join("; "));
+        let lead = match (a, b) {
+            (None, _) => format!("the process now loads {implementation} from {owner}"),
+            (_, None) => format!("the process no longer loads {implementation} from {owner}"),
+            _ => format!("the {implementation} the process loads from {owner} changed"),
+        };
+        out.push(change(
+            &PROCESS_LIBRARIES,
+            Section::Process,
+            format!("loaded {kind}: {implementation} ({owner})"),
+            lead,
+            join(a),
+            join(b),
+        ));
+    }
+    if o.cpu_count.is_some() && n.cpu_count.is_some() && o.cpu_count != n.cpu_count {
+        let show = |p: &ProcessInfo| {
+            Some(format!(
+                "{} CPUs ({})",
+                p.cpu_count.unwrap_or_default(),
+                p.cpus_allowed.as_deref().unwrap_or("?")
+            ))
+        };
+        out.push(change(
+            &PROCESS_CPUS,
+            Section::Process,
+            "CPUs the process may use".into(),
+            String::new(),
+            show(o),
+            show(n),
+        ));
+    }
+    // Compared only when both were recorded (`--private` leaves the command out).
+    if !o.command.is_empty() && !n.command.is_empty() && o.command != n.command {
+        let show = |p: &ProcessInfo| Some(p.command.join(" "));
+        out.push(change(
+            &PROCESS_COMMAND,
+            Section::Process,
+            "command line of the process".into(),
+            String::new(),
+            show(o),
+            show(n),
         ));
     }
 }
@@ -780,6 +893,82 @@ mod tests {
             "{}",
             out[0].reason
         );
+    }
+
+    /// Two stamps of running processes: a library the process loads from another owner, a
+    /// new kernel family, a narrower CPU set and other arguments each make a row; a BLAS
+    /// that is installed but loaded by neither process changes nothing.
+    #[test]
+    fn running_processes_are_compared_by_what_they_loaded() {
+        let loaded = |implementation: &str, owner: &str, kernels: &str| LoadedLibrary {
+            kind: "blas".into(),
+            implementation: implementation.into(),
+            owner: owner.into(),
+            file: format!("lib{implementation}.so"),
+            path: format!("/venv/{owner}.libs/lib{implementation}.so"),
+            version: Some("0.3.30".into()),
+            kernel_family: Some(kernels.into()),
+            preloaded: false,
+        };
+        let process = |libs: Vec<LoadedLibrary>, cpus: u32, arg: &str| ProcessInfo {
+            command: vec!["python".into(), "train.py".into(), arg.into()],
+            cpu_count: Some(cpus),
+            cpus_allowed: Some(format!("0-{}", cpus - 1)),
+            libraries: libs,
+            ..ProcessInfo::default()
+        };
+        let (mut old, mut new) = (Content::default(), Content::default());
+        old.process = Some(process(
+            vec![loaded("openblas", "numpy", "Haswell")],
+            8,
+            "--seed=1",
+        ));
+        new.process = Some(process(
+            vec![loaded("openblas", "numpy", "Haswell")],
+            8,
+            "--seed=1",
+        ));
+        let mut out = Vec::new();
+        compare(&old, &new, &ctx(), &mut out);
+        assert!(out.is_empty(), "{out:?}");
+        new.process = Some(process(
+            vec![
+                loaded("openblas", "numpy", "SkylakeX"),
+                loaded("openblas", "scipy", "SkylakeX"),
+            ],
+            4,
+            "--seed=2",
+        ));
+        compare(&old, &new, &ctx(), &mut out);
+        let rules: Vec<&str> = out.iter().map(|c| c.rule.id).collect();
+        assert_eq!(
+            rules,
+            [
+                "process.libraries",
+                "process.libraries",
+                "process.cpus",
+                "process.command"
+            ],
+            "{out:?}"
+        );
+        assert!(out.iter().all(|c| c.impact == Impact::Verify));
+        // An MKL both processes left unloaded: reported as harmless.
+        let mut mkl = lib("mkl", "2024.1");
+        mkl.implementation = "mkl".into();
+        mkl.loaded = Some(false);
+        let (mut a, mut b) = (Content::default(), Content::default());
+        a.native.libraries = vec![mkl.clone()];
+        mkl.version = Some("2025.0".into());
+        b.native.libraries = vec![mkl.clone()];
+        let mut out = Vec::new();
+        compare(&a, &b, &ctx(), &mut out);
+        assert_eq!(out.len(), 1, "{out:?}");
+        assert_eq!(out[0].impact, Impact::None, "{out:?}");
+        mkl.loaded = Some(true);
+        b.native.libraries = vec![mkl];
+        let mut out = Vec::new();
+        compare(&a, &b, &ctx(), &mut out);
+        assert_eq!(out[0].impact, Impact::Verify, "{out:?}");
     }
 
     /// torch's `version.py` names its CUDA but not its cuDNN: the report says the cuDNN of a
