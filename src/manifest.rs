@@ -695,6 +695,10 @@ pub struct NativeLibrary {
     /// only). Absent without `--pid`.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub loaded: Option<bool>,
+    /// Named in `LD_PRELOAD`: loaded into every process before anything else, so its
+    /// symbols win over a distribution's own copy.
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub preloaded: bool,
     /// Compiler or symbol-version facts that stand in for a version (OpenMP runtimes).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub build_hint: Option<String>,

@@ -308,6 +308,23 @@ fn openblas_and_blis_query_functions_are_decoded() {
     if cfg!(target_arch = "x86_64") {
         assert_eq!(ob.kernel_family.as_deref(), Some("Haswell"));
     }
+    // The same OpenBLAS named in LD_PRELOAD (ld.so(8)) from a folder outside every scanned
+    // place: listed as the system's, marked preloaded.
+    let outside = tempfile::tempdir().unwrap();
+    let preload = outside.path().join("libopenblas.so.0");
+    std::fs::write(&preload, &o).unwrap();
+    let env: BTreeMap<String, String> =
+        [("LD_PRELOAD".to_string(), preload.display().to_string())].into();
+    let with_preload = native::collect(&[], &env, false, &no_system(), &mut w);
+    let pre = with_preload
+        .libraries
+        .iter()
+        .find(|l| l.preloaded)
+        .expect("the preloaded library is listed");
+    assert_eq!(
+        (pre.owner.as_str(), pre.implementation.as_str()),
+        ("system", "openblas")
+    );
     let bl = get("blis");
     assert_eq!(bl.version.as_deref(), Some("1.2.3"));
     assert_eq!(bl.threading_layer.as_deref(), Some("pthreads"));

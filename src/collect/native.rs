@@ -221,6 +221,47 @@ pub fn collect(
         }
     }
 
+    // Libraries forced into every process through LD_PRELOAD (ld.so(8): paths, or names the
+    // loader looks up; separated by colons or spaces). One the loader loads first wins
+    // symbol lookups over a distribution's own copy.
+    let mut preloaded = BTreeSet::new();
+    for entry in env
+        .get("LD_PRELOAD")
+        .map(|v| {
+            v.split([':', ' '])
+                .filter(|e| !e.is_empty())
+                .collect::<Vec<_>>()
+        })
+        .unwrap_or_default()
+    {
+        let path = if entry.contains('/') {
+            Some(PathBuf::from(entry))
+        } else {
+            cache.get(entry).map(PathBuf::from)
+        };
+        let Some(real) = path.and_then(|p| fsdeps::canonicalize(p).ok()) else {
+            continue;
+        };
+        let name = Path::new(entry)
+            .file_name()
+            .unwrap_or_default()
+            .to_string_lossy();
+        let file = real.file_name().unwrap_or_default().to_string_lossy();
+        let Some((role, implementation)) = blas::classify(&file, &parent_name(&real))
+            .or_else(|| blas::classify(&name, &parent_name(&real)))
+        else {
+            continue;
+        };
+        preloaded.insert(real.clone());
+        let shown = system_path(&real, private);
+        candidates.entry(real).or_insert(Candidate {
+            role,
+            implementation,
+            owner: "system".into(),
+            shown,
+        });
+    }
+
     let kernels = Kernels {
         coretype: env.get("OPENBLAS_CORETYPE").map(String::as_str),
         cpu: openblas_core::Cpu::this_machine(),
@@ -232,6 +273,7 @@ pub fn collect(
             match describe(&real, c, &versions, &blas_configs, &kernels) {
                 Ok(mut lib) => {
                     lib.used_by = users.into_iter().collect();
+                    lib.preloaded = preloaded.contains(&real);
                     Some(lib)
                 }
                 Err(e) => {

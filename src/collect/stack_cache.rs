@@ -36,6 +36,7 @@ const CACHE_VERSION: u32 = 4;
 pub const ENV_VARS: &[&str] = &[
     "CONDA_PREFIX",
     "HOME",
+    "LD_PRELOAD",
     "OPENBLAS_CORETYPE",
     "PATH",
     "PYENV_VERSION",

@@ -469,6 +469,9 @@ fn describe(l: &NativeLibrary) -> String {
     if let Some(a) = &l.kernel_family {
         extra.push(format!("{a} kernels"));
     }
+    if l.preloaded {
+        extra.push("LD_PRELOAD".into());
+    }
     if !extra.is_empty() {
         s.push_str(&format!(" ({})", extra.join(", ")));
     }
