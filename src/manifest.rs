@@ -568,6 +568,11 @@ pub struct Distribution {
     /// Ships compiled code (extension modules or bundled shared libraries).
     #[serde(default, skip_serializing_if = "is_false")]
     pub compiled: bool,
+    /// Another copy of the same name sits earlier on `sys.path` (`PYTHONPATH`, the virtual
+    /// environment before the base one, `.pth` folders after their site), so this one is
+    /// installed but not what `import` finds.
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub shadowed: bool,
     /// The distributions it needs (`Requires-Dist`, extras left out), normalized, sorted.
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub requires: Vec<String>,

@@ -489,3 +489,57 @@ fn a_running_process_is_read_as_threadpoolctl_sees_it() {
     let zero = run("0".into());
     assert_eq!(zero.status.code(), Some(2));
 }
+
+/// numpy installed twice: numpy 1.26's folder put first on `sys.path` through `PYTHONPATH`
+/// in front of an environment with numpy 2. The copy runprint marks as imported is the one
+/// the interpreter imports (`numpy.__version__`, and `importlib.metadata.version`, which
+/// searches `sys.path` in the same order); the other is marked shadowed.
+#[test]
+fn the_imported_copy_of_a_distribution_installed_twice_is_marked() {
+    let (Some(new), Some(old)) = (
+        interpreter("RUNPRINT_TEST_STACK_PYTHON"),
+        interpreter("RUNPRINT_TEST_STACK_PYTHON_OLD"),
+    ) else {
+        return;
+    };
+    let site = python_json(&old, "import json, numpy, os; print(json.dumps(os.path.dirname(os.path.dirname(numpy.__file__))))", None);
+    let site = site.as_str().unwrap().to_string();
+    let mut cmd = Command::new(&new);
+    cmd.args([
+        "-c",
+        "import json, numpy, importlib.metadata as m; print(json.dumps([numpy.__version__, m.version('numpy')]))",
+    ])
+    .env("PYTHONPATH", &site);
+    let out = cmd.output().unwrap();
+    let reference: Value = serde_json::from_slice(&out.stdout).unwrap();
+    assert_eq!(reference[0], reference[1]);
+    let repo = tempfile::tempdir().unwrap();
+    let out = Command::cargo_bin("runprint")
+        .unwrap()
+        .args(["stamp", "--format", "json", "--python"])
+        .arg(&new)
+        .arg("--repo")
+        .arg(repo.path())
+        .env("PYTHONPATH", &site)
+        .output()
+        .unwrap();
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let manifest: Value = serde_json::from_slice(&out.stdout).unwrap();
+    let numpys: Vec<&Value> = manifest["python"][0]["distributions"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .filter(|d| d["name"] == "numpy")
+        .collect();
+    assert_eq!(numpys.len(), 2, "{numpys:?}");
+    let imported: Vec<&&Value> = numpys
+        .iter()
+        .filter(|d| d.get("shadowed").is_none())
+        .collect();
+    assert_eq!(imported.len(), 1, "{numpys:?}");
+    assert_eq!(imported[0]["version"], reference[0]);
+}

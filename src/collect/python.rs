@@ -572,9 +572,12 @@ pub fn collect(
     });
     let mut distributions = Vec::new();
     let mut files = Vec::new();
+    // In search order: the first copy of a name is the one imported, later ones are shadowed.
+    let mut seen = std::collections::BTreeSet::new();
     for (found, w) in results {
         warnings.extend(w);
-        for (d, f) in found {
+        for (mut d, f) in found {
+            d.shadowed = !seen.insert(d.name.clone());
             distributions.push(d);
             files.push(f);
         }

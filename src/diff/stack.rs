@@ -51,6 +51,10 @@ rule_group! {
         "interpreter location",
         "the location does not change results; its version and packages are compared separately",
         "common practice";
+    PY_SHADOWED = "python.shadowed", "python", None, 2,
+        "another copy of a distribution installed behind the one imported",
+        "a copy later on sys.path is never imported while the first one is there; the imported copies are compared",
+        "https://docs.python.org/3/library/sys_path_init.html";
     PY_CONDA_BLAS = "python.conda-blas", "python", Verify, 58,
         "conda BLAS selector package (libblas, blas)",
         "its build names the BLAS every package in the environment uses, and vendors order floating-point operations differently",
@@ -261,6 +265,13 @@ fn compare_env(
     compare_builds(label, &o.builds, &n.builds, out);
 }
 
+/// The copy of a distribution `import` finds: the first not marked shadowed.
+fn imported_copy(
+    copies: &[(String, Option<String>, bool, bool)],
+) -> &(String, Option<String>, bool, bool) {
+    copies.iter().find(|c| !c.3).unwrap_or(&copies[0])
+}
+
 fn compare_distributions<'a>(
     label: &str,
     o: &'a PythonEnv,
@@ -268,43 +279,81 @@ fn compare_distributions<'a>(
     ctx: &Context<'_>,
     out: &mut Vec<Change>,
 ) {
-    type Keyed<'a> = BTreeMap<&'a str, Vec<(String, Option<String>, bool)>>;
+    /// Each copy: version, source, compiled, shadowed.
+    type Copy = (String, Option<String>, bool, bool);
+    type Keyed<'a> = BTreeMap<&'a str, Vec<Copy>>;
     let group = |e: &'a PythonEnv| -> Keyed<'a> {
         let mut m: Keyed = BTreeMap::new();
         for d in &e.distributions {
-            m.entry(&d.name)
-                .or_default()
-                .push((d.version.clone(), d.source.clone(), d.compiled));
+            m.entry(&d.name).or_default().push((
+                d.version.clone(),
+                d.source.clone(),
+                d.compiled,
+                d.shadowed,
+            ));
         }
         m
     };
     let (og, ng) = (group(o), group(n));
-    let versions = |v: Option<&Vec<(String, Option<String>, bool)>>| {
+    // Shown: the imported copy, then any shadowed one.
+    let versions = |v: Option<&Vec<Copy>>| {
         v.map(|v| {
-            v.iter()
-                .map(|(ver, _, _)| ver.clone())
-                .collect::<Vec<_>>()
-                .join(", ")
+            let imported: Vec<&str> = v.iter().filter(|c| !c.3).map(|c| c.0.as_str()).collect();
+            let shadowed: Vec<&str> = v.iter().filter(|c| c.3).map(|c| c.0.as_str()).collect();
+            if shadowed.is_empty() {
+                imported.join(", ")
+            } else {
+                format!(
+                    "{} (shadowed: {})",
+                    imported.join(", "),
+                    shadowed.join(", ")
+                )
+            }
         })
     };
-    let key = |v: Option<&Vec<(String, Option<String>, bool)>>| {
+    // Compared: the copies `import` finds.
+    let key = |v: Option<&Vec<Copy>>| {
         v.map(|v| {
             v.iter()
-                .map(|(a, b, _)| (a.clone(), b.clone()))
+                .filter(|c| !c.3)
+                .map(|c| (c.0.clone(), c.1.clone()))
                 .collect::<Vec<_>>()
         })
     };
+    let all = |v: Option<&Vec<Copy>>| {
+        v.map(|v| {
+            let mut all: Vec<_> = v.iter().map(|c| (c.0.clone(), c.1.clone())).collect();
+            all.sort();
+            all
+        })
+    };
+    // A manifest from before shadowing was recorded lists every copy unmarked.
+    let unmarked = |v: Option<&Vec<Copy>>| v.is_some_and(|v| v.len() > 1 && v.iter().all(|c| !c.3));
     for (name, a, b) in super::outer_join(&og, &ng) {
+        if (unmarked(a) || unmarked(b)) && all(a) == all(b) {
+            continue;
+        }
         if key(a) == key(b) {
+            // The same copy is imported; only the copies behind it changed.
+            if versions(a) != versions(b) && !unmarked(a) && !unmarked(b) {
+                out.push(change(
+                    &PY_SHADOWED,
+                    Section::Python,
+                    format!("{label}: {name}"),
+                    format!("{name}: the imported copy is the same"),
+                    versions(a),
+                    versions(b),
+                ));
+            }
             continue;
         }
         // The installed copies say exactly whether the distribution ships compiled code.
-        let compiled = a.into_iter().chain(b).flatten().any(|(_, _, c)| *c);
+        let compiled = a.into_iter().chain(b).flatten().any(|c| c.2);
         let change = match (a, b) {
             (None, _) => PackageChange::Added,
             (_, None) => PackageChange::Removed,
             (Some(a), Some(b)) => {
-                let (x, y) = (&a[a.len() - 1].0, &b[b.len() - 1].0);
+                let (x, y) = (&imported_copy(a).0, &imported_copy(b).0);
                 if x == y {
                     PackageChange::Source
                 } else {
@@ -972,6 +1021,52 @@ mod tests {
         let mut out = Vec::new();
         compare(&a, &b, &ctx(), &mut out);
         assert_eq!(out[0].impact, Impact::Verify, "{out:?}");
+    }
+
+    /// numpy twice: the copy `import` finds is compared, the one behind it is named.
+    #[test]
+    fn shadowed_copies_are_named_and_the_imported_one_compared() {
+        let numpy = |version: &str, shadowed: bool| Distribution {
+            name: "numpy".into(),
+            version: version.into(),
+            compiled: true,
+            shadowed,
+            ..Distribution::default()
+        };
+        let env = |d: Vec<Distribution>| {
+            let mut c = Content::default();
+            c.python.push(PythonEnv {
+                interpreter: "p".into(),
+                distributions: d,
+                ..PythonEnv::default()
+            });
+            c
+        };
+        let rules = |a: &Content, b: &Content| {
+            let mut out = Vec::new();
+            compare(a, b, &ctx(), &mut out);
+            out.iter()
+                .map(|c| (c.rule.id, c.impact, c.new.clone()))
+                .collect::<Vec<_>>()
+        };
+        let one = env(vec![numpy("2.4.6", false)]);
+        let behind = env(vec![numpy("2.4.6", false), numpy("1.26.4", true)]);
+        assert_eq!(
+            rules(&one, &behind),
+            [(
+                "python.shadowed",
+                Impact::None,
+                Some("2.4.6 (shadowed: 1.26.4)".into())
+            )]
+        );
+        // PYTHONPATH puts 1.26.4 first: the imported numpy went back a major release.
+        let front = env(vec![numpy("1.26.4", false), numpy("2.4.6", true)]);
+        let r = rules(&one, &front);
+        assert_eq!(r.len(), 1, "{r:?}");
+        assert_eq!(r[0].1, Impact::Retrain, "{r:?}");
+        // A baseline from before copies were marked, with the same two copies: nothing.
+        let unmarked = env(vec![numpy("1.26.4", false), numpy("2.4.6", false)]);
+        assert!(rules(&unmarked, &front).is_empty());
     }
 
     /// torch's `version.py` names its CUDA but not its cuDNN: the report says the cuDNN of a
