@@ -51,12 +51,18 @@ fn python_json(python: &Path, code: &str, coretype: Option<&str>) -> Value {
 
 /// `runprint stamp --python` as JSON.
 fn stamp(python: &Path, coretype: Option<&str>) -> Value {
+    stamp_in(python, coretype, &[])
+}
+
+/// As [`stamp`], with more variables set.
+fn stamp_in(python: &Path, coretype: Option<&str>, vars: &[(&str, &str)]) -> Value {
     let repo = tempfile::tempdir().unwrap();
     let mut cmd = Command::cargo_bin("runprint").unwrap();
     cmd.args(["stamp", "--format", "json", "--python"])
         .arg(python)
         .arg("--repo")
-        .arg(repo.path());
+        .arg(repo.path())
+        .envs(vars.iter().copied());
     match coretype {
         Some(c) => cmd.env("OPENBLAS_CORETYPE", c),
         None => cmd.env_remove("OPENBLAS_CORETYPE"),
@@ -513,22 +519,7 @@ fn the_imported_copy_of_a_distribution_installed_twice_is_marked() {
     let out = cmd.output().unwrap();
     let reference: Value = serde_json::from_slice(&out.stdout).unwrap();
     assert_eq!(reference[0], reference[1]);
-    let repo = tempfile::tempdir().unwrap();
-    let out = Command::cargo_bin("runprint")
-        .unwrap()
-        .args(["stamp", "--format", "json", "--python"])
-        .arg(&new)
-        .arg("--repo")
-        .arg(repo.path())
-        .env("PYTHONPATH", &site)
-        .output()
-        .unwrap();
-    assert!(
-        out.status.success(),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
-    let manifest: Value = serde_json::from_slice(&out.stdout).unwrap();
+    let manifest = stamp_in(&new, None, &[("PYTHONPATH", &site)]);
     let numpys: Vec<&Value> = manifest["python"][0]["distributions"]
         .as_array()
         .unwrap()
