@@ -534,3 +534,105 @@ fn the_imported_copy_of_a_distribution_installed_twice_is_marked() {
     assert_eq!(imported.len(), 1, "{numpys:?}");
     assert_eq!(imported[0]["version"], reference[0]);
 }
+
+/// oneMKL's threading layer and ONNX Runtime's build commit, in an environment with the
+/// `mkl` and `onnxruntime` wheels (`RUNPRINT_TEST_FRAMEWORK_PYTHON`). References:
+/// threadpoolctl's `threading_layer` for MKL loaded through ctypes under each
+/// `MKL_THREADING_LAYER` value, and `onnxruntime.get_build_info()`. A layer MKL cannot load
+/// (the process dies) must come with runprint's warning, and only then.
+#[test]
+fn mkl_threading_layers_and_onnxruntime_commit_equal_the_libraries() {
+    let Some(python) = interpreter("RUNPRINT_TEST_FRAMEWORK_PYTHON") else {
+        return;
+    };
+    const MKL: &str = r#"
+import ctypes, glob, json, sys, threadpoolctl
+ctypes.CDLL(glob.glob(sys.prefix + '/lib/libmkl_rt.so*')[0])
+print(json.dumps([i.get('threading_layer') for i in threadpoolctl.threadpool_info() if i['internal_api'] == 'mkl']))
+"#;
+    for value in [
+        None,
+        Some("INTEL"),
+        Some("gnu"),
+        Some("SEQUENTIAL"),
+        Some("TBB"),
+        Some("bogus"),
+    ] {
+        let mut cmd = Command::new(&python);
+        cmd.args(["-c", MKL]);
+        match value {
+            Some(v) => cmd.env("MKL_THREADING_LAYER", v),
+            None => cmd.env_remove("MKL_THREADING_LAYER"),
+        };
+        let out = cmd.output().unwrap();
+        let repo = tempfile::tempdir().unwrap();
+        let mut stamp = Command::cargo_bin("runprint").unwrap();
+        stamp
+            .args(["stamp", "--format", "json", "--python"])
+            .arg(&python)
+            .arg("--repo")
+            .arg(repo.path());
+        match value {
+            Some(v) => stamp.env("MKL_THREADING_LAYER", v),
+            None => stamp.env_remove("MKL_THREADING_LAYER"),
+        };
+        let stamped = stamp.output().unwrap();
+        assert!(
+            stamped.status.success(),
+            "{}",
+            String::from_utf8_lossy(&stamped.stderr)
+        );
+        let manifest: Value = serde_json::from_slice(&stamped.stdout).unwrap();
+        let mkl = manifest["native"]["libraries"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .find(|l| l["implementation"] == "mkl")
+            .expect("runprint found MKL");
+        let warned = manifest["run"]["warnings"]
+            .as_array()
+            .into_iter()
+            .flatten()
+            .any(|w| w.as_str().unwrap_or("").contains("threading layer"));
+        if out.status.success() {
+            let reference: Value = serde_json::from_slice(&out.stdout).unwrap();
+            assert_eq!(
+                mkl["threading-layer"], reference[0],
+                "MKL_THREADING_LAYER={value:?}"
+            );
+            assert!(
+                !warned,
+                "MKL_THREADING_LAYER={value:?}: a warning for a layer that loads"
+            );
+        } else {
+            // MKL could not load the layer ("Intel oneMKL FATAL ERROR: Cannot load
+            // libmkl_tbb_thread.so.3.", printed on standard output).
+            let err = String::from_utf8_lossy(&out.stdout).to_string()
+                + &String::from_utf8_lossy(&out.stderr);
+            assert!(err.contains("Cannot load"), "{err}");
+            assert!(
+                warned,
+                "MKL_THREADING_LAYER={value:?}: no warning, but MKL stops: {err}"
+            );
+        }
+    }
+    let reference = python_json(
+        &python,
+        "import json, onnxruntime as o; print(json.dumps([o.__version__, o.get_build_info()]))",
+        None,
+    );
+    let manifest = stamp(&python, None);
+    let build = manifest["python"][0]["builds"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|b| b["name"] == "onnxruntime")
+        .expect("an onnxruntime build entry");
+    assert_eq!(build["version"], reference[0]);
+    let info = reference[1].as_str().unwrap();
+    let commit = build["git-revision"].as_str().unwrap();
+    assert!(
+        info.contains(&format!("git-commit-id={commit},")),
+        "{info} vs {commit}"
+    );
+}

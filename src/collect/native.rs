@@ -274,6 +274,12 @@ pub fn collect(
                 Ok(mut lib) => {
                     lib.used_by = users.into_iter().collect();
                     lib.preloaded = preloaded.contains(&real);
+                    if lib.implementation == "mkl" {
+                        let (layer, problem) =
+                            mkl_threading_layer(&real, env, &cache, &system.dirs);
+                        lib.threading_layer = Some(layer.to_string());
+                        warnings.extend(problem);
+                    }
                     Some(lib)
                 }
                 Err(e) => {
@@ -415,6 +421,69 @@ fn classified_files(dir: &Path) -> Vec<(PathBuf, Role, &'static str)> {
 }
 
 /// Resolves a `DT_NEEDED` name for an object in `origin`.
+/// The threading layer oneMKL's single dynamic library (`libmkl_rt`) will load:
+/// `MKL_THREADING_LAYER` (`INTEL`, `GNU`, `TBB`, `SEQUENTIAL`, any case; unset or any other
+/// value: `INTEL`; oneMKL Developer Guide, "Setting the Threading Layer at Run Time"; the
+/// unknown-value case checked with threadpoolctl's `threading_layer` on mkl 2026.2.1), and a
+/// warning when the layer's library is missing beside it or needs a library the loader will
+/// not find (mkl 2026.2.1's `libmkl_tbb_thread.so.3` needs `libtbb.so.12` without a run path:
+/// MKL then stops the process with "Cannot load libmkl_tbb_thread.so.3").
+fn mkl_threading_layer(
+    real: &Path,
+    env: &BTreeMap<String, String>,
+    cache: &BTreeMap<String, String>,
+    dirs: &[PathBuf],
+) -> (&'static str, Option<String>) {
+    let requested = env
+        .get("MKL_THREADING_LAYER")
+        .map(|v| v.trim().to_ascii_lowercase());
+    let (layer, stem) = match requested.as_deref() {
+        Some("gnu") => ("gnu", "libmkl_gnu_thread.so"),
+        Some("tbb") => ("tbb", "libmkl_tbb_thread.so"),
+        Some("sequential") => ("sequential", "libmkl_sequential.so"),
+        _ => ("intel", "libmkl_intel_thread.so"),
+    };
+    let dir = real.parent().unwrap_or(Path::new("/"));
+    let Some(layer_lib) = list_dir(dir).into_iter().find(|p| {
+        p.file_name()
+            .is_some_and(|n| n.to_string_lossy().starts_with(stem))
+    }) else {
+        return (
+            layer,
+            Some(format!(
+                "native: oneMKL's {layer} threading layer needs {stem}*, which is not beside `{}`: MKL stops the process when it loads",
+                real.display()
+            )),
+        );
+    };
+    let Ok(data) = map(&layer_lib) else {
+        return (layer, None);
+    };
+    let Ok(elf) = ElfFile::parse(&data) else {
+        return (layer, None);
+    };
+    let dynamic = elf.dynamic();
+    // LD_LIBRARY_PATH folders are searched too (ld.so(8)).
+    let mut search: Vec<PathBuf> = env
+        .get("LD_LIBRARY_PATH")
+        .map(|v| std::env::split_paths(v).collect())
+        .unwrap_or_default();
+    search.extend(dirs.iter().cloned());
+    let missing: Vec<&String> = dynamic
+        .needed
+        .iter()
+        .filter(|n| resolve(n, dir, &dynamic, cache, &search).is_none())
+        .collect();
+    let problem = (!missing.is_empty()).then(|| {
+        format!(
+            "native: oneMKL's {layer} threading layer `{}` needs {}, which the loader will not find (no run path, not in LD_LIBRARY_PATH or the system folders): MKL stops the process when it loads",
+            layer_lib.display(),
+            missing.iter().map(|m| format!("`{m}`")).collect::<Vec<_>>().join(", ")
+        )
+    });
+    (layer, problem)
+}
+
 fn resolve(
     needed: &str,
     origin: &Path,

@@ -648,6 +648,16 @@ fn conda_packages(dir: &Path, warnings: &mut Vec<String>) -> Vec<CondaPackage> {
 }
 
 /// Build facts of the frameworks present, read from their generated files.
+/// Up to 512 bytes after the first occurrence of `prefix` in a (memory-mapped) file.
+fn constant_after(path: &Path, prefix: &[u8]) -> Option<Vec<u8>> {
+    let f = fsdeps::open(path).ok()?;
+    // SAFETY: read-only map of a library file for the length of this search (the same
+    // accepted risk as the native collector's maps).
+    let map = unsafe { memmap2::Mmap::map(&f) }.ok()?;
+    let at = memchr::memmem::find(&map, prefix)? + prefix.len();
+    Some(map[at..map.len().min(at + 512)].to_vec())
+}
+
 fn framework_builds(files: &[DistFiles]) -> Vec<FrameworkBuild> {
     let mut out = Vec::new();
     for f in files {
@@ -681,6 +691,22 @@ fn framework_builds(files: &[DistFiles]) -> Vec<FrameworkBuild> {
                     read(&rel).and_then(|t| framework::parse_numpy_config(&t, &f.name, &rel))
                 {
                     out.push(b);
+                }
+            }
+            "onnxruntime" | "onnxruntime-gpu" => {
+                let version = read("onnxruntime/capi/build_and_package_info.py")
+                    .and_then(|t| framework::parse_assignment(&t, "__version__"));
+                let module = f
+                    .compiled
+                    .iter()
+                    .find(|r| r.contains("onnxruntime_pybind11_state"));
+                if let Some(rel) = module {
+                    let found = constant_after(&f.site.join(rel), framework::ORT_BUILD_INFO)
+                        .and_then(|bytes| framework::parse_ort_build_info(&bytes, version, rel));
+                    if let Some(mut b) = found {
+                        b.name = f.name.clone();
+                        out.push(b);
+                    }
                 }
             }
             n if n.starts_with("jax-cuda") && n.ends_with("-plugin") => {

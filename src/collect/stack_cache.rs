@@ -36,7 +36,9 @@ const CACHE_VERSION: u32 = 4;
 pub const ENV_VARS: &[&str] = &[
     "CONDA_PREFIX",
     "HOME",
+    "LD_LIBRARY_PATH",
     "LD_PRELOAD",
+    "MKL_THREADING_LAYER",
     "OPENBLAS_CORETYPE",
     "PATH",
     "PYENV_VERSION",

@@ -8,8 +8,17 @@
 //! * jaxlib `jaxlib/version.py`: `_version` and `_git_hash`.
 //! * NumPy/SciPy `__config__.py` (meson builds): the `"blas"` entry of `CONFIG` with `name`,
 //!   `version` and `openblas configuration` (NumPy docs, `numpy.show_config`).
+//! * ONNX Runtime: the string `onnxruntime.get_build_info()` returns is a constant in its
+//!   compiled module, `ORT Build Info: git-branch=…, git-commit-id=…, …, build type=…`
+//!   (comma-separated `key=value` pairs; measured in the 1.32.0 wheel), and `__version__` in
+//!   `onnxruntime/capi/build_and_package_info.py`.
 
 use crate::manifest::FrameworkBuild;
+
+/// The value of `name = 'literal'` in a generated Python file.
+pub fn parse_assignment(text: &str, name: &str) -> Option<String> {
+    assignment(text, name).flatten()
+}
 
 /// A Python literal on the right of `name = ...` or `name: T = ...`, unquoted; `None` for
 /// Python's `None`.
@@ -121,9 +130,52 @@ pub fn parse_numpy_config(text: &str, name: &str, from: &str) -> Option<Framewor
     })
 }
 
+/// The prefix of ONNX Runtime's build-information constant.
+pub const ORT_BUILD_INFO: &[u8] = b"ORT Build Info: ";
+
+/// Reads ONNX Runtime's build information (the bytes after [`ORT_BUILD_INFO`] up to a NUL):
+/// `git-commit-id` as the revision; `None` without one.
+pub fn parse_ort_build_info(
+    after_prefix: &[u8],
+    version: Option<String>,
+    from: &str,
+) -> Option<FrameworkBuild> {
+    let end = after_prefix
+        .iter()
+        .position(|b| *b == 0)
+        .unwrap_or(after_prefix.len())
+        .min(512);
+    let text = String::from_utf8_lossy(&after_prefix[..end]);
+    let commit = text.split(',').find_map(|part| {
+        let (k, v) = part.trim().split_once('=')?;
+        (k == "git-commit-id" && !v.is_empty() && v.bytes().all(|b| b.is_ascii_hexdigit()))
+            .then(|| v.to_string())
+    })?;
+    Some(FrameworkBuild {
+        name: "onnxruntime".into(),
+        version,
+        git_revision: Some(commit),
+        from: from.into(),
+        ..FrameworkBuild::default()
+    })
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn onnxruntime_build_information() {
+        // The constant of the onnxruntime 1.32.0 wheel (`strings` of its pybind11 module).
+        let b = parse_ort_build_info(
+            b"git-branch=HEAD, git-commit-id=fab30a4, fp8-kv-cache=1, build type=Release\0rest",
+            Some("1.32.0".into()),
+            "m.so",
+        )
+        .unwrap();
+        assert_eq!(b.git_revision.as_deref(), Some("fab30a4"));
+        assert!(parse_ort_build_info(b"git-branch=HEAD\0", None, "m.so").is_none());
+    }
 
     #[test]
     fn torch_version_py() {
