@@ -636,3 +636,38 @@ print(json.dumps([i.get('threading_layer') for i in threadpoolctl.threadpool_inf
         "{info} vs {commit}"
     );
 }
+
+/// jaxlib's CPU LAPACK kernels come from SciPy through Python, with no DT_NEEDED entry:
+/// after a decomposition on the CPU, the process has `scipy.linalg.cython_lapack` imported
+/// and SciPy's OpenBLAS mapped (`/proc/self/maps`), so runprint names jaxlib among the users
+/// of SciPy's BLAS.
+#[test]
+fn jaxlib_is_a_user_of_scipys_blas() {
+    let Some(python) = interpreter("RUNPRINT_TEST_FRAMEWORK_PYTHON") else {
+        return;
+    };
+    let reference = python_json(
+        &python,
+        "import json, os, sys\nimport jax.numpy as jnp\njnp.linalg.eigh(jnp.eye(3) * 2.0)\n\
+         maps = {l.split()[-1] for l in open('/proc/self/maps') if '/' in l}\n\
+         print(json.dumps(['scipy.linalg.cython_lapack' in sys.modules, sorted(os.path.basename(p) for p in maps if '/scipy.libs/' in p and 'openblas' in p)]))",
+        None,
+    );
+    assert_eq!(reference[0], true, "{reference}");
+    let loaded = reference[1].as_array().unwrap();
+    assert_eq!(loaded.len(), 1, "{reference}");
+    let manifest = stamp(&python, None);
+    let scipy_blas = manifest["native"]["libraries"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|l| l["file"] == loaded[0])
+        .expect("SciPy's OpenBLAS");
+    let users: Vec<&str> = scipy_blas["used-by"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .filter_map(Value::as_str)
+        .collect();
+    assert!(users.contains(&"jaxlib"), "{users:?}");
+}

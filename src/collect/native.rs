@@ -89,6 +89,7 @@ pub fn collect(
     let mut fast_math = BTreeSet::new();
     let mut versions: BTreeMap<String, String> = BTreeMap::new();
     let mut blas_configs: BTreeMap<String, String> = BTreeMap::new();
+    let mut through_scipy: BTreeSet<String> = BTreeSet::new();
 
     for scan in scans {
         for d in &scan.env.distributions {
@@ -128,6 +129,15 @@ pub fn collect(
             let Ok(elf) = ElfFile::parse(&data) else {
                 continue;
             };
+            // Compiled modules that take BLAS/LAPACK from SciPy through Python (the
+            // `__pyx_capi__` of `scipy.linalg.cython_blas`/`cython_lapack`; jaxlib's CPU
+            // LAPACK kernels and scikit-learn do): no DT_NEEDED entry shows it.
+            if owner != "scipy" {
+                let rodata = elf.section(".rodata").unwrap_or_default();
+                if memchr::memmem::find(rodata, b"scipy.linalg.cython_").is_some() {
+                    through_scipy.insert(owner.clone());
+                }
+            }
             if has_fast_math(&elf) {
                 fast_math.insert(FastMathModule {
                     owner: owner.clone(),
@@ -289,6 +299,14 @@ pub fn collect(
             }
         })
         .collect();
+    for lib in libraries
+        .iter_mut()
+        .filter(|l| l.owner == "scipy" && l.role == "blas")
+    {
+        lib.used_by.extend(through_scipy.iter().cloned());
+        lib.used_by.sort();
+        lib.used_by.dedup();
+    }
     libraries.sort_by(|a, b| (&a.owner, &a.role, &a.path).cmp(&(&b.owner, &b.role, &b.path)));
     libraries.dedup_by(|a, b| a.owner == b.owner && a.path == b.path);
     NativeInfo {
